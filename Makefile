@@ -1,0 +1,34 @@
+# limpid build, demo, test and benchmark entry points.
+# `make demo` and `make test` install what is missing (Debian packages, Go
+# modules) themselves and are safe to run again.
+SHELL := /bin/bash
+GO ?= go
+APT_PKGS := libgdal-dev gdal-bin python3-gdal python3-skimage pkg-config
+SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
+
+.PHONY: deps demo test bench build clean
+
+deps:
+	@if ! dpkg -s $(APT_PKGS) >/dev/null 2>&1; then \
+		echo "installing $(APT_PKGS)"; \
+		$(SUDO) apt-get update -q && DEBIAN_FRONTEND=noninteractive $(SUDO) apt-get install -y -q $(APT_PKGS); \
+	fi
+	@$(GO) mod download
+
+build: deps
+	$(GO) build -o bin/limpid ./cmd/limpid
+
+demo: build
+	./bin/limpid demo --out limpid-demo
+
+test: deps
+	@test -z "$$(gofmt -l $$(git ls-files '*.go' 2>/dev/null || find . -name '*.go'))" || { echo "gofmt needed:"; gofmt -l .; exit 1; }
+	$(GO) vet ./...
+	$(GO) test -race -count=1 ./...
+
+bench: deps
+	$(GO) test -run '^$$' -bench . -benchmem -benchtime 10x ./step
+	LIMPID_BENCH_SCENE=1 $(GO) test -run '^$$' -bench 'BenchmarkScene' -benchtime 1x -timeout 60m ./cmd/limpid
+
+clean:
+	rm -rf bin limpid-demo

@@ -1,0 +1,437 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/urfave/cli/v2"
+	"golang.org/x/term"
+
+	"limpid/psf"
+	"limpid/raster"
+	"limpid/step"
+)
+
+func env(name string) []string {
+	return []string{"LIMPID_" + strings.ToUpper(strings.ReplaceAll(name, "-", "_"))}
+}
+
+func psfHelp() string {
+	var b strings.Builder
+	b.WriteString("PSF specification (required). Models:")
+	for _, m := range psf.Models() {
+		fmt.Fprintf(&b, "\n      %s: %s", m.Name, m.Summary)
+		for _, p := range m.Params {
+			fmt.Fprintf(&b, "\n        %s (%s): %s", p.Key, p.Unit, p.Doc)
+		}
+	}
+	b.WriteString("\n      e.g. gaussian:sigma=0.7 | gaussian:sx=0.8,sy=0.6,angle=20 | kernel:psf.txt")
+	return b.String()
+}
+
+func restoreFlags() []cli.Flag {
+	return []cli.Flag{
+		&cli.StringFlag{Name: "psf", EnvVars: env("psf"), Usage: psfHelp()},
+		&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff (tiled, DEFLATE, predictor, BIGTIFF=IF_SAFER) or cog (Cloud Optimized GeoTIFF)"},
+		&cli.StringFlag{Name: "bands", EnvVars: env("bands"), Usage: "1-based bands to restore, in output order, e.g. 1,3,4 (default: all)"},
+		&cli.StringFlag{Name: "output-type", Value: "same", EnvVars: env("output-type"), Usage: "same (round to nearest, clamp to the input type's range) or float32"},
+		&cli.StringFlag{Name: "saturated", EnvVars: env("saturated"), Usage: "pixels at or above this value are invalid: left out of the fit, written as nodata"},
+		&cli.StringFlag{Name: "background", Value: "0", EnvVars: env("background"), Usage: fmt.Sprintf("additive background b in DN, or auto (the %g percentile of each band's valid pixels)", step.BackgroundPercentile)},
+		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, EnvVars: env("iterations"), Usage: "maximum EMS iterations per tile"},
+		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, EnvVars: env("tolerance"), Usage: "stop a tile early when the relative L1 change falls below this (0 = never)"},
+		&cli.Float64Flag{Name: "smooth", Value: step.DefaultSmooth, EnvVars: env("smooth"), Usage: "EMS smoothing bandwidth in pixels (0 = Richardson-Lucy)"},
+		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid)"},
+		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for stochastic methods (recorded; grid is deterministic)"},
+		&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs); output is identical for any value"},
+		&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels"},
+		&cli.StringFlag{Name: "overlap", Value: "auto", EnvVars: env("overlap"), Usage: "halo in pixels read around each tile; auto = 4 x (PSF radius + smoothing radius), rounded up to 8, at least 16, at most the tile"},
+		&cli.StringFlag{Name: "report", EnvVars: env("report"), Usage: "write a JSON report of the run to this file"},
+	}
+}
+
+func restoreCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
+	return &cli.Command{
+		Name:      "restore",
+		Usage:     "restore a blurred raster (flags come before INPUT OUTPUT)",
+		ArgsUsage: "INPUT OUTPUT",
+		Description: `INPUT is any GDAL-readable raster (also /vsi... paths) or - for stdin.
+OUTPUT is a path or - for stdout (the finished file is copied there; nothing else is).
+
+Examples:
+   limpid restore --psf gaussian:sigma=0.7 scene.tif scene_restored.tif
+   limpid restore --psf gaussian:sx=0.8,sy=0.6,angle=20 --bands 1,3,4 --format cog in.tif out.tif
+   gdal_translate -of GTiff in.jp2 /vsistdout/ | limpid restore --psf kernel:psf.txt - - > out.tif
+   LIMPID_PSF=gaussian:sigma=0.6 LIMPID_WORKERS=2 limpid restore in.tif out.tif
+
+Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
+
+` + caution,
+		Flags:  restoreFlags(),
+		Action: func(c *cli.Context) error { return restoreAction(c, stdin, stdout, stderr) },
+	}
+}
+
+// restoreJob is the parsed command line of restore.
+type restoreJob struct {
+	in, out    string
+	format     raster.Format
+	outType    string
+	bandSpec   string
+	cfg        step.Config
+	reportPath string
+}
+
+func parseBands(s string, n int) ([]int, error) {
+	if strings.TrimSpace(s) == "" {
+		out := make([]int, n)
+		for i := range out {
+			out[i] = i
+		}
+		return out, nil
+	}
+	var out []int
+	for _, f := range strings.Split(s, ",") {
+		v, err := strconv.Atoi(strings.TrimSpace(f))
+		if err != nil {
+			return nil, usagef("--bands %q: %q is not a band number", s, f)
+		}
+		if v < 1 || v > n {
+			return nil, usagef("--bands %q: band %d does not exist (the input has %d)", s, v, n)
+		}
+		out = append(out, v-1)
+	}
+	return out, nil
+}
+
+func parseJob(c *cli.Context) (*restoreJob, error) {
+	if c.NArg() != 2 {
+		if c.NArg() > 2 {
+			return nil, usagef("restore takes INPUT OUTPUT after the flags (got %d arguments: %s); flags after the arguments are not read", c.NArg(), strings.Join(c.Args().Slice(), " "))
+		}
+		return nil, usagef("restore needs INPUT and OUTPUT (see limpid restore --help)")
+	}
+	j := &restoreJob{in: c.Args().Get(0), out: c.Args().Get(1), reportPath: c.String("report"), bandSpec: c.String("bands")}
+	switch f := c.String("format"); f {
+	case "gtiff", "cog":
+		j.format = raster.Format(f)
+	default:
+		return nil, usagef("--format %q: use gtiff or cog", f)
+	}
+	switch t := c.String("output-type"); t {
+	case "same", "float32":
+		j.outType = t
+	default:
+		return nil, usagef("--output-type %q: use same or float32", t)
+	}
+	if c.String("psf") == "" {
+		return nil, usagef("--psf is required, e.g. --psf gaussian:sigma=0.7")
+	}
+	k, err := psf.Parse(c.String("psf"), psf.Env{LoadRaster: raster.LoadKernel})
+	if err != nil {
+		return nil, usageError{fmt.Errorf("--psf %w", err)}
+	}
+	cfg := step.Config{
+		Method: c.String("method"), PSF: k, PSFSpec: c.String("psf"), Smooth: c.Float64("smooth"),
+		Iterations: c.Int("iterations"), Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
+		Workers: c.Int("workers"), Seed: c.Uint64("seed"), Overlap: -1,
+	}
+	if c.Int("workers") < 0 {
+		return nil, usagef("--workers %d must be >= 0", c.Int("workers"))
+	}
+	if c.Int("tile") < 16 {
+		return nil, usagef("--tile %d must be at least 16", c.Int("tile"))
+	}
+	if o := c.String("overlap"); o != "auto" {
+		v, err := strconv.Atoi(o)
+		if err != nil || v < 0 {
+			return nil, usagef("--overlap %q: give a number of pixels >= 0 or auto", o)
+		}
+		cfg.Overlap = v
+	}
+	switch b := c.String("background"); b {
+	case "auto":
+		cfg.BackgroundAuto = true
+	default:
+		v, err := strconv.ParseFloat(b, 64)
+		if err != nil || math.IsNaN(v) || math.IsInf(v, 0) || v < 0 {
+			return nil, usagef("--background %q: give a value >= 0 in DN or auto", b)
+		}
+		cfg.Background = v
+	}
+	if s := c.String("saturated"); s != "" {
+		v, err := strconv.ParseFloat(s, 64)
+		if err != nil || math.IsNaN(v) {
+			return nil, usagef("--saturated %q is not a number", s)
+		}
+		cfg.Saturated, cfg.HasSaturated = v, true
+	}
+	if err := cfg.Resolve(); err != nil {
+		return nil, err
+	}
+	j.cfg = cfg
+	return j, nil
+}
+
+// checkPaths refuses OUTPUT == INPUT and a missing output directory before
+// any work is done.
+func checkPaths(in, out string) error {
+	if out == "-" {
+		return nil
+	}
+	if in != "-" {
+		ai, _ := filepath.Abs(in)
+		ao, _ := filepath.Abs(out)
+		if ai == ao {
+			return usagef("OUTPUT %s is the INPUT: write the restored scene to a new file and keep the original", out)
+		}
+		if si, err := os.Stat(in); err == nil {
+			if so, err := os.Stat(out); err == nil && os.SameFile(si, so) {
+				return usagef("OUTPUT %s is the INPUT: write the restored scene to a new file and keep the original", out)
+			}
+		}
+	}
+	dir := filepath.Dir(out)
+	st, err := os.Stat(dir)
+	if err != nil || !st.IsDir() {
+		return usagef("OUTPUT %s: directory %s does not exist", out, dir)
+	}
+	if st, err := os.Stat(out); err == nil && st.IsDir() {
+		return usagef("OUTPUT %s is a directory", out)
+	}
+	return nil
+}
+
+// spoolStdin copies stdin to a temporary file (GDAL's stdin reader cannot
+// seek) and returns its path.
+func spoolStdin(stdin io.Reader) (string, error) {
+	f, err := os.CreateTemp("", "limpid-stdin-*")
+	if err != nil {
+		return "", err
+	}
+	n, err := io.Copy(f, stdin)
+	if cerr := f.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
+		os.Remove(f.Name())
+		return "", fmt.Errorf("reading stdin: %w", err)
+	}
+	if n == 0 {
+		os.Remove(f.Name())
+		return "", usagef("INPUT -: stdin is empty")
+	}
+	return f.Name(), nil
+}
+
+func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
+	j, err := parseJob(c)
+	if err != nil {
+		return err
+	}
+	if err := checkPaths(j.in, j.out); err != nil {
+		return err
+	}
+	_, err = runRestore(c.Context, j, stdin, stdout, stderr)
+	return err
+}
+
+// fullReport is the JSON report: the job plus what the step did.
+type fullReport struct {
+	Input      string       `json:"input"`
+	Output     string       `json:"output"`
+	Format     string       `json:"format"`
+	OutputType string       `json:"output_type"`
+	DataType   string       `json:"input_data_type"`
+	Finished   string       `json:"finished_utc"`
+	Product    string       `json:"product"`
+	Step       *step.Report `json:"restoration"`
+}
+
+func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, stderr io.Writer) (*step.Report, error) {
+	inPath := j.in
+	if j.in == "-" {
+		p, err := spoolStdin(stdin)
+		if err != nil {
+			return nil, err
+		}
+		defer os.Remove(p)
+		inPath = p
+	}
+	src, err := raster.Open(inPath)
+	if err != nil {
+		if j.in == "-" {
+			return nil, usagef("INPUT - (stdin) is not a raster GDAL can read")
+		}
+		return nil, err
+	}
+	defer src.Close()
+	meta := src.Meta()
+	bands, err := parseBands(j.bandSpec, len(meta.Bands))
+	if err != nil {
+		return nil, err
+	}
+	om := outputMeta(meta, bands, j)
+	wopts := raster.WriteOptions{Format: j.format, DataType: om.DataType}
+	wopts.NoData, wopts.HasNoData = outputNoData(meta, bands, j)
+	if j.out == "-" {
+		wopts.Stdout = stdout
+	}
+	dst, err := raster.Create(j.out, om, wopts)
+	if err != nil {
+		return nil, err
+	}
+	cfg := j.cfg
+	cfg.Progress = progress(stderr, len(bands)*tileCount(meta, cfg))
+	rep, err := step.Restore(ctx, src, bands, dst, cfg)
+	if err != nil {
+		dst.Abort()
+		return nil, err
+	}
+	if err := recordProcessing(dst, rep); err != nil {
+		dst.Abort()
+		return nil, err
+	}
+	if j.reportPath != "" {
+		full := fullReport{Input: j.in, Output: j.out, Format: string(j.format), OutputType: om.DataType,
+			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: "restored (deconvolved) image; keep the original", Step: rep}
+		if err := writeJSON(j.reportPath, full); err != nil {
+			dst.Abort()
+			return nil, err
+		}
+	}
+	if err := dst.Commit(); err != nil {
+		if j.reportPath != "" {
+			os.Remove(j.reportPath)
+		}
+		return nil, err
+	}
+	return rep, nil
+}
+
+func tileCount(meta raster.Meta, cfg step.Config) int {
+	p, err := step.NewPlan(meta.Width, meta.Height, cfg.Tile, max(cfg.Overlap, 0))
+	if err != nil {
+		return 0
+	}
+	return p.NTiles()
+}
+
+// outputMeta is the input's description restricted to the selected bands,
+// with the output type.
+func outputMeta(meta raster.Meta, bands []int, j *restoreJob) raster.Meta {
+	om := meta
+	om.Bands = nil
+	for _, b := range bands {
+		om.Bands = append(om.Bands, meta.Bands[b])
+	}
+	if j.outType == "float32" {
+		om.DataType = "Float32"
+	}
+	om.Metadata = map[string]string{}
+	for k, v := range meta.Metadata {
+		om.Metadata[k] = v
+	}
+	return om
+}
+
+// outputNoData: the input's nodata when it has one; otherwise NaN for float
+// outputs and the type's maximum for integer outputs, set only when invalid
+// pixels can occur (float input, or --saturated).
+func outputNoData(meta raster.Meta, bands []int, j *restoreJob) (float64, bool) {
+	for _, b := range bands {
+		if meta.Bands[b].HasNoData {
+			return meta.Bands[b].NoData, true
+		}
+	}
+	_, _, inInteger := raster.TypeRange(meta.DataType)
+	if inInteger && !j.cfg.HasSaturated {
+		return 0, false // integer samples are always finite: no invalid pixel can occur
+	}
+	outType := meta.DataType
+	if j.outType == "float32" {
+		outType = "Float32"
+	}
+	if _, hi, outInteger := raster.TypeRange(outType); outInteger {
+		return hi, true
+	}
+	return math.NaN(), true
+}
+
+func writeJSON(path string, v any) error {
+	b, err := json.MarshalIndent(v, "", "  ")
+	if err != nil {
+		return err
+	}
+	tmp := path + ".tmp"
+	if err := os.WriteFile(tmp, append(b, '\n'), 0o644); err != nil {
+		return usagef("--report %s: %v", path, errors.Unwrap(err))
+	}
+	return os.Rename(tmp, path)
+}
+
+// recordProcessing adds limpid's processing metadata to the output.
+func recordProcessing(dst *raster.GDALWriter, rep *step.Report) error {
+	params, _ := json.Marshal(map[string]any{
+		"smooth": rep.Smooth, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
+		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,
+	})
+	items := [][2]string{
+		{"LIMPID_PRODUCT", "restored (deconvolved) image; keep the original"},
+		{"LIMPID_VERSION", rep.Version},
+		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
+		{"LIMPID_PSF", rep.PSF},
+		{"LIMPID_PARAMETERS", string(params)},
+	}
+	for _, it := range items {
+		if err := dst.SetMetadata(it[0], it[1]); err != nil {
+			return err
+		}
+	}
+	for i, b := range rep.Bands {
+		for _, it := range [][2]string{
+			{"LIMPID_SOURCE_BAND", strconv.Itoa(b.SourceBand)},
+			{"LIMPID_BACKGROUND", strconv.FormatFloat(b.Background, 'g', -1, 64)},
+			{"LIMPID_ITERATIONS_MAX", strconv.Itoa(b.MaxIterations)},
+		} {
+			if err := dst.SetBandMetadata(i, it[0], it[1]); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
+}
+
+// progress reports tiles done: a redrawn line when stderr is a terminal,
+// a plain log line about every 10 % otherwise.
+func progress(stderr io.Writer, total int) func(done, total int) {
+	tty := false
+	if f, ok := stderr.(*os.File); ok {
+		tty = term.IsTerminal(int(f.Fd()))
+	}
+	last := -1
+	start := time.Now()
+	return func(done, n int) {
+		pct := 100 * done / max(n, 1)
+		el := time.Since(start).Round(time.Second)
+		if tty {
+			fmt.Fprintf(stderr, "\rrestoring %d/%d tiles (%d%%) %s", done, n, pct, el)
+			if done == n {
+				fmt.Fprintln(stderr)
+			}
+			return
+		}
+		if pct/10 != last/10 || done == n {
+			last = pct
+			fmt.Fprintf(stderr, "limpid: restored %d/%d tiles (%d%%) in %s\n", done, n, pct, el)
+		}
+	}
+}

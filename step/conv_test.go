@@ -1,0 +1,159 @@
+package step
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"limpid/psf"
+	"limpid/raster"
+)
+
+// naiveConv is the textbook definition: out(x,y) = sum h(dx,dy) in(m(x-dx), m(y-dy))
+// with half-sample symmetric reflection m, in float64.
+func naiveConv(k *psf.Kernel, src []float32, w, h int) []float64 {
+	out := make([]float64, w*h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var s float64
+			for dy := -k.Ry(); dy <= k.Ry(); dy++ {
+				for dx := -k.Rx(); dx <= k.Rx(); dx++ {
+					s += k.At(dx, dy) * float64(src[raster.Mirror(y-dy, h)*w+raster.Mirror(x-dx, w)])
+				}
+			}
+			out[y*w+x] = s
+		}
+	}
+	return out
+}
+
+func randPlane(r *rand.Rand, n int) []float32 {
+	p := make([]float32, n)
+	for i := range p {
+		p[i] = r.Float32()
+	}
+	return p
+}
+
+// testKernels covers the three implementations with symmetric and
+// asymmetric weights.
+func testKernels(t *testing.T) map[string]*psf.Kernel {
+	t.Helper()
+	out := map[string]*psf.Kernel{}
+	g, err := psf.GaussianIso(1.5)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["separable-gauss1.5"] = g
+	a, err := psf.GaussianAniso(1.2, 0.6, 30)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["fft-aniso"] = a
+	r := rand.New(rand.NewPCG(1, 2))
+	asym := make([]float64, 5*3)
+	for i := range asym {
+		asym[i] = r.Float64()
+	}
+	k, err := psf.NewKernel(5, 3, asym)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["direct-asym5x3"] = k
+	sep, err := psf.NewKernel(3, 5, []float64{1, 2, 3, 2, 4, 6, 1, 2, 3, 0.5, 1, 1.5, 0, 0, 0})
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["separable-asym3x5"] = sep
+	big := make([]float64, 11*9)
+	for i := range big {
+		big[i] = r.Float64()
+	}
+	kb, err := psf.NewKernel(11, 9, big)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["fft-asym11x9"] = kb
+	return out
+}
+
+// Source: definition of convolution with half-sample symmetric extension
+// (the boundary of GUIDE section 2), evaluated naively in float64.
+func TestConvMatchesDefinition(t *testing.T) {
+	// float32 accumulation over <= 99 taps of values in [0,1): relative 1e-5
+	// covers rounding (float32 epsilon 6e-8 times tap count, with margin).
+	const tol = 1e-5
+	r := rand.New(rand.NewPCG(3, 4))
+	for name, k := range testKernels(t) {
+		c := NewConv(k)
+		for _, sz := range [][2]int{{37, 23}, {8, 5}, {3, 2}} {
+			w, h := sz[0], sz[1]
+			src := randPlane(r, w*h)
+			dst := make([]float32, w*h)
+			var ws ConvWork
+			c.Apply(&ws, dst, src, w, h)
+			want := naiveConv(k, src, w, h)
+			for i := range dst {
+				if math.Abs(float64(dst[i])-want[i]) > tol {
+					t.Fatalf("%s (%s) %dx%d: pixel %d = %g, definition %g", name, c.Kind(), w, h, i, dst[i], want[i])
+				}
+			}
+		}
+	}
+}
+
+// Source: definition of the adjoint, <H x, y> = <x, H^T y> (exact adjoint
+// needed by the EM identity of Shepp & Vardi 1982).
+func TestConvAdjoint(t *testing.T) {
+	// Inner products of ~900 float32 products: relative 1e-5.
+	const tol = 1e-5
+	r := rand.New(rand.NewPCG(5, 6))
+	for name, k := range testKernels(t) {
+		c := NewConv(k)
+		for _, sz := range [][2]int{{37, 23}, {8, 5}, {4, 3}} {
+			w, h := sz[0], sz[1]
+			x, y := randPlane(r, w*h), randPlane(r, w*h)
+			hx, hty := make([]float32, w*h), make([]float32, w*h)
+			var ws ConvWork
+			c.Apply(&ws, hx, x, w, h)
+			c.Adjoint(&ws, hty, y, w, h)
+			var a, b float64
+			for i := range x {
+				a += float64(hx[i]) * float64(y[i])
+				b += float64(x[i]) * float64(hty[i])
+			}
+			if math.Abs(a-b) > tol*math.Abs(a) {
+				t.Fatalf("%s (%s) %dx%d: <Hx,y>=%g <x,H^T y>=%g", name, c.Kind(), w, h, a, b)
+			}
+		}
+	}
+}
+
+func TestConvKindChoice(t *testing.T) {
+	for name, k := range testKernels(t) {
+		c := NewConv(k)
+		want := name[:len(c.Kind())]
+		if c.Kind() != want {
+			t.Errorf("%s: chose %s", name, c.Kind())
+		}
+	}
+}
+
+// Source: GUIDE section 2 (small smoothing bandwidths): the smoothing kernel
+// must have variance eps^2 and sum 1 (derived: EMS keeps flux only with a
+// normalised S).
+func TestSmoothingKernelVariance(t *testing.T) {
+	const tol = 1e-9 // bisection to 2^-60 of the bracket
+	for _, eps := range []float64{0.2, 0.3, 0.5, 0.7, 1, 2.5} {
+		k := SmoothingKernel(eps)
+		r := (len(k) - 1) / 2
+		var s, v float64
+		for i, x := range k {
+			s += x
+			v += x * float64(i-r) * float64(i-r)
+		}
+		if math.Abs(s-1) > tol || math.Abs(v-eps*eps) > 1e-6 {
+			t.Errorf("eps %g: sum %g variance %g", eps, s, v)
+		}
+	}
+}

@@ -1,0 +1,221 @@
+package step
+
+import (
+	"math"
+	"math/rand/v2"
+)
+
+// This file makes the invented scenes of limpid's demo and tests: a fictional
+// farming valley ("Brannock Vale") and the degradation that turns it into an
+// observation. The reference follows limpid's PSF convention: it is the
+// scene as an ideal sensor on the same pixel grid records it (each pixel the
+// mean of a 4x4 supersampled patch, nothing else), and the observation is the
+// reference convolved with the point-sampled PSF, plus noise.
+
+// ValleyBands names the demo's bands (reflectance table columns).
+var ValleyBands = []string{"blue", "green", "red", "nir"}
+
+// class reflectances (blue, green, red, nir), scaled to 12-bit DN below.
+var valleyClass = [][4]float64{
+	{0.10, 0.12, 0.16, 0.24}, // 0 bare soil
+	{0.05, 0.10, 0.06, 0.42}, // 1 wheat
+	{0.04, 0.09, 0.05, 0.50}, // 2 maize
+	{0.06, 0.11, 0.08, 0.36}, // 3 grass
+	{0.05, 0.08, 0.06, 0.30}, // 4 orchard
+	{0.12, 0.12, 0.12, 0.14}, // 5 road
+	{0.06, 0.07, 0.05, 0.02}, // 6 river
+	{0.45, 0.42, 0.40, 0.38}, // 7 roof
+	{0.03, 0.03, 0.03, 0.04}, // 8 tarp dark
+	{0.62, 0.62, 0.61, 0.60}, // 9 tarp bright
+	{0.04, 0.07, 0.05, 0.22}, // 10 hedgerow
+}
+
+const valleyFullScale = 4095 * 0.85 / 0.62 // DN per unit reflectance: the bright tarp sits at 85 % of 12 bits
+
+func hash2(i, j int) uint64 {
+	x := uint64(int64(i))*0x9E3779B97F4A7C15 ^ uint64(int64(j))*0xC2B2AE3D27D4EB4F
+	x ^= x >> 31
+	x *= 0xBF58476D1CE4E5B9
+	x ^= x >> 29
+	return x
+}
+
+// valleyAt returns the reflectances at continuous pixel position (u, v).
+func valleyAt(u, v float64, w, h float64) [4]float64 {
+	// Calibration tarp: a 64-pixel square turned 4 degrees, dark and bright
+	// halves meeting along a straight edge.
+	tc, ts := math.Cos(4*math.Pi/180), math.Sin(4*math.Pi/180)
+	tx, ty := u-0.72*w, v-0.22*h
+	a, b := tc*tx+ts*ty, -ts*tx+tc*ty
+	if math.Abs(a) < 32 && math.Abs(b) < 32 {
+		if a < 0 {
+			return valleyClass[8]
+		}
+		return valleyClass[9]
+	}
+	// Bright point-like targets (corner reflectors, 0.7 px squares).
+	for k := 0; k < 6; k++ {
+		px := w * (0.15 + 0.13*float64(k))
+		py := h * (0.55 + 0.06*float64(k%3))
+		if math.Abs(u-px) < 0.35 && math.Abs(v-py) < 0.35 {
+			return [4]float64{0.95, 0.95, 0.95, 0.95}
+		}
+	}
+	// River: a sinuous band.
+	ry := 0.68*h + 0.06*h*math.Sin(u/(0.11*w)) + 0.02*h*math.Sin(u/(0.031*w)+1)
+	if math.Abs(v-ry) < 5+1.5*math.Sin(u/37) {
+		return valleyClass[6]
+	}
+	// Roads: one diagonal, one along the valley.
+	d1 := math.Abs((u-0.1*w)*0.5 - (v-0.05*h)*0.866)
+	d2 := math.Abs(v - (0.35*h + 0.05*u))
+	if d1 < 2.2 || d2 < 2.6 {
+		if d2 < 0.4 {
+			return [4]float64{0.3, 0.3, 0.3, 0.3} // centre line
+		}
+		return valleyClass[5]
+	}
+	// Farm buildings along the valley road.
+	for k := 0; k < 5; k++ {
+		bx := w * (0.2 + 0.17*float64(k))
+		by := 0.35*h + 0.05*bx - 14
+		if math.Abs(u-bx) < 5+float64(k%3) && math.Abs(v-by) < 3+float64(k%2)*2 {
+			return valleyClass[7]
+		}
+	}
+	// Field parcels in a grid turned 12 degrees, jittered per parcel.
+	fc, fs := math.Cos(12*math.Pi/180), math.Sin(12*math.Pi/180)
+	pu, pv := fc*u+fs*v, -fs*u+fc*v
+	const cell = 70.0
+	ci, cj := int(math.Floor(pu/cell)), int(math.Floor(pv/(cell*0.8)))
+	lu, lv := pu-float64(ci)*cell, pv-float64(cj)*cell*0.8
+	if lu < 1.5 || lv < 1.5 {
+		return valleyClass[10]
+	}
+	hsh := hash2(ci, cj)
+	crop := int(hsh % 5)
+	base := valleyClass[crop]
+	var tex float64
+	switch crop {
+	case 0:
+		tex = 0.04 * math.Sin(lu*0.21+lv*0.13)
+	case 1:
+		period := 3.0 + float64(hsh>>8%3)
+		tex = 0.10 * math.Sin(2*math.Pi*lu/period)
+	case 2:
+		tex = 0.14 * math.Sin(2*math.Pi*(lu+lv)/6.5)
+	case 3:
+		tex = 0.05 * math.Sin(lu*0.7) * math.Cos(lv*0.9)
+	case 4:
+		if math.Mod(lu, 7) < 3 && math.Mod(lv, 7) < 3 {
+			tex = 0.25
+		}
+	}
+	var out [4]float64
+	for i := range out {
+		out[i] = base[i] * (1 + tex)
+	}
+	return out
+}
+
+// ValleyReference renders the valley's w x h reference in 12-bit DN (one
+// plane per ValleyBands entry) and its validity (a slanted swath border on
+// the left and a clipped top-right corner are outside the footprint).
+func ValleyReference(w, h int) (bands [][]float32, valid []bool) {
+	const ss = 4
+	bands = make([][]float32, len(ValleyBands))
+	for i := range bands {
+		bands[i] = make([]float32, w*h)
+	}
+	valid = make([]bool, w*h)
+	fw, fh := float64(w), float64(h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var acc [4]float64
+			for sy := 0; sy < ss; sy++ {
+				for sx := 0; sx < ss; sx++ {
+					r := valleyAt(float64(x)+(float64(sx)+0.5)/ss, float64(y)+(float64(sy)+0.5)/ss, fw, fh)
+					for i := range acc {
+						acc[i] += r[i]
+					}
+				}
+			}
+			for i := range acc {
+				bands[i][y*w+x] = float32(acc[i] / (ss * ss) * valleyFullScale)
+			}
+			valid[y*w+x] = float64(x) > 10+0.04*float64(y) && float64(x)+float64(h-y) < fw+fh-0.12*fw
+		}
+	}
+	return bands, valid
+}
+
+// Noise is a Poisson-Gaussian sensor noise: DN = Gain * Poisson(signal/Gain)
+// + Normal(0, Read^2).
+type Noise struct {
+	Gain float64 // DN per photo-electron
+	Read float64 // read noise, DN
+}
+
+// Degrade blurs the reference with the PSF operator (half-sample symmetric
+// boundaries) and adds noise; invalid pixels are left at 0.
+func Degrade(ref []float32, valid []bool, w, h int, H *Conv, nz Noise, rng *rand.Rand) []float32 {
+	out := make([]float32, w*h)
+	var ws ConvWork
+	H.Apply(&ws, out, ref, w, h)
+	for i, v := range out {
+		if !valid[i] {
+			out[i] = 0
+			continue
+		}
+		s := float64(v)
+		if nz.Gain > 0 {
+			s = nz.Gain * float64(Poisson(rng, math.Max(s, 0)/nz.Gain))
+		}
+		if nz.Read > 0 {
+			s += nz.Read * rng.NormFloat64()
+		}
+		out[i] = float32(s)
+	}
+	return out
+}
+
+// Poisson draws a Poisson variate of mean lam: multiplication of uniforms
+// below 10 (Knuth, TAOCP vol. 2), the transformed rejection PTRS of Hörmann
+// (Insurance: Mathematics and Economics 12:39, 1993) above.
+func Poisson(r *rand.Rand, lam float64) int64 {
+	if lam <= 0 {
+		return 0
+	}
+	if lam < 10 {
+		l := math.Exp(-lam)
+		k := int64(0)
+		p := r.Float64()
+		for p > l {
+			k++
+			p *= r.Float64()
+		}
+		return k
+	}
+	slam := math.Sqrt(lam)
+	loglam := math.Log(lam)
+	b := 0.931 + 2.53*slam
+	a := -0.059 + 0.02483*b
+	invalpha := 1.1239 + 1.1328/(b-3.4)
+	vr := 0.9277 - 3.6224/(b-2)
+	for {
+		u := r.Float64() - 0.5
+		v := r.Float64()
+		us := 0.5 - math.Abs(u)
+		k := math.Floor((2*a/us+b)*u + lam + 0.43)
+		if us >= 0.07 && v <= vr {
+			return int64(k)
+		}
+		if k < 0 || (us < 0.013 && v > us) {
+			continue
+		}
+		lg, _ := math.Lgamma(k + 1)
+		if math.Log(v)+math.Log(invalpha)-math.Log(a/(us*us)+b) <= -lam+k*loglam-lg {
+			return int64(k)
+		}
+	}
+}
