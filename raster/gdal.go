@@ -218,6 +218,7 @@ func Create(path string, meta Meta, opts WriteOptions) (*GDALWriter, error) {
 	}
 	w.tmp = f.Name()
 	f.Close()
+	os.Chmod(w.tmp, 0o644) // CreateTemp makes 0600; products are ordinary files
 	pred := "PREDICTOR=2"
 	if !w.integer {
 		pred = "PREDICTOR=3"
