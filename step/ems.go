@@ -73,6 +73,9 @@ type GridEMS struct {
 	// Tolerance stops early when the relative L1 change falls below it
 	// (0 = never).
 	Tolerance float64
+	// Observe, when set, is called after every iteration with the iterate
+	// (valid until the next call) and its relative change.
+	Observe func(k int, f []float32, change float64)
 }
 
 // Name implements Solver.
@@ -125,6 +128,9 @@ func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		f, ws.fn = ws.fn, f
 		res.Iterations = k + 1
 		res.Change = change
+		if g.Observe != nil {
+			g.Observe(k+1, f, change)
+		}
 		if g.Tolerance > 0 && change < g.Tolerance {
 			break
 		}

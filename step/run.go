@@ -20,8 +20,8 @@ const Version = "0.1.0"
 // Defaults measured on the project's own scenes (DEVELOPERS.md, "Choosing
 // the defaults").
 const (
-	DefaultSmooth     = 0.5
-	DefaultIterations = 30
+	DefaultSmooth     = 0.2
+	DefaultIterations = 50
 	DefaultTolerance  = 1e-4
 	DefaultTile       = 512
 	// BackgroundPercentile is the percentile of valid pixels --background
