@@ -299,16 +299,37 @@ type runner struct {
 	rep    *Report
 	solver Solver
 
-	strip  [][]float32 // per band, rows [stripY0, stripY0+stripH) of the source
-	stripY int
-	acc    [][]float32 // per band, output rows [accY, accY+accRows)
-	accY   int
-	slots  []*slot // per (band, col)
+	// Two strips of source rows per band: workers read one while the next
+	// tile row is read into the other.
+	strips  [2][][]float32
+	stripYs [2]int
+	acc     [][]float32 // per band, output rows [accY, accY+accRows)
+	accY    int
+	slots   []*slot // per (band, col)
+
+	// Finished rows go to a writer goroutine so that compression overlaps
+	// the next strip's computation.
+	writes chan writeJob
+	free   chan [][]float32
+	werrMu sync.Mutex
+	werr   error
+}
+
+func (r *runner) writeErr() error {
+	r.werrMu.Lock()
+	defer r.werrMu.Unlock()
+	return r.werr
+}
+
+type writeJob struct {
+	y0, y1 int
+	bufs   [][]float32
 }
 
 // slot holds one tile's blended output window.
 type slot struct {
 	key    TileKey
+	strip  int
 	out    []float32
 	ox, oy Span
 	res    Result
@@ -331,9 +352,11 @@ func (r *runner) run(ctx context.Context) error {
 		s := sourceRange(p.InSpan(p.Rows, i), p.H)
 		maxRows = max(maxRows, s.Len())
 	}
-	r.strip = make([][]float32, nb)
-	for i := range r.strip {
-		r.strip[i] = make([]float32, W*maxRows)
+	for k := range r.strips {
+		r.strips[k] = make([][]float32, nb)
+		for i := range r.strips[k] {
+			r.strips[k][i] = make([]float32, W*maxRows)
+		}
 	}
 	maxOut := 0
 	for i := range p.Rows {
@@ -343,6 +366,28 @@ func (r *runner) run(ctx context.Context) error {
 	for i := range r.acc {
 		r.acc[i] = make([]float32, W*maxOut)
 	}
+	r.writes = make(chan writeJob)
+	r.free = make(chan [][]float32, 2)
+	for k := 0; k < 2; k++ {
+		bufs := make([][]float32, nb)
+		for i := range bufs {
+			bufs[i] = make([]float32, W*maxOut)
+		}
+		r.free <- bufs
+	}
+	writerDone := make(chan struct{})
+	go func() {
+		defer close(writerDone)
+		for j := range r.writes {
+			if r.writeErr() == nil {
+				err := r.dst.WriteRows(j.y0, j.y1, j.bufs)
+				r.werrMu.Lock()
+				r.werr = err
+				r.werrMu.Unlock()
+			}
+			r.free <- j.bufs
+		}
+	}()
 	r.slots = make([]*slot, nb*len(p.Cols))
 	for i := range r.slots {
 		r.slots[i] = &slot{}
@@ -373,37 +418,59 @@ func (r *runner) run(ctx context.Context) error {
 	}()
 	total := nb * p.NTiles()
 	done := 0
-	for row := range p.Rows {
-		if err := ctx.Err(); err != nil {
-			return err
-		}
+	readStrip := func(row, k int) error {
 		in := sourceRange(p.InSpan(p.Rows, row), p.H)
-		if err := r.src.ReadRows(in.Start, in.End, r.bands, r.strip); err != nil {
-			return err
-		}
-		r.stripY = in.Start
-		for b := 0; b < nb; b++ {
-			for col := range p.Cols {
-				s := r.slots[b*len(p.Cols)+col]
-				s.key = TileKey{Band: b, Col: col, Row: row}
-				s.err = nil
-				rowWG.Add(1)
-				jobs <- s
+		r.stripYs[k] = in.Start
+		return r.src.ReadRows(in.Start, in.End, r.bands, r.strips[k])
+	}
+	if err := readStrip(0, 0); err != nil {
+		close(r.writes)
+		<-writerDone
+		return err
+	}
+	err := func() error {
+		for row := range p.Rows {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+			cur := row % 2
+			for b := 0; b < nb; b++ {
+				for col := range p.Cols {
+					s := r.slots[b*len(p.Cols)+col]
+					s.key = TileKey{Band: b, Col: col, Row: row}
+					s.strip = cur
+					s.err = nil
+					rowWG.Add(1)
+					jobs <- s
+				}
+			}
+			var rerr error
+			if row+1 < len(p.Rows) {
+				rerr = readStrip(row+1, 1-cur)
+			}
+			rowWG.Wait()
+			if err := firstError(r.slots); err != nil {
+				return err
+			}
+			if rerr != nil {
+				return rerr
+			}
+			if err := r.blendAndWrite(row, cur); err != nil {
+				return err
+			}
+			done += nb * len(p.Cols)
+			if r.cfg.Progress != nil {
+				r.cfg.Progress(done, total)
 			}
 		}
-		rowWG.Wait()
-		if err := firstError(r.slots); err != nil {
-			return err
-		}
-		if err := r.blendAndWrite(row); err != nil {
-			return err
-		}
-		done += nb * len(p.Cols)
-		if r.cfg.Progress != nil {
-			r.cfg.Progress(done, total)
-		}
+		return nil
+	}()
+	close(r.writes)
+	<-writerDone
+	if err != nil {
+		return err
 	}
-	return nil
+	return r.writeErr()
 }
 
 // firstError returns the first tile failure in slot order, preferring a real
@@ -436,10 +503,11 @@ func (r *runner) solveTile(ctx context.Context, wk *worker, s *slot) error {
 	wk.d = grow(wk.d, n)
 	wk.mask = grow(wk.mask, n)
 	wk.f = grow(wk.f, n)
-	strip := r.strip[k.Band]
+	strip := r.strips[s.strip][k.Band]
+	stripY := r.stripYs[s.strip]
 	valid := r.valid[k.Band]
 	for y := 0; y < th; y++ {
-		sy := raster.Mirror(iy.Start+y, p.H) - r.stripY
+		sy := raster.Mirror(iy.Start+y, p.H) - stripY
 		srow := strip[sy*p.W : (sy+1)*p.W]
 		drow := wk.d[y*tw : (y+1)*tw]
 		mrow := wk.mask[y*tw : (y+1)*tw]
@@ -481,7 +549,7 @@ func (r *runner) solveTile(ctx context.Context, wk *worker, s *slot) error {
 
 // blendAndWrite adds the strip's tiles into the accumulator in a fixed order
 // and writes the rows no later strip touches.
-func (r *runner) blendAndWrite(row int) error {
+func (r *runner) blendAndWrite(row, cur int) error {
 	p := r.plan
 	W := p.W
 	nb := len(r.bands)
@@ -504,32 +572,35 @@ func (r *runner) blendAndWrite(row int) error {
 		end -= p.Blend
 	}
 	n := end - r.accY
+	bufs := <-r.free
+	if err := r.writeErr(); err != nil {
+		r.free <- bufs
+		return err
+	}
 	// Invalid input pixels come out as NaN; flux bookkeeping over valid ones.
 	for b := 0; b < nb; b++ {
 		acc := r.acc[b][:n*W]
+		out := bufs[b][:n*W]
 		br := &r.rep.Bands[b]
 		for y := 0; y < n; y++ {
-			sy := r.accY + y - r.stripY
-			srow := r.strip[b][sy*W : (sy+1)*W]
+			sy := r.accY + y - r.stripYs[cur]
+			srow := r.strips[cur][b][sy*W : (sy+1)*W]
 			arow := acc[y*W : (y+1)*W]
+			orow := out[y*W : (y+1)*W]
 			for x, v := range srow {
 				if r.valid[b](v) {
 					br.FluxBefore += float64(v)
 					br.FluxAfter += float64(arow[x])
 					br.ValidPixels++
+					orow[x] = arow[x]
 				} else {
-					arow[x] = float32(math.NaN())
+					orow[x] = float32(math.NaN())
 				}
 			}
 		}
+		bufs[b] = bufs[b][:cap(bufs[b])]
 	}
-	out := make([][]float32, nb)
-	for b := range out {
-		out[b] = r.acc[b][:n*W]
-	}
-	if err := r.dst.WriteRows(r.accY, end, out); err != nil {
-		return err
-	}
+	r.writes <- writeJob{y0: r.accY, y1: end, bufs: bufs}
 	// Carry the rows still being blended to the top of the accumulator.
 	for b := 0; b < nb; b++ {
 		acc := r.acc[b]

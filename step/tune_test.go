@@ -191,11 +191,11 @@ func TestTuneDefaults(t *testing.T) {
 		return c[bi], bi + 1
 	}
 	type cand struct {
-		eps              float64
-		it               int
-		mean, worstVs20  float64
-		meanVsBest       float64
-		worstVsBest      float64
+		eps             float64
+		it              int
+		mean, worstVs20 float64
+		meanVsBest      float64
+		worstVsBest     float64
 	}
 	var cands []cand
 	for ei, eps := range epss {

@@ -1,0 +1,73 @@
+package main
+
+import (
+	"math"
+	"math/rand/v2"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"syscall"
+	"testing"
+	"time"
+
+	"limpid/raster"
+)
+
+// BenchmarkScene8192 restores an 8192x8192 UInt16 band with 1 and 2
+// workers, running the limpid binary as a child process so that its peak
+// RSS (getrusage ru_maxrss) is the program's own. Targets (issue): peak RSS
+// <= 400 MiB, 2 workers >= 1.8x faster than 1. Needs LIMPID_BENCH_SCENE=1
+// (it writes a 128 MiB input and takes a few minutes); run with
+// `make bench`.
+func BenchmarkScene8192(b *testing.B) {
+	if os.Getenv("LIMPID_BENCH_SCENE") == "" {
+		b.Skip("set LIMPID_BENCH_SCENE=1")
+	}
+	const n = 8192
+	dir := b.TempDir()
+	bin := filepath.Join(dir, "limpid")
+	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
+		b.Fatalf("build: %v %s", err, out)
+	}
+	in := filepath.Join(dir, "scene.tif")
+	meta := raster.Meta{Width: n, Height: n, DataType: "UInt16", Bands: []raster.BandInfo{{Description: "pan"}}}
+	w, err := raster.Create(in, meta, raster.WriteOptions{Format: raster.GTiff, DataType: "UInt16"})
+	if err != nil {
+		b.Fatal(err)
+	}
+	rng := rand.New(rand.NewPCG(5, 5))
+	rows := make([]float32, n*256)
+	for y0 := 0; y0 < n; y0 += 256 {
+		for i := range rows {
+			x, y := i%n, y0+i/n
+			rows[i] = float32(1500 + 800*math.Sin(float64(x)/7)*math.Cos(float64(y)/11) + 30*rng.NormFloat64())
+		}
+		if err := w.WriteRows(y0, y0+256, [][]float32{rows}); err != nil {
+			b.Fatal(err)
+		}
+	}
+	if err := w.Commit(); err != nil {
+		b.Fatal(err)
+	}
+	var secs [3]float64
+	for _, workers := range []string{"1", "2"} {
+		out := filepath.Join(dir, "out"+workers+".tif")
+		cmd := exec.Command(bin, "restore", "--psf", "gaussian:sigma=0.7", "--iterations", "20", "--tolerance", "0",
+			"--workers", workers, in, out)
+		start := time.Now()
+		if msg, err := cmd.CombinedOutput(); err != nil {
+			b.Fatalf("restore: %v %s", err, msg)
+		}
+		el := time.Since(start).Seconds()
+		rss := cmd.ProcessState.SysUsage().(*syscall.Rusage).Maxrss / 1024
+		b.Logf("workers %s: %.1f s, peak RSS %d MiB", workers, el, rss)
+		b.ReportMetric(float64(rss), "MiB-peak-rss-w"+workers)
+		if workers == "1" {
+			secs[1] = el
+		} else {
+			secs[2] = el
+		}
+		os.Remove(out)
+	}
+	b.ReportMetric(secs[1]/secs[2], "speedup-2w")
+}

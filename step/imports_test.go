@@ -1,0 +1,42 @@
+package step
+
+import (
+	"go/parser"
+	"go/token"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// TestImportRules enforces DEVELOPERS.md's one-way data flow
+// cmd -> step -> {psf, raster, arrowio}: psf is pure Go (no GDAL, Arrow or
+// other limpid package), raster and arrowio never import step or cmd, step
+// never imports GDAL or Arrow directly.
+func TestImportRules(t *testing.T) {
+	forbidden := map[string][]string{
+		"psf":     {"limpid/", "github.com/airbusgeo/godal", "github.com/apache/arrow", "C"},
+		"raster":  {"limpid/step", "limpid/cmd", "limpid/arrowio"},
+		"arrowio": {"limpid/step", "limpid/cmd", "github.com/airbusgeo/godal"},
+		"step":    {"limpid/cmd", "github.com/airbusgeo/godal", "github.com/apache/arrow", "C"},
+	}
+	for pkg, bad := range forbidden {
+		files, _ := filepath.Glob(filepath.Join("..", pkg, "*.go"))
+		for _, f := range files {
+			if strings.HasSuffix(f, "_test.go") {
+				continue
+			}
+			af, err := parser.ParseFile(token.NewFileSet(), f, nil, parser.ImportsOnly)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for _, imp := range af.Imports {
+				path := strings.Trim(imp.Path.Value, `"`)
+				for _, b := range bad {
+					if path == b || (strings.HasSuffix(b, "/") && strings.HasPrefix(path, b)) || (b != "C" && strings.HasPrefix(path, b)) {
+						t.Errorf("%s imports %s (not allowed in %s)", f, path, pkg)
+					}
+				}
+			}
+		}
+	}
+}
