@@ -1,0 +1,17 @@
+package raster
+
+import "testing"
+
+// Half-sample symmetric reflection (the boundary of GUIDE section 2):
+// ... 1 0 | 0 1 2 3 | 3 2 ...
+func TestMirror(t *testing.T) {
+	want := map[int]int{-3: 2, -2: 1, -1: 0, 0: 0, 3: 3, 4: 3, 5: 2, 8: 0, 9: 1, -5: 3}
+	for i, w := range want {
+		if got := Mirror(i, 4); got != w {
+			t.Errorf("Mirror(%d, 4) = %d, want %d", i, got, w)
+		}
+	}
+	if Mirror(-7, 1) != 0 || Mirror(5, 1) != 0 {
+		t.Error("length 1")
+	}
+}
