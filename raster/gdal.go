@@ -193,6 +193,7 @@ type GDALWriter struct {
 	opts    WriteOptions
 	meta    Meta
 	buf     []float32
+	buf64   []float64
 	lo, hi  float64
 	integer bool
 	closed  bool
@@ -330,7 +331,10 @@ func (w *GDALWriter) WriteRows(y0, y1 int, src [][]float32) error {
 		}
 		if w.integer && w.hi > 1<<24 {
 			// float32 cannot hold every 32-bit integer: go through float64.
-			b64 := make([]float64, n)
+			if cap(w.buf64) < n {
+				w.buf64 = make([]float64, n)
+			}
+			b64 := w.buf64[:n]
 			for j, v := range buf {
 				b64[j] = float64(v)
 			}

@@ -39,8 +39,9 @@ type Config struct {
 	Smooth     float64
 	Iterations int
 	Tolerance  float64
-	// Background per output band; BackgroundAuto replaces it by a low
-	// percentile of each band's valid pixels.
+	// Background is the additive background b for every band;
+	// BackgroundAuto replaces it per band by a low percentile of the band's
+	// valid pixels.
 	Background     float64
 	BackgroundAuto bool
 	Tile           int
