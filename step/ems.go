@@ -16,6 +16,10 @@ type Problem struct {
 	// Key identifies the tile (random streams derive from it, never from
 	// the scheduler).
 	Key TileKey
+	// SE, when non-nil (length W*H), receives the per-pixel Monte Carlo
+	// standard error of the result from solvers that estimate one; they set
+	// Result.HasSE. Deterministic solvers leave it untouched.
+	SE []float32
 }
 
 // TileKey names a tile: 0-based band index in the output, tile column, row.
@@ -29,6 +33,8 @@ type Result struct {
 	// Flat is true when the tile had no flux above background (or no valid
 	// pixel): the object stays zero.
 	Flat bool
+	// HasSE is true when the solver wrote Problem.SE.
+	HasSE bool
 }
 
 // Solver restores one tile into dst (the object f, background excluded).
