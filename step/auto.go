@@ -1,0 +1,368 @@
+package step
+
+import (
+	"context"
+	"math"
+	"math/rand/v2"
+
+	"limpid/psf"
+)
+
+// Automatic regularisation: the smoothing bandwidth eps and the stopping
+// iteration k of EMS chosen per scene by minimising an unbiased risk
+// estimate (GUIDE section 4; measured in DEVELOPERS.md).
+//
+// The divergence of the EMS map d -> f_k is carried along the iteration by
+// forward-mode differentiation with one random +-1 probe delta (Monte Carlo
+// trace estimate: Ramani, Blu & Unser, IEEE TIP 17(9):1540-1554, 2008; the
+// iterative form follows Vonesch, Ramani & Unser, ICIP 2008). With
+// p = H f + b, q = w d / p, t = H^T q and f+ = S(f t / s):
+//
+//	dq = w (delta - q H u) / p,   u+ = S((u t + f H^T dq) / s),
+//
+// u_0 = mean(delta) because the flat start mean(d - b) depends on d.
+//
+// The risk is measured in the orthonormal 2-D DCT-II, where a symmetric PSF
+// with half-sample symmetric boundaries is diagonal with eigenvalues h(k).
+// With G = h / (h^2 + lambda) and Q^2 = h^2 / (h^2 + lambda),
+//
+//	R_k = sum Q^2 F_k^2 - 2 sum G F_k D + 2 c sum G U_k (v delta)^
+//
+// estimates ||Q (f_k - x)||^2 - ||Q x||^2 without bias under Gaussian noise
+// of variance v (Stein's lemma; the weighting idea is projected/generalised
+// SURE, Eldar, IEEE TSP 57(2):471-481, 2009; the Poisson-Gaussian variance
+// model follows Luisier, Blu & Unser, IEEE TIP 20(3):696-708, 2011). F, D,
+// U are the DCTs of f_k, d - b and u_k; c = NoiseInflation. Tiles with many
+// invalid pixels or asymmetric PSFs fall back to the prediction-domain
+// estimate over valid pixels:
+//
+//	R_k = sum w (H f_k + b - d)^2 - sum w v + 2 c sum w v delta (H u_k).
+
+// Risk settings (GUIDE section 4.3-4.4; prototype values, no other source).
+const (
+	riskLambda = 0.01
+	// RiskPatience: a run stops this many iterations after its risk
+	// minimum.
+	RiskPatience = 20
+	// AutoCap is the default iteration cap with --stop auto.
+	AutoCap = 200
+	// riskMaskedFraction: above this share of invalid pixels the DCT
+	// diagonalisation no longer holds and the prediction-domain estimate is
+	// used.
+	riskMaskedFraction = 0.10
+	// DiscrepancyTau is Morozov's tau (recalled from memory: 1.01-1.1 is
+	// the usual range, GUIDE section 2).
+	DiscrepancyTau = 1.05
+)
+
+// AutoSmooths are the candidate bandwidths of --smooth auto (GUIDE 4.4;
+// 0.3 and 0.5 use the variance-matched 3-tap kernel, 0.7 a variance-matched
+// Gaussian, see SmoothingKernel).
+var AutoSmooths = []float64{0, 0.3, 0.5, 0.7}
+
+// riskEvaluated says at which iterations the risk is computed: every one up
+// to 20, then every 2nd up to 50, then every 5th (the risk curve is flat
+// near its minimum at large k, and each evaluation costs a 2-D DCT).
+func riskEvaluated(k, cap int) bool {
+	return k <= 20 || (k <= 50 && k%2 == 0) || k%5 == 0 || k == cap
+}
+
+// psfEigen returns the DCT-II eigenvalues h(kx) h(ky) (generally
+// sum h(dx,dy) cos(pi kx dx / w) cos(pi ky dy / h)) of the kernel on a
+// w x h tile, and false when the kernel is not symmetric in x and in y
+// separately (then the DCT does not diagonalise it).
+func psfEigen(k *psf.Kernel, w, h int) ([]float64, bool) {
+	rx, ry := k.Rx(), k.Ry()
+	peak := 0.0
+	for _, v := range k.Data {
+		peak = math.Max(peak, math.Abs(v))
+	}
+	for dy := -ry; dy <= ry; dy++ {
+		for dx := -rx; dx <= rx; dx++ {
+			v := k.At(dx, dy)
+			if math.Abs(v-k.At(-dx, dy)) > 1e-9*peak || math.Abs(v-k.At(dx, -dy)) > 1e-9*peak {
+				return nil, false
+			}
+		}
+	}
+	// a[dy][kx] = sum_dx h(dx, dy) cos(pi kx dx / w), dy >= 0 only.
+	a := make([]float64, (ry+1)*w)
+	for dy := 0; dy <= ry; dy++ {
+		for kx := 0; kx < w; kx++ {
+			var s float64
+			for dx := -rx; dx <= rx; dx++ {
+				s += k.At(dx, dy) * math.Cos(math.Pi*float64(kx*dx)/float64(w))
+			}
+			a[dy*w+kx] = s
+		}
+	}
+	lam := make([]float64, w*h)
+	for ky := 0; ky < h; ky++ {
+		for kx := 0; kx < w; kx++ {
+			s := a[kx]
+			for dy := 1; dy <= ry; dy++ {
+				s += 2 * a[dy*w+kx] * math.Cos(math.Pi*float64(ky*dy)/float64(h))
+			}
+			lam[ky*w+kx] = s
+		}
+	}
+	return lam, true
+}
+
+// riskWeights holds the DCT-domain weights for one tile size.
+type riskWeights struct {
+	q2, g []float64
+}
+
+func newRiskWeights(k *psf.Kernel, w, h int) (*riskWeights, bool) {
+	lam, ok := psfEigen(k, w, h)
+	if !ok {
+		return nil, false
+	}
+	rw := &riskWeights{q2: make([]float64, w*h), g: make([]float64, w*h)}
+	for i, l := range lam {
+		den := l*l + riskLambda
+		rw.q2[i] = l * l / den
+		rw.g[i] = l / den
+	}
+	return rw, true
+}
+
+// autoWork is one worker's scratch for the risk-carrying EMS.
+type autoWork struct {
+	f, fn, u, un, hu, dq, dt, ue, delta, v, best []float32
+	gd, gv, F                                    []float64
+	dct                                          *dct2
+}
+
+func (a *autoWork) reset(w, h int) {
+	n := w * h
+	for _, b := range []*[]float32{&a.f, &a.fn, &a.u, &a.un, &a.hu, &a.dq, &a.dt, &a.ue, &a.delta, &a.v, &a.best} {
+		*b = grow(*b, n)
+	}
+	for _, b := range []*[]float64{&a.gd, &a.gv, &a.F} {
+		if cap(*b) < n {
+			*b = make([]float64, n)
+		}
+		*b = (*b)[:n]
+	}
+	if a.dct == nil || a.dct.w != w || a.dct.h != h {
+		a.dct = newDCT2(w, h)
+	}
+}
+
+// riskRun is one candidate (eps) on one tile.
+type riskRun struct {
+	Smooth float64
+	// Risk[k-1] is R_k (NaN where not evaluated).
+	Risk  []float64
+	BestK int
+	BestR float64
+	// Mode is "dct" or "prediction".
+	Mode string
+}
+
+// riskProblem is what a tile's candidates share: the probe, the noise
+// variance and the data projections.
+type riskProblem struct {
+	p      *Problem
+	nValid int
+	flux   float64
+	dctOK  bool
+	vsum   float64
+	weight *riskWeights
+	// infl is the noise inflation c (NoiseInflation; 1 in the
+	// unbiasedness test).
+	infl float64
+}
+
+// setupRisk prepares the probe (PCG from the tile key and seed), the
+// variance map and, in DCT mode, gd = C^T G C (d - b) and
+// gv = c C^T G C (v delta).
+func setupRisk(aw *autoWork, p *Problem, nm *NoiseModel, rw *riskWeights, seed uint64, infl float64) *riskProblem {
+	w, h := p.W, p.H
+	n := w * h
+	aw.reset(w, h)
+	rp := &riskProblem{p: p, infl: infl}
+	rp.nValid, rp.flux = Prepare(p)
+	rng := rand.New(rand.NewPCG(seed^0x9e3779b97f4a7c15, tileStream(p.Key)))
+	var mean float64
+	for i := 0; i < n; i++ {
+		if p.Mask[i] == 0 {
+			aw.delta[i], aw.v[i] = 0, 0
+			continue
+		}
+		if rng.Uint64()&1 == 0 {
+			aw.delta[i] = 1
+		} else {
+			aw.delta[i] = -1
+		}
+		aw.v[i] = nm.Variance(p.D[i])
+		rp.vsum += float64(aw.v[i])
+		mean += float64(p.D[i] - p.Background)
+	}
+	if rp.nValid == 0 {
+		return rp
+	}
+	mean /= float64(rp.nValid)
+	invalid := float64(n-rp.nValid) / float64(n)
+	rp.dctOK = rw != nil && invalid <= riskMaskedFraction
+	if !rp.dctOK {
+		return rp
+	}
+	rp.weight = rw
+	// gd: invalid pixels are filled with the valid mean (an approximation
+	// that the masked-fraction limit keeps small).
+	tmp := aw.ue
+	for i := 0; i < n; i++ {
+		if p.Mask[i] == 0 {
+			tmp[i] = float32(mean)
+		} else {
+			tmp[i] = p.D[i] - p.Background
+		}
+	}
+	aw.dct.Forward(aw.F, tmp)
+	for i := range aw.F {
+		aw.F[i] *= rw.g[i]
+	}
+	aw.dct.Inverse(aw.gd, aw.F)
+	for i := 0; i < n; i++ {
+		tmp[i] = float32(infl) * aw.v[i] * aw.delta[i]
+	}
+	aw.dct.Forward(aw.F, tmp)
+	for i := range aw.F {
+		aw.F[i] *= rw.g[i]
+	}
+	aw.dct.Inverse(aw.gv, aw.F)
+	return rp
+}
+
+// tileStream mixes a tile key into one 64-bit stream selector.
+func tileStream(k TileKey) uint64 {
+	x := uint64(k.Band)*0x100000001b3 ^ uint64(k.Col)<<21 ^ uint64(k.Row)<<42
+	x ^= x >> 33
+	x *= 0xff51afd7ed558ccd
+	x ^= x >> 33
+	return x
+}
+
+// runRisk runs EMS with eps = g.S's bandwidth and its derivative for up to
+// capK iterations, stopping RiskPatience iterations after the risk minimum
+// when patience is true. With keep, aw.best holds the best iterate.
+func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, g *GridEMS, capK int, patience, keep bool) (riskRun, error) {
+	p := rp.p
+	w, h := p.W, p.H
+	n := w * h
+	run := riskRun{Risk: make([]float64, 0, capK), BestR: math.Inf(1), Mode: "prediction"}
+	if rp.dctOK {
+		run.Mode = "dct"
+	}
+	ws.reset(n)
+	c := float32(rp.flux / float64(rp.nValid))
+	var dsum float64
+	for i := 0; i < n; i++ {
+		dsum += float64(aw.delta[i])
+	}
+	u0 := float32(dsum / float64(rp.nValid))
+	f, fn, u, un := aw.f[:n], aw.fn[:n], aw.u[:n], aw.un[:n]
+	for i := range f {
+		f[i], u[i] = c, u0
+	}
+	g.H.Adjoint(&ws.conv, ws.s, p.Mask, w, h)
+	for k := 1; k <= capK; k++ {
+		if err := ctx.Err(); err != nil {
+			return run, err
+		}
+		g.iterateJVP(ws, aw, p, f, fn, u, un)
+		f, fn = fn, f
+		u, un = un, u
+		r := math.NaN()
+		if riskEvaluated(k, capK) {
+			r = rp.risk(ws, aw, g, f, u)
+		}
+		run.Risk = append(run.Risk, r)
+		if r < run.BestR {
+			run.BestR, run.BestK = r, k
+			if keep {
+				copy(aw.best[:n], f)
+			}
+		}
+		if patience && k-run.BestK >= RiskPatience {
+			break
+		}
+	}
+	return run, nil
+}
+
+// risk evaluates R for the iterate f with derivative u.
+func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []float32) float64 {
+	p := rp.p
+	n := p.W * p.H
+	if rp.dctOK {
+		aw.dct.Forward(aw.F, f)
+		var t1, t2, t3 float64
+		q2 := rp.weight.q2
+		for i, x := range aw.F[:n] {
+			t1 += q2[i] * x * x
+		}
+		for i := 0; i < n; i++ {
+			t2 += float64(f[i]) * aw.gd[i]
+			t3 += float64(u[i]) * aw.gv[i]
+		}
+		return t1 - 2*t2 + 2*t3
+	}
+	g.H.Apply(&ws.conv, ws.p, f, p.W, p.H)
+	g.H.Apply(&ws.conv, aw.hu, u, p.W, p.H)
+	var rss, div float64
+	for i := 0; i < n; i++ {
+		if p.Mask[i] == 0 {
+			continue
+		}
+		e := float64(ws.p[i] + p.Background - p.D[i])
+		rss += e * e
+		div += float64(aw.v[i]) * float64(aw.delta[i]) * float64(aw.hu[i])
+	}
+	return rss - rp.vsum + 2*rp.infl*div
+}
+
+// iterateJVP advances (f, u) to (fn, un). The f update performs the same
+// float32 operations as iterate, so a plain GridEMS run of k iterations
+// reproduces the k-th iterate here bit for bit.
+func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, un []float32) {
+	w, h := p.W, p.H
+	n := w * h
+	b := p.Background
+	g.H.Apply(&ws.conv, ws.p, f, w, h)
+	g.H.Apply(&ws.conv, aw.hu, u, w, h)
+	pp, q, d, m, hu, dq, delta := ws.p[:n], ws.q[:n], p.D[:n], p.Mask[:n], aw.hu[:n], aw.dq[:n], aw.delta[:n]
+	for i := range pp {
+		den := pp[i] + b
+		if den > 0 && m[i] != 0 {
+			q[i] = d[i] / den
+			dq[i] = (delta[i] - q[i]*hu[i]) / den
+		} else {
+			q[i], dq[i] = 0, 0
+		}
+	}
+	g.H.Adjoint(&ws.conv, ws.t, q, w, h)
+	g.H.Adjoint(&ws.conv, aw.dt, dq, w, h)
+	e, ue := fn, un
+	if g.S != nil {
+		e, ue = ws.p, aw.ue
+	}
+	t, s, dt := ws.t[:n], ws.s[:n], aw.dt[:n]
+	e, ue = e[:n], ue[:n]
+	for i := range e {
+		if s[i] > sensitivityFloor {
+			e[i] = f[i] * t[i] / s[i]
+			ue[i] = (u[i]*t[i] + f[i]*dt[i]) / s[i]
+		} else {
+			e[i] = f[i]
+			ue[i] = u[i]
+		}
+	}
+	if g.S != nil {
+		g.S.Apply(&ws.conv, fn, e, w, h)
+		g.S.Apply(&ws.conv, un, ue, w, h)
+	}
+}

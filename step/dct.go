@@ -1,0 +1,103 @@
+package step
+
+import (
+	"math"
+
+	"gonum.org/v1/gonum/dsp/fourier"
+)
+
+// dct2 is the orthonormal 2-D DCT-II (Ahmed, Natarajan & Rao, IEEE Trans.
+// Computers C-23:90, 1974) of a w x h plane, computed by rows then columns
+// with FFTPACK's quarter-wave transforms (gonum dsp/fourier). With
+// half-sample symmetric boundaries a symmetric convolution is diagonal in
+// this basis, which the risk estimate relies on.
+type dct2 struct {
+	w, h     int
+	tx, ty   *fourier.QuarterWaveFFT
+	ax, ay   []float64 // orthonormal scales a_k per axis
+	row, col []float64
+}
+
+func newDCT2(w, h int) *dct2 {
+	d := &dct2{w: w, h: h, row: make([]float64, w), col: make([]float64, h)}
+	if w > 1 {
+		d.tx = fourier.NewQuarterWaveFFT(w)
+	}
+	if h > 1 {
+		d.ty = fourier.NewQuarterWaveFFT(h)
+	}
+	d.ax, d.ay = dctScales(w), dctScales(h)
+	return d
+}
+
+func dctScales(n int) []float64 {
+	a := make([]float64, n)
+	for k := range a {
+		a[k] = math.Sqrt(2 / float64(n))
+	}
+	a[0] = math.Sqrt(1 / float64(n))
+	return a
+}
+
+// forward1 is the orthonormal DCT-II of v in place. FFTPACK's cosqb returns
+// 4 sum_j x_j cos(pi k (2j+1) / 2n).
+func forward1(t *fourier.QuarterWaveFFT, a, v []float64) {
+	if t == nil {
+		return
+	}
+	t.CosSequence(v, v)
+	for k := range v {
+		v[k] *= a[k] / 4
+	}
+}
+
+// inverse1 is the orthonormal DCT-III (the inverse of forward1) of v in
+// place. FFTPACK's cosqf returns y_0 + 2 sum_{k>=1} y_k cos(pi k (2j+1) / 2n).
+func inverse1(t *fourier.QuarterWaveFFT, a, v []float64) {
+	if t == nil {
+		return
+	}
+	v[0] *= a[0]
+	for k := 1; k < len(v); k++ {
+		v[k] *= a[k] / 2
+	}
+	t.CosCoefficients(v, v)
+}
+
+// Forward writes the DCT-II of src (row-major w x h) into dst.
+func (d *dct2) Forward(dst []float64, src []float32) {
+	w, h := d.w, d.h
+	for y := 0; y < h; y++ {
+		r := d.row
+		for x := range r {
+			r[x] = float64(src[y*w+x])
+		}
+		forward1(d.tx, d.ax, r)
+		copy(dst[y*w:(y+1)*w], r)
+	}
+	d.columns(dst, forward1)
+}
+
+// Inverse writes the inverse DCT of src into dst (both float64).
+func (d *dct2) Inverse(dst, src []float64) {
+	w, h := d.w, d.h
+	copy(dst[:w*h], src[:w*h])
+	for y := 0; y < h; y++ {
+		inverse1(d.tx, d.ax, dst[y*w:(y+1)*w])
+	}
+	d.columns(dst, inverse1)
+}
+
+func (d *dct2) columns(p []float64, f func(*fourier.QuarterWaveFFT, []float64, []float64)) {
+	w, h := d.w, d.h
+	c := d.col
+	for x := 0; x < w; x++ {
+		for y := 0; y < h; y++ {
+			c[y] = p[y*w+x]
+		}
+		f(d.ty, d.ay, c)
+		for y := 0; y < h; y++ {
+			p[y*w+x] = c[y]
+		}
+	}
+}

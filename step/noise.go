@@ -1,0 +1,396 @@
+package step
+
+import (
+	"fmt"
+	"math"
+	"sort"
+
+	"limpid/raster"
+)
+
+// Noise estimation from the image itself.
+//
+// Immerkaer's estimator (Immerkaer, "Fast noise variance estimation", CVIU
+// 64(2):300-302, 1996) gives one Gaussian sigma for a plane. The per-scene
+// Poisson-Gaussian model var(d) = a*d + b follows the idea of Foi,
+// Trimeche, Katkovnik & Egiazarian (IEEE TIP 17(10):1737-1754, 2008),
+// simplified: local residuals of Immerkaer's mask, binned by local mean, a
+// robust (MAD) variance per bin over the smoother half of its pixels, and a
+// weighted least-squares line through the bins.
+
+// immerkaer is the 3x3 mask [[1,-2,1],[-2,4,-2],[1,-2,1]]: it annihilates
+// locally linear (and separable quadratic) intensity; its squared sum is 36.
+var immerkaer = [9]float32{1, -2, 1, -2, 4, -2, 1, -2, 1}
+
+// ImmerkaerSigma is Immerkaer's (1996) noise sigma of a w x h plane:
+// sqrt(pi/2) / (6 n) * sum |I * M| over the n positions whose whole 3x3
+// neighbourhood is valid (valid nil: all). It returns NaN with no position.
+func ImmerkaerSigma(d []float32, valid []bool, w, h int) float64 {
+	var sum float64
+	n := 0
+	for y := 1; y < h-1; y++ {
+		for x := 1; x < w-1; x++ {
+			if !window3Valid(valid, w, x, y) {
+				continue
+			}
+			sum += math.Abs(float64(mask3(d, w, x, y)))
+			n++
+		}
+	}
+	if n == 0 {
+		return math.NaN()
+	}
+	return math.Sqrt(math.Pi/2) / (6 * float64(n)) * sum
+}
+
+func window3Valid(valid []bool, w, x, y int) bool {
+	if valid == nil {
+		return true
+	}
+	for dy := -1; dy <= 1; dy++ {
+		r := (y+dy)*w + x
+		if !valid[r-1] || !valid[r] || !valid[r+1] {
+			return false
+		}
+	}
+	return true
+}
+
+func mask3(d []float32, w, x, y int) float32 {
+	var s float32
+	k := 0
+	for dy := -1; dy <= 1; dy++ {
+		r := (y+dy)*w + x
+		s += immerkaer[k]*d[r-1] + immerkaer[k+1]*d[r] + immerkaer[k+2]*d[r+1]
+		k += 3
+	}
+	return s
+}
+
+// NoiseModel is the variance of an observed value d: Var = A*d + B (a
+// Poisson-Gaussian sensor: A is the gain in DN per electron, B the read
+// variance in DN^2 plus quantisation).
+type NoiseModel struct {
+	A float64 `json:"a"`
+	B float64 `json:"b"`
+	// SigmaA, SigmaB are the standard errors of the fit (from the weighted
+	// residuals of the bins; 0 when given by the user).
+	SigmaA float64 `json:"a_stderr"`
+	SigmaB float64 `json:"b_stderr"`
+	// Floor is the smallest variance Variance returns.
+	Floor float64 `json:"variance_floor"`
+	// Hi clips d before the model is evaluated (the brightest bin's mean).
+	Hi float64 `json:"clip_high"`
+	// Source is "estimated" or "given".
+	Source string     `json:"source"`
+	Bins   []NoiseBin `json:"bins,omitempty"`
+	// Samples is the number of pixels the bins were made from.
+	Samples int `json:"samples,omitempty"`
+}
+
+// NoiseBin is one intensity class of the fit.
+type NoiseBin struct {
+	Mean     float64 `json:"mean"`
+	Variance float64 `json:"variance"`
+	Pixels   int     `json:"pixels"`
+	Used     bool    `json:"used"`
+}
+
+// Variance is the model variance at observed value d, clipped to [0, Hi]
+// and floored.
+func (m *NoiseModel) Variance(d float32) float32 {
+	x := float64(d)
+	if x < 0 {
+		x = 0
+	}
+	if m.Hi > 0 && x > m.Hi {
+		x = m.Hi
+	}
+	return float32(math.Max(m.A*x+m.B, m.Floor))
+}
+
+// NoiseSampler collects, plane by plane, the local statistics the
+// Poisson-Gaussian fit needs: for every pixel whose neighbourhood is valid,
+// the 3x3 mean, the Immerkaer residual e = (d * M) / 6 (variance equal to
+// the pixel's noise variance for white noise), and a smoothness score (the
+// gradient magnitude of d smoothed with a Gaussian of sigma 2). Planes from
+// several tiles of one band pool into one fit.
+type NoiseSampler struct {
+	mean, res, grad []float32
+	// Limit caps the number of samples kept (0: 4 million); extra pixels
+	// are taken with a regular stride.
+	Limit int
+	seen  int
+}
+
+// noiseSmoothSigma is the Gaussian that the smoothness score uses (GUIDE
+// section 4.1).
+const noiseSmoothSigma = 2.0
+
+// Add samples the pixels of plane d (w x h) inside [x0, x1) x [y0, y1)
+// whose 3x3 neighbourhood is valid and inside the plane (tiles pass the
+// window they own, without their halo).
+func (s *NoiseSampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) {
+	if w < 3 || h < 3 {
+		return
+	}
+	limit := s.Limit
+	if limit <= 0 {
+		limit = 4 << 20
+	}
+	g := gaussianTaps(noiseSmoothSigma)
+	r := (len(g) - 1) / 2
+	sm := make([]float32, w*h)
+	tmp := make([]float32, w*h)
+	// Separable blur with half-sample symmetric borders; invalid pixels are
+	// replaced by the plane's valid mean first so they do not ring.
+	var mu float64
+	nv := 0
+	for i, v := range d[:w*h] {
+		if valid == nil || valid[i] {
+			mu += float64(v)
+			nv++
+		}
+	}
+	if nv == 0 {
+		return
+	}
+	mu /= float64(nv)
+	src := make([]float32, w*h)
+	for i, v := range d[:w*h] {
+		if valid == nil || valid[i] {
+			src[i] = v
+		} else {
+			src[i] = float32(mu)
+		}
+	}
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var a float64
+			for k := -r; k <= r; k++ {
+				a += g[k+r] * float64(src[y*w+raster.Mirror(x+k, w)])
+			}
+			tmp[y*w+x] = float32(a)
+		}
+	}
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var a float64
+			for k := -r; k <= r; k++ {
+				a += g[k+r] * float64(tmp[raster.Mirror(y+k, h)*w+x])
+			}
+			sm[y*w+x] = float32(a)
+		}
+	}
+	x0, y0 = max(x0, 1), max(y0, 1)
+	x1, y1 = min(x1, w-1), min(y1, h-1)
+	for y := y0; y < y1; y++ {
+		for x := x0; x < x1; x++ {
+			if !window3Valid(valid, w, x, y) {
+				continue
+			}
+			s.seen++
+			if len(s.mean) >= limit && s.seen%2 == 0 {
+				continue
+			}
+			var box float32
+			for dy := -1; dy <= 1; dy++ {
+				row := d[(y+dy)*w+x-1:]
+				box += row[0] + row[1] + row[2]
+			}
+			gx := 0.5 * (sm[y*w+x+1] - sm[y*w+x-1])
+			gy := 0.5 * (sm[(y+1)*w+x] - sm[(y-1)*w+x])
+			s.mean = append(s.mean, box/9)
+			s.res = append(s.res, mask3(d, w, x, y)/6)
+			s.grad = append(s.grad, float32(math.Hypot(float64(gx), float64(gy))))
+		}
+	}
+	if len(s.mean) > 2*limit {
+		// Thin by two, keeping every other sample in order.
+		k := 0
+		for i := 0; i < len(s.mean); i += 2 {
+			s.mean[k], s.res[k], s.grad[k] = s.mean[i], s.res[i], s.grad[i]
+			k++
+		}
+		s.mean, s.res, s.grad = s.mean[:k], s.res[:k], s.grad[:k]
+	}
+}
+
+func gaussianTaps(sigma float64) []float64 {
+	r := int(math.Ceil(3 * sigma))
+	g := make([]float64, 2*r+1)
+	var s float64
+	for i := range g {
+		d := float64(i - r)
+		g[i] = math.Exp(-d * d / (2 * sigma * sigma))
+		s += g[i]
+	}
+	for i := range g {
+		g[i] /= s
+	}
+	return g
+}
+
+// Noise fit settings (GUIDE section 4.1; prototype values, common practice,
+// no source beyond it).
+const (
+	noiseBins       = 24
+	noiseMinPerBin  = 50
+	noiseOutlier    = 1.5    // drop bins more than this factor above the fit
+	noiseMADToSigma = 0.6745 // median |N(0,1)| (standard normal quantile 0.75)
+	noisePasses     = 3
+	// NoiseInflation multiplies the estimated variance where the risk
+	// estimate uses it: underestimating the noise is the dangerous side
+	// (GUIDE section 4.1).
+	NoiseInflation = 1.05
+)
+
+// ErrNoNoiseData is returned when too few smooth valid pixels exist.
+var ErrNoNoiseData = fmt.Errorf("too few valid pixels to estimate the noise")
+
+// Fit returns the Poisson-Gaussian model of the collected samples.
+func (s *NoiseSampler) Fit() (NoiseModel, error) {
+	n := len(s.mean)
+	if n < noiseBins*noiseMinPerBin/4 {
+		return NoiseModel{}, ErrNoNoiseData
+	}
+	idx := make([]int, n)
+	for i := range idx {
+		idx[i] = i
+	}
+	sort.Slice(idx, func(a, b int) bool { return s.mean[idx[a]] < s.mean[idx[b]] })
+	nb := min(noiseBins, n/noiseMinPerBin)
+	nb = max(nb, 2)
+	var bins []NoiseBin
+	scratch := make([]float64, 0, n/nb+1)
+	for b := 0; b < nb; b++ {
+		part := idx[b*n/nb : (b+1)*n/nb]
+		// Keep the smoother half of the bin.
+		scratch = scratch[:0]
+		for _, i := range part {
+			scratch = append(scratch, float64(s.grad[i]))
+		}
+		gmed := median(scratch)
+		scratch = scratch[:0]
+		var mu float64
+		for _, i := range part {
+			if float64(s.grad[i]) <= gmed {
+				scratch = append(scratch, math.Abs(float64(s.res[i])))
+				mu += float64(s.mean[i])
+			}
+		}
+		if len(scratch) < 8 {
+			continue
+		}
+		mu /= float64(len(scratch))
+		sd := median(scratch) / noiseMADToSigma
+		bins = append(bins, NoiseBin{Mean: mu, Variance: sd * sd, Pixels: len(scratch), Used: true})
+	}
+	if len(bins) < 2 {
+		return NoiseModel{}, ErrNoNoiseData
+	}
+	m := fitAffine(bins)
+	m.Source = "estimated"
+	m.Bins = bins
+	m.Samples = n
+	m.Hi = bins[len(bins)-1].Mean
+	minVar := math.Inf(1)
+	for _, b := range bins {
+		if b.Variance > 0 {
+			minVar = math.Min(minVar, b.Variance)
+		}
+	}
+	if math.IsInf(minVar, 1) {
+		minVar = 1e-6
+	}
+	m.Floor = 0.1 * minVar
+	if !(m.A*bins[0].Mean+m.B > 0) && m.B <= 0 {
+		m.B = math.Max(m.B, m.Floor)
+	}
+	return m, nil
+}
+
+// fitAffine fits Variance = a*Mean + b by weighted least squares with weights
+// 1/(a mu + b)^2 (the variance of a variance estimate grows with its square),
+// noisePasses passes, dropping bins above noiseOutlier x the fit, a >= 0.
+func fitAffine(bins []NoiseBin) NoiseModel {
+	a, b := 0.0, 0.0
+	for pass := 0; pass < noisePasses; pass++ {
+		var sw, sx, sy, sxx, sxy float64
+		for i := range bins {
+			bn := &bins[i]
+			if pass > 0 {
+				fit := a*bn.Mean + b
+				bn.Used = !(fit > 0 && bn.Variance > noiseOutlier*fit)
+			}
+			if !bn.Used {
+				continue
+			}
+			v := bn.Variance
+			if pass > 0 && a*bn.Mean+b > 0 {
+				v = a*bn.Mean + b
+			}
+			if !(v > 0) {
+				v = 1e-12
+			}
+			w := float64(bn.Pixels) / (v * v)
+			sw += w
+			sx += w * bn.Mean
+			sy += w * bn.Variance
+			sxx += w * bn.Mean * bn.Mean
+			sxy += w * bn.Mean * bn.Variance
+		}
+		det := sw*sxx - sx*sx
+		if sw == 0 {
+			break
+		}
+		if det > 1e-12*sw*sxx {
+			a = (sw*sxy - sx*sy) / det
+			b = (sy - a*sx) / sw
+		} else {
+			a, b = 0, sy/sw
+		}
+		if a < 0 {
+			a, b = 0, sy/sw
+		}
+	}
+	// Standard errors from the weighted residuals (n - 2 degrees of
+	// freedom), weights as in the last pass.
+	var sw, sx, sxx, rss float64
+	used := 0
+	for _, bn := range bins {
+		if !bn.Used {
+			continue
+		}
+		fit := a*bn.Mean + b
+		if !(fit > 0) {
+			fit = math.Max(bn.Variance, 1e-12)
+		}
+		w := float64(bn.Pixels) / (fit * fit)
+		sw += w
+		sx += w * bn.Mean
+		sxx += w * bn.Mean * bn.Mean
+		r := bn.Variance - fit
+		rss += w * r * r
+		used++
+	}
+	m := NoiseModel{A: a, B: b}
+	if det := sw*sxx - sx*sx; used > 2 && det > 0 {
+		s2 := rss / float64(used-2)
+		m.SigmaA = math.Sqrt(s2 * sw / det)
+		m.SigmaB = math.Sqrt(s2 * sxx / det)
+	}
+	return m
+}
+
+func median(v []float64) float64 {
+	if len(v) == 0 {
+		return math.NaN()
+	}
+	sort.Float64s(v)
+	n := len(v)
+	if n%2 == 1 {
+		return v[n/2]
+	}
+	return 0.5 * (v[n/2-1] + v[n/2])
+}
