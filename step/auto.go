@@ -3,7 +3,6 @@ package step
 import (
 	"context"
 	"math"
-	"math/rand/v2"
 
 	"limpid/psf"
 )
@@ -39,11 +38,16 @@ import (
 //	R_k = sum w (H f_k + b - d)^2 - sum w v + 2 c sum w v delta (H u_k).
 
 // Risk settings (GUIDE section 4.3-4.4; prototype values, no other source).
+// riskLambda is the regularisation of the risk weights Q and G (GUIDE
+// section 4.3).
+var riskLambda = 0.01
+
 const (
-	riskLambda = 0.01
-	// RiskPatience: a run stops this many iterations after its risk
-	// minimum.
+	// RiskPatience: a run stops this many iterations after its last
+	// significant risk improvement (one larger than riskPlateau times the
+	// total decrease so far).
 	RiskPatience = 20
+	riskPlateau  = 1e-3
 	// AutoCap is the default iteration cap with --stop auto.
 	AutoCap = 200
 	// riskMaskedFraction: above this share of invalid pixels the DCT
@@ -61,10 +65,10 @@ const (
 var AutoSmooths = []float64{0, 0.3, 0.5, 0.7}
 
 // riskEvaluated says at which iterations the risk is computed: every one up
-// to 20, then every 2nd up to 50, then every 5th (the risk curve is flat
+// to 10, then every 2nd up to 30, then every 5th (the risk curve flattens
 // near its minimum at large k, and each evaluation costs a 2-D DCT).
 func riskEvaluated(k, cap int) bool {
-	return k <= 20 || (k <= 50 && k%2 == 0) || k%5 == 0 || k == cap
+	return k <= 10 || (k <= 30 && k%2 == 0) || k%5 == 0 || k == cap
 }
 
 // psfEigen returns the DCT-II eigenvalues h(kx) h(ky) (generally
@@ -131,6 +135,7 @@ func newRiskWeights(k *psf.Kernel, w, h int) (*riskWeights, bool) {
 // autoWork is one worker's scratch for the risk-carrying EMS.
 type autoWork struct {
 	f, fn, u, un, hu, dq, dt, ue, delta, v, best []float32
+	cropD, cropM                                 []float32
 	gd, gv, F                                    []float64
 	dct                                          *dct2
 }
@@ -185,14 +190,14 @@ func setupRisk(aw *autoWork, p *Problem, nm *NoiseModel, rw *riskWeights, seed u
 	aw.reset(w, h)
 	rp := &riskProblem{p: p, infl: infl}
 	rp.nValid, rp.flux = Prepare(p)
-	rng := rand.New(rand.NewPCG(seed^0x9e3779b97f4a7c15, tileStream(p.Key)))
+	stream := seed*0x9e3779b97f4a7c15 ^ tileStream(p.Key)
 	var mean float64
 	for i := 0; i < n; i++ {
 		if p.Mask[i] == 0 {
 			aw.delta[i], aw.v[i] = 0, 0
 			continue
 		}
-		if rng.Uint64()&1 == 0 {
+		if mix64(stream^uint64(i))&1 == 0 {
 			aw.delta[i] = 1
 		} else {
 			aw.delta[i] = -1
@@ -239,11 +244,17 @@ func setupRisk(aw *autoWork, p *Problem, nm *NoiseModel, rw *riskWeights, seed u
 
 // tileStream mixes a tile key into one 64-bit stream selector.
 func tileStream(k TileKey) uint64 {
-	x := uint64(k.Band)*0x100000001b3 ^ uint64(k.Col)<<21 ^ uint64(k.Row)<<42
-	x ^= x >> 33
-	x *= 0xff51afd7ed558ccd
-	x ^= x >> 33
-	return x
+	return mix64(uint64(k.Band)*0x100000001b3 ^ uint64(k.Col)<<21 ^ uint64(k.Row)<<42)
+}
+
+// mix64 is the SplitMix64 finaliser (Steele, Lea & Flood, OOPSLA 2014): a
+// counter-based source of random bits, so a pixel's probe sign depends only
+// on the tile, the pixel and the seed, never on the scheduler.
+func mix64(x uint64) uint64 {
+	x += 0x9e3779b97f4a7c15
+	x = (x ^ x>>30) * 0xbf58476d1ce4e5b9
+	x = (x ^ x>>27) * 0x94d049bb133111eb
+	return x ^ x>>31
 }
 
 // runRisk runs EMS with eps = g.S's bandwidth and its derivative for up to
@@ -269,6 +280,7 @@ func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, 
 		f[i], u[i] = c, u0
 	}
 	g.H.Adjoint(&ws.conv, ws.s, p.Mask, w, h)
+	first, lastGain := math.NaN(), 0
 	for k := 1; k <= capK; k++ {
 		if err := ctx.Err(); err != nil {
 			return run, err
@@ -281,13 +293,21 @@ func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, 
 			r = rp.risk(ws, aw, g, f, u)
 		}
 		run.Risk = append(run.Risk, r)
+		if math.IsNaN(first) && !math.IsNaN(r) {
+			first = r
+		}
 		if r < run.BestR {
+			// Patience restarts only on a significant improvement, so a
+			// curve that creeps down on a plateau stops too.
+			if run.BestK == 0 || run.BestR-r > riskPlateau*(first-r) {
+				lastGain = k
+			}
 			run.BestR, run.BestK = r, k
 			if keep {
 				copy(aw.best[:n], f)
 			}
 		}
-		if patience && k-run.BestK >= RiskPatience {
+		if patience && k-lastGain >= RiskPatience {
 			break
 		}
 	}

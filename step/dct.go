@@ -12,14 +12,17 @@ import (
 // half-sample symmetric boundaries a symmetric convolution is diagonal in
 // this basis, which the risk estimate relies on.
 type dct2 struct {
-	w, h     int
-	tx, ty   *fourier.QuarterWaveFFT
-	ax, ay   []float64 // orthonormal scales a_k per axis
-	row, col []float64
+	w, h   int
+	tx, ty *fourier.QuarterWaveFFT
+	ax, ay []float64 // orthonormal scales a_k per axis
+	row    []float64
+	cols   []float64 // dctBlock columns
 }
 
+const dctBlock = 16
+
 func newDCT2(w, h int) *dct2 {
-	d := &dct2{w: w, h: h, row: make([]float64, w), col: make([]float64, h)}
+	d := &dct2{w: w, h: h, row: make([]float64, w), cols: make([]float64, dctBlock*h)}
 	if w > 1 {
 		d.tx = fourier.NewQuarterWaveFFT(w)
 	}
@@ -90,14 +93,24 @@ func (d *dct2) Inverse(dst, src []float64) {
 
 func (d *dct2) columns(p []float64, f func(*fourier.QuarterWaveFFT, []float64, []float64)) {
 	w, h := d.w, d.h
-	c := d.col
-	for x := 0; x < w; x++ {
+	// Columns in blocks of dctBlock so that the gather and scatter read
+	// and write contiguous runs of each row (cache-friendly).
+	for x0 := 0; x0 < w; x0 += dctBlock {
+		nb := min(dctBlock, w-x0)
 		for y := 0; y < h; y++ {
-			c[y] = p[y*w+x]
+			row := p[y*w+x0 : y*w+x0+nb]
+			for j, v := range row {
+				d.cols[j*h+y] = v
+			}
 		}
-		f(d.ty, d.ay, c)
+		for j := 0; j < nb; j++ {
+			f(d.ty, d.ay, d.cols[j*h:(j+1)*h])
+		}
 		for y := 0; y < h; y++ {
-			p[y*w+x] = c[y]
+			row := p[y*w+x0 : y*w+x0+nb]
+			for j := range row {
+				row[j] = d.cols[j*h+y]
+			}
 		}
 	}
 }

@@ -83,6 +83,11 @@ type GridEMS struct {
 	// Observe, when set, is called after every iteration with the iterate
 	// (valid until the next call) and its relative change.
 	Observe func(k int, f []float32, change float64)
+	// Noise and Tau, when Noise is set, stop by Morozov's discrepancy
+	// principle: at the first iterate with sum_valid (d - H f - b)^2 <=
+	// Tau^2 sum_valid Var(d).
+	Noise *NoiseModel
+	Tau   float64
 }
 
 // Name implements Solver.
@@ -126,12 +131,26 @@ func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		f[i] = c
 	}
 	g.H.Adjoint(&ws.conv, ws.s, p.Mask, p.W, p.H)
+	target := -1.0
+	if g.Noise != nil {
+		var v float64
+		for i, m := range p.Mask[:n] {
+			if m != 0 {
+				v += float64(g.Noise.Variance(p.D[i]))
+			}
+		}
+		target = g.Tau * g.Tau * v
+	}
 	var res Result
 	for k := 0; k < g.Iterations; k++ {
 		if err := ctx.Err(); err != nil {
 			return res, err
 		}
-		change := g.iterate(ws, p, f, ws.fn)
+		change, rss := g.iterate(ws, p, f, ws.fn, target >= 0)
+		if target >= 0 && k > 0 && rss <= target {
+			// f (iterate k) already fits the data to the noise level.
+			break
+		}
 		f, ws.fn = ws.fn, f
 		res.Iterations = k + 1
 		res.Change = change
@@ -147,13 +166,22 @@ func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 	return res, nil
 }
 
-// iterate computes fn = S e(f) and returns the relative L1 change.
-func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32) float64 {
+// iterate computes fn = S e(f) and returns the relative L1 change and,
+// with wantRSS, the residual sum of squares of f over valid pixels.
+func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bool) (change, rss float64) {
 	w, h := p.W, p.H
 	n := w * h
 	b := p.Background
 	g.H.Apply(&ws.conv, ws.p, f, w, h)
 	pp, q, d, m := ws.p[:n], ws.q[:n], p.D[:n], p.Mask[:n]
+	if wantRSS {
+		for i := range pp {
+			if m[i] != 0 {
+				e := float64(d[i] - pp[i] - b)
+				rss += e * e
+			}
+		}
+	}
 	for i := range pp {
 		den := pp[i] + b
 		if den > 0 && m[i] != 0 {
@@ -186,7 +214,7 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32) float64 {
 		den += math.Abs(float64(ff[i]))
 	}
 	if den == 0 {
-		return 0
+		return 0, rss
 	}
-	return num / den
+	return num / den, rss
 }

@@ -312,7 +312,8 @@ func (s *NoiseSampler) Fit() (NoiseModel, error) {
 
 // fitAffine fits Variance = a*Mean + b by weighted least squares with weights
 // 1/(a mu + b)^2 (the variance of a variance estimate grows with its square),
-// noisePasses passes, dropping bins above noiseOutlier x the fit, a >= 0.
+// noisePasses passes, dropping bins above noiseOutlier x the fit, a >= 0 and
+// b >= 0.
 func fitAffine(bins []NoiseBin) NoiseModel {
 	a, b := 0.0, 0.0
 	for pass := 0; pass < noisePasses; pass++ {
@@ -352,6 +353,11 @@ func fitAffine(bins []NoiseBin) NoiseModel {
 		}
 		if a < 0 {
 			a, b = 0, sy/sw
+		}
+		if b < 0 {
+			// A negative variance at zero signal is not physical (read
+			// noise and quantisation are >= 0): fit through the origin.
+			a, b = sxy/sxx, 0
 		}
 	}
 	// Standard errors from the weighted residuals (n - 2 degrees of

@@ -52,6 +52,16 @@ type Config struct {
 	Seed         uint64
 	Saturated    float64
 	HasSaturated bool
+	// SmoothAuto chooses the bandwidth per band among AutoSmooths by the
+	// risk estimate (then Smooth is only the fallback).
+	SmoothAuto bool
+	// Stop is StopChange (default), StopAuto or StopDiscrepancy;
+	// Iterations is the cap for all three.
+	Stop string
+	// Choose is ChooseGlobal (default) or ChoosePerTile.
+	Choose string
+	// Noise, when set, replaces the estimated per-band noise model.
+	Noise *NoiseModel
 	// Progress, when set, is called after each strip with tiles done/total.
 	Progress func(done, total int)
 }
@@ -83,15 +93,20 @@ type TileReport struct {
 
 // BandReport records one output band.
 type BandReport struct {
-	Band           int          `json:"band"`
-	SourceBand     int          `json:"source_band"`
-	Background     float64      `json:"background"`
-	BackgroundRule string       `json:"background_rule"`
-	FluxBefore     float64      `json:"flux_before"`
-	FluxAfter      float64      `json:"flux_after"`
-	ValidPixels    int64        `json:"valid_pixels"`
-	MaxIterations  int          `json:"max_iterations"`
-	Tiles          []TileReport `json:"tiles"`
+	Band           int     `json:"band"`
+	SourceBand     int     `json:"source_band"`
+	Background     float64 `json:"background"`
+	BackgroundRule string  `json:"background_rule"`
+	FluxBefore     float64 `json:"flux_before"`
+	FluxAfter      float64 `json:"flux_after"`
+	ValidPixels    int64   `json:"valid_pixels"`
+	MaxIterations  int     `json:"max_iterations"`
+	// Noise is the noise model used (estimated or given), when the stop or
+	// smoothing rule needed one.
+	Noise *NoiseModel `json:"noise,omitempty"`
+	// Choice records the automatic smoothing/stop choice.
+	Choice *Choice      `json:"choice,omitempty"`
+	Tiles  []TileReport `json:"tiles"`
 }
 
 // Report is what a restoration did.
@@ -102,6 +117,9 @@ type Report struct {
 	PSFSize     [2]int       `json:"psf_size"`
 	ConvPath    string       `json:"convolution"`
 	Smooth      float64      `json:"smooth"`
+	SmoothRule  string       `json:"smooth_rule"`
+	Stop        string       `json:"stop"`
+	Choose      string       `json:"choose,omitempty"`
 	Iterations  int          `json:"iterations"`
 	Tolerance   float64      `json:"tolerance"`
 	Tile        int          `json:"tile"`
@@ -148,6 +166,26 @@ func (cfg *Config) Resolve() error {
 	if math.IsNaN(cfg.Smooth) || cfg.Smooth < 0 || cfg.Smooth > 10 {
 		return fmt.Errorf("%w: --smooth %g must be between 0 and 10 pixels", ErrConfig, cfg.Smooth)
 	}
+	switch cfg.Stop {
+	case "":
+		cfg.Stop = StopChange
+	case StopChange, StopAuto, StopDiscrepancy:
+	default:
+		return fmt.Errorf("%w: --stop %q: use change, auto or discrepancy", ErrConfig, cfg.Stop)
+	}
+	switch cfg.Choose {
+	case "":
+		cfg.Choose = ChooseGlobal
+	case ChooseGlobal, ChoosePerTile:
+	default:
+		return fmt.Errorf("%w: --choose %q: use global or per-tile", ErrConfig, cfg.Choose)
+	}
+	if cfg.SmoothAuto && cfg.Stop == StopDiscrepancy {
+		return fmt.Errorf("%w: --stop discrepancy needs a fixed --smooth (the risk estimate chooses both with --stop auto)", ErrConfig)
+	}
+	if n := cfg.Noise; n != nil && (!(n.A >= 0) || !(n.B >= 0) || math.IsInf(n.A, 0) || math.IsInf(n.B, 0) || n.A+n.B == 0) {
+		return fmt.Errorf("%w: --noise a=%g,b=%g: both must be finite, >= 0 and not both 0", ErrConfig, n.A, n.B)
+	}
 	if math.IsNaN(cfg.Tolerance) || cfg.Tolerance < 0 {
 		return fmt.Errorf("%w: --tolerance %g must be >= 0", ErrConfig, cfg.Tolerance)
 	}
@@ -164,7 +202,11 @@ func (cfg *Config) Resolve() error {
 		return fmt.Errorf("%w: the PSF (%dx%d) is larger than a tile (%d): raise --tile", ErrConfig, cfg.PSF.W, cfg.PSF.H, cfg.Tile)
 	}
 	if cfg.Overlap < 0 {
-		cfg.Overlap = DefaultOverlap(cfg.PSF, cfg.Smooth, cfg.Tile)
+		eps := cfg.Smooth
+		if cfg.SmoothAuto {
+			eps = AutoSmooths[len(AutoSmooths)-1]
+		}
+		cfg.Overlap = DefaultOverlap(cfg.PSF, eps, cfg.Tile)
 	}
 	if cfg.Overlap > cfg.Tile {
 		return fmt.Errorf("%w: --overlap %d is larger than the tile size %d", ErrConfig, cfg.Overlap, cfg.Tile)
@@ -203,7 +245,7 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	}
 	solver := cfg.NewSolver()
 	rep := &Report{Version: Version, Method: solver.Name(), PSF: cfg.PSFSpec, PSFSize: [2]int{cfg.PSF.W, cfg.PSF.H},
-		ConvPath: NewConv(cfg.PSF).Kind(), Smooth: cfg.Smooth, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
+		ConvPath: NewConv(cfg.PSF).Kind(), Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
 		Tile: cfg.Tile, Overlap: plan.Overlap, Blend: plan.Blend, Workers: cfg.Workers, Seed: cfg.Seed,
 		Width: meta.Width, Height: meta.Height}
 	if cfg.HasSaturated {
@@ -231,6 +273,19 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 	}
 	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver}
+	if cfg.SmoothAuto {
+		rep.SmoothRule = fmt.Sprintf("auto: risk estimate over %v", AutoSmooths)
+	}
+	if cfg.SmoothAuto || cfg.Stop != StopChange {
+		if cfg.SmoothAuto || cfg.Stop == StopAuto {
+			rep.Choose = cfg.Choose
+		}
+		s, err := r.regularise(ctx)
+		if err != nil {
+			return nil, err
+		}
+		r.solver = s
+	}
 	if err := r.run(ctx); err != nil {
 		return nil, err
 	}

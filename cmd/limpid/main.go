@@ -75,6 +75,7 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 		},
 		Commands: []*cli.Command{
 			restoreCommand(stdin, stdout, stderr),
+			noiseCommand(stdin, stdout, stderr),
 			demoCommand(stderr, stdout),
 		},
 	}

@@ -46,9 +46,12 @@ func restoreFlags() []cli.Flag {
 		&cli.StringFlag{Name: "output-type", Value: "same", EnvVars: env("output-type"), Usage: "same (round to nearest, clamp to the input type's range) or float32"},
 		&cli.StringFlag{Name: "saturated", EnvVars: env("saturated"), Usage: "pixels at or above this value are invalid: left out of the fit, written as nodata"},
 		&cli.StringFlag{Name: "background", Value: "0", EnvVars: env("background"), Usage: fmt.Sprintf("additive background b in DN, or auto (the %g percentile of each band's valid pixels)", step.BackgroundPercentile)},
-		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, EnvVars: env("iterations"), Usage: "maximum EMS iterations per tile"},
-		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, EnvVars: env("tolerance"), Usage: "stop a tile early when the relative L1 change falls below this (0 = never)"},
-		&cli.Float64Flag{Name: "smooth", Value: step.DefaultSmooth, EnvVars: env("smooth"), Usage: "EMS smoothing bandwidth in pixels (0 = Richardson-Lucy)"},
+		&cli.StringFlag{Name: "smooth", Value: defaultSmoothFlag, EnvVars: env("smooth"), Usage: fmt.Sprintf("EMS smoothing bandwidth in pixels (0 = Richardson-Lucy), or auto: chosen per band among %v by a risk estimate", step.AutoSmooths)},
+		&cli.StringFlag{Name: "stop", Value: defaultStopFlag, EnvVars: env("stop"), Usage: "when to stop: auto (minimum of the risk estimate), discrepancy (Morozov: residual at the estimated noise level), change (relative change below --tolerance)"},
+		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, EnvVars: env("iterations"), Usage: fmt.Sprintf("iteration cap per tile (default %d with --stop change, %d with auto and discrepancy)", step.DefaultIterations, step.AutoCap)},
+		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, EnvVars: env("tolerance"), Usage: "--stop change: stop a tile when the relative L1 change falls below this (0 = never)"},
+		&cli.StringFlag{Name: "choose", Value: step.ChooseGlobal, EnvVars: env("choose"), Usage: "with auto: global (one choice per band from up to 16 tiles, uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
+		&cli.StringFlag{Name: "noise", Value: "auto", EnvVars: env("noise"), Usage: "noise model var = a*DN + b used by auto and discrepancy: auto (fitted per band from the scene) or a=GAIN,b=READVAR"},
 		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid)"},
 		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for stochastic methods (recorded; grid is deterministic)"},
 		&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs); output is identical for any value"},
@@ -140,9 +143,13 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 		return nil, usageError{fmt.Errorf("--psf %w", err)}
 	}
 	cfg := step.Config{
-		Method: c.String("method"), PSF: k, PSFSpec: c.String("psf"), Smooth: c.Float64("smooth"),
+		Method: c.String("method"), PSF: k, PSFSpec: c.String("psf"),
 		Iterations: c.Int("iterations"), Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
 		Workers: c.Int("workers"), Seed: c.Uint64("seed"), Overlap: -1,
+		Stop: c.String("stop"), Choose: c.String("choose"),
+	}
+	if err := parseRegularisation(c, &cfg); err != nil {
+		return nil, err
 	}
 	if c.Int("workers") < 0 {
 		return nil, usagef("--workers %d must be >= 0", c.Int("workers"))
@@ -179,6 +186,77 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	}
 	j.cfg = cfg
 	return j, nil
+}
+
+// Defaults of --smooth and --stop (DEVELOPERS.md, "Automatic
+// regularisation", has the measurement behind them).
+const (
+	defaultSmoothFlag = "auto"
+	defaultStopFlag   = step.StopAuto
+)
+
+// parseRegularisation reads --smooth, --stop, --iterations and --noise.
+func parseRegularisation(c *cli.Context, cfg *step.Config) error {
+	switch sm := c.String("smooth"); sm {
+	case "auto":
+		cfg.SmoothAuto = true
+		cfg.Smooth = step.DefaultSmooth
+	default:
+		v, err := strconv.ParseFloat(sm, 64)
+		if err != nil || math.IsNaN(v) || v < 0 || v > 10 {
+			return usagef("--smooth %q: give a bandwidth in pixels between 0 and 10, or auto", sm)
+		}
+		cfg.Smooth = v
+	}
+	switch st := c.String("stop"); st {
+	case step.StopAuto, step.StopDiscrepancy, step.StopChange:
+		if st != step.StopChange && !c.IsSet("iterations") {
+			cfg.Iterations = step.AutoCap
+		}
+	default:
+		return usagef("--stop %q: use auto, discrepancy or change", st)
+	}
+	if cfg.SmoothAuto && cfg.Stop == step.StopChange && !c.IsSet("iterations") {
+		cfg.Iterations = step.DefaultIterations
+	}
+	if nz := c.String("noise"); nz != "auto" {
+		m, err := parseNoise(nz)
+		if err != nil {
+			return err
+		}
+		cfg.Noise = m
+	}
+	return nil
+}
+
+// parseNoise reads "a=GAIN,b=READVAR".
+func parseNoise(s string) (*step.NoiseModel, error) {
+	m := &step.NoiseModel{Source: "given"}
+	seen := map[string]bool{}
+	for _, kv := range strings.Split(s, ",") {
+		k, v, ok := strings.Cut(strings.TrimSpace(kv), "=")
+		x, err := strconv.ParseFloat(v, 64)
+		if !ok || err != nil || math.IsNaN(x) || math.IsInf(x, 0) || x < 0 {
+			return nil, usagef("--noise %q: give auto or a=GAIN,b=READVAR with numbers >= 0 (var = a*DN + b)", s)
+		}
+		switch k {
+		case "a":
+			m.A = x
+		case "b":
+			m.B = x
+		default:
+			return nil, usagef("--noise %q: unknown key %q (use a and b)", s, k)
+		}
+		seen[k] = true
+	}
+	if !seen["a"] || !seen["b"] {
+		return nil, usagef("--noise %q: give both a and b, e.g. a=0.4,b=9", s)
+	}
+	if m.A == 0 && m.B == 0 {
+		return nil, usagef("--noise %q: a and b cannot both be 0", s)
+	}
+	m.Floor = math.Max(1e-6, 0.01*m.B)
+	return m, nil
 }
 
 // checkPaths refuses OUTPUT == INPUT and a missing output directory before
@@ -303,7 +381,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	if j.reportPath != "" {
 		full := fullReport{Input: j.in, Output: j.out, Format: string(j.format), OutputType: om.DataType,
 			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: "restored (deconvolved) image; keep the original", Step: rep}
-		if err := writeJSON(j.reportPath, full); err != nil {
+		if err := writeJSON("--report", j.reportPath, full); err != nil {
 			dst.Abort()
 			return nil, err
 		}
@@ -366,14 +444,14 @@ func outputNoData(meta raster.Meta, bands []int, j *restoreJob) (float64, bool) 
 	return math.NaN(), true
 }
 
-func writeJSON(path string, v any) error {
+func writeJSON(flag, path string, v any) error {
 	b, err := json.MarshalIndent(v, "", "  ")
 	if err != nil {
 		return err
 	}
 	tmp := path + ".tmp"
 	if err := os.WriteFile(tmp, append(b, '\n'), 0o644); err != nil {
-		return usagef("--report %s: %v", path, errors.Unwrap(err))
+		return usagef("%s %s: %v", flag, path, errors.Unwrap(err))
 	}
 	return os.Rename(tmp, path)
 }
@@ -381,7 +459,7 @@ func writeJSON(path string, v any) error {
 // recordProcessing adds limpid's processing metadata to the output.
 func recordProcessing(dst *raster.GDALWriter, rep *step.Report) error {
 	params, _ := json.Marshal(map[string]any{
-		"smooth": rep.Smooth, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
+		"smooth": rep.Smooth, "smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
 		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,
 	})
 	items := [][2]string{
@@ -397,11 +475,19 @@ func recordProcessing(dst *raster.GDALWriter, rep *step.Report) error {
 		}
 	}
 	for i, b := range rep.Bands {
-		for _, it := range [][2]string{
+		items := [][2]string{
 			{"LIMPID_SOURCE_BAND", strconv.Itoa(b.SourceBand)},
 			{"LIMPID_BACKGROUND", strconv.FormatFloat(b.Background, 'g', -1, 64)},
 			{"LIMPID_ITERATIONS_MAX", strconv.Itoa(b.MaxIterations)},
-		} {
+		}
+		if b.Choice != nil {
+			items = append(items, [2]string{"LIMPID_SMOOTH_CHOSEN", strconv.FormatFloat(b.Choice.Smooth, 'g', -1, 64)},
+				[2]string{"LIMPID_ITERATIONS_CHOSEN", strconv.Itoa(b.Choice.Iterations)})
+		}
+		if b.Noise != nil {
+			items = append(items, [2]string{"LIMPID_NOISE", fmt.Sprintf("var = %g * DN + %g (%s)", b.Noise.A, b.Noise.B, b.Noise.Source)})
+		}
+		for _, it := range items {
 			if err := dst.SetBandMetadata(i, it[0], it[1]); err != nil {
 				return err
 			}

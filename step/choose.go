@@ -1,0 +1,605 @@
+package step
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"sort"
+	"sync"
+
+	"limpid/psf"
+	"limpid/raster"
+)
+
+// Stop rules.
+const (
+	StopChange      = "change"      // relative L1 change below Tolerance, or the cap
+	StopAuto        = "auto"        // risk minimum (patience RiskPatience)
+	StopDiscrepancy = "discrepancy" // Morozov with the estimated noise
+)
+
+// Choice scopes.
+const (
+	ChooseGlobal  = "global"
+	ChoosePerTile = "per-tile"
+)
+
+// Choice records how a band's smoothing and stop were chosen.
+type Choice struct {
+	// Smooth and Iterations are the global choice (per-tile: the medians of
+	// the smoothed tile map).
+	Smooth     float64 `json:"smooth"`
+	Iterations int     `json:"iterations"`
+	Rule       string  `json:"rule"`
+	// TilesUsed is the number of tiles whose risk curves entered.
+	TilesUsed int `json:"tiles_used"`
+	// PredictionTiles counts the tiles that used the prediction-domain
+	// fallback (masked or asymmetric PSF); they enter the choice only when
+	// no tile could use the DCT estimate.
+	PredictionTiles int               `json:"prediction_domain_tiles"`
+	Candidates      []CandidateReport `json:"candidates"`
+	// TileChoices is the smoothed per-tile map (per-tile mode only).
+	TileChoices []TileChoice `json:"tile_choices,omitempty"`
+}
+
+// CandidateReport summarises one bandwidth over the tiles used.
+type CandidateReport struct {
+	Smooth float64 `json:"smooth"`
+	// Risk is the sum over tiles of each tile's minimum risk (each tile's
+	// R is defined up to its own constant ||Q x||^2, the same for every
+	// candidate, so sums compare across candidates).
+	Risk float64 `json:"risk"`
+	// BestIterations is the valid-pixel-weighted median of the tiles'
+	// risk-minimising iteration.
+	BestIterations int `json:"best_iterations"`
+	// Curve is the summed risk at the iterations every tile evaluated:
+	// pairs [k, R_k].
+	Curve [][2]float64 `json:"curve"`
+	// Skipped is true when some tile did not run this bandwidth (its risk
+	// had already risen at a smaller one).
+	Skipped bool `json:"skipped,omitempty"`
+}
+
+// TileChoice is one tile's (smoothed) choice.
+type TileChoice struct {
+	Col        int     `json:"col"`
+	Row        int     `json:"row"`
+	Smooth     float64 `json:"smooth"`
+	Iterations int     `json:"iterations"`
+}
+
+// chooseMaxTiles bounds the tiles a global choice and the noise fit look
+// at: an even 4 x 4 grid of the tile plan (all tiles of smaller scenes).
+const chooseMaxTiles = 4
+
+// noiseSamplesPerBand bounds the noise fit's memory (12 bytes a sample).
+const noiseSamplesPerBand = 1 << 20
+
+// sampleTiles returns which tiles of the plan the global passes use.
+func sampleTiles(p Plan) map[[2]int]bool {
+	pick := func(n int) []int {
+		if n <= chooseMaxTiles {
+			out := make([]int, n)
+			for i := range out {
+				out[i] = i
+			}
+			return out
+		}
+		var out []int
+		for i := 0; i < chooseMaxTiles; i++ {
+			out = append(out, int((float64(i)+0.5)*float64(n)/chooseMaxTiles))
+		}
+		return out
+	}
+	m := map[[2]int]bool{}
+	for _, r := range pick(len(p.Rows)) {
+		for _, c := range pick(len(p.Cols)) {
+			m[[2]int{c, r}] = true
+		}
+	}
+	return m
+}
+
+// pass runs the tile loop over the whole scene with solver and discards the
+// output (the noise and choice passes).
+func (r *runner) pass(ctx context.Context, solver Solver) error {
+	rep := *r.rep
+	rep.Bands = append([]BandReport(nil), r.rep.Bands...)
+	for i := range rep.Bands {
+		rep.Bands[i].Tiles = nil
+	}
+	cfg := r.cfg
+	cfg.Progress = nil
+	sub := &runner{cfg: cfg, plan: r.plan, src: r.src, dst: discard{}, bands: r.bands, valid: r.valid, rep: &rep, solver: solver}
+	return sub.run(ctx)
+}
+
+type discard struct{}
+
+func (discard) WriteRows(int, int, [][]float32) error { return nil }
+func (discard) Commit() error                         { return nil }
+func (discard) Abort()                                {}
+
+// noiseSolver samples the window each chosen tile owns (no halo).
+type noiseSolver struct {
+	plan    Plan
+	tiles   map[[2]int]bool
+	mu      sync.Mutex
+	samples map[TileKey]*NoiseSampler
+	limit   int
+}
+
+func (s *noiseSolver) Name() string { return "noise" }
+
+func (s *noiseSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
+	for i := range dst[:p.W*p.H] {
+		dst[i] = 0
+	}
+	k := p.Key
+	if !s.tiles[[2]int{k.Col, k.Row}] {
+		return Result{Flat: true}, nil
+	}
+	pl := s.plan
+	ix, iy := pl.InSpan(pl.Cols, k.Col), pl.InSpan(pl.Rows, k.Row)
+	cx, cy := pl.Cols[k.Col], pl.Rows[k.Row]
+	valid := make([]bool, p.W*p.H)
+	for i, m := range p.Mask[:p.W*p.H] {
+		valid[i] = m != 0
+	}
+	ns := &NoiseSampler{Limit: s.limit}
+	ns.Add(p.D, valid, p.W, p.H, cx.Start-ix.Start, cy.Start-iy.Start, cx.End-ix.Start, cy.End-iy.Start)
+	s.mu.Lock()
+	s.samples[k] = ns
+	s.mu.Unlock()
+	return Result{Flat: true}, nil
+}
+
+// estimateNoise fits one noise model per band from the sample tiles.
+func (r *runner) estimateNoise(ctx context.Context) ([]NoiseModel, error) {
+	tiles := sampleTiles(r.plan)
+	ns := &noiseSolver{plan: r.plan, tiles: tiles, samples: map[TileKey]*NoiseSampler{}, limit: max(1, noiseSamplesPerBand/len(tiles))}
+	if err := r.pass(ctx, ns); err != nil {
+		return nil, err
+	}
+	out := make([]NoiseModel, len(r.bands))
+	for b := range r.bands {
+		var keys []TileKey
+		for k := range ns.samples {
+			if k.Band == b {
+				keys = append(keys, k)
+			}
+		}
+		sortKeys(keys)
+		all := &NoiseSampler{}
+		for _, k := range keys {
+			s := ns.samples[k]
+			all.mean = append(all.mean, s.mean...)
+			all.res = append(all.res, s.res...)
+			all.grad = append(all.grad, s.grad...)
+		}
+		m, err := all.Fit()
+		if err != nil {
+			return nil, fmt.Errorf("%w: band %d: %v (give --noise a=...,b=...)", ErrConfig, r.bands[b]+1, err)
+		}
+		out[b] = m
+	}
+	return out, nil
+}
+
+func sortKeys(k []TileKey) {
+	sort.Slice(k, func(i, j int) bool {
+		a, b := k[i], k[j]
+		if a.Band != b.Band {
+			return a.Band < b.Band
+		}
+		if a.Row != b.Row {
+			return a.Row < b.Row
+		}
+		return a.Col < b.Col
+	})
+}
+
+// EstimateNoise fits the per-band noise model of a scene the way Restore
+// does (sample tiles of the plan, invalid pixels excluded), for `limpid
+// noise`. Only Tile, Overlap, Workers, Saturated of cfg are used.
+func EstimateNoise(ctx context.Context, src raster.Reader, bands []int, cfg Config) ([]NoiseModel, error) {
+	if cfg.Tile == 0 {
+		cfg.Tile = DefaultTile
+	}
+	if cfg.Overlap < 0 {
+		cfg.Overlap = 16
+	}
+	if cfg.Workers <= 0 {
+		cfg.Workers = 1
+	}
+	meta := src.Meta()
+	plan, err := NewPlan(meta.Width, meta.Height, cfg.Tile, cfg.Overlap)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+	}
+	r := &runner{cfg: cfg, plan: plan, src: src, bands: bands, rep: &Report{}}
+	for _, b := range bands {
+		if b < 0 || b >= len(meta.Bands) {
+			return nil, fmt.Errorf("%w: band %d does not exist (input has %d)", ErrConfig, b+1, len(meta.Bands))
+		}
+		bi := meta.Bands[b]
+		r.valid = append(r.valid, makeValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated))
+		r.rep.Bands = append(r.rep.Bands, BandReport{})
+	}
+	return r.estimateNoise(ctx)
+}
+
+// chooser runs the candidate bandwidths with the risk estimate on tiles.
+type chooser struct {
+	cfg     *Config
+	plan    Plan
+	tiles   map[[2]int]bool // nil: every tile
+	noise   []NoiseModel
+	grids   []*GridEMS // per candidate
+	smooths []float64
+	seed    uint64
+
+	mu      sync.Mutex
+	weights map[[2]int]*riskWeights
+	noDCT   map[[2]int]bool
+	runs    map[TileKey][]riskRun
+	valid   map[TileKey]int
+}
+
+func (c *chooser) Name() string { return "choose" }
+
+func (c *chooser) riskWeights(w, h int) *riskWeights {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	key := [2]int{w, h}
+	if rw, ok := c.weights[key]; ok || c.noDCT[key] {
+		return rw
+	}
+	rw, ok := newRiskWeights(c.cfg.PSF, w, h)
+	if !ok {
+		c.noDCT[key] = true
+		return nil
+	}
+	c.weights[key] = rw
+	return rw
+}
+
+func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
+	n := p.W * p.H
+	for i := range dst[:n] {
+		dst[i] = 0
+	}
+	k := p.Key
+	if c.tiles != nil && !c.tiles[[2]int{k.Col, k.Row}] {
+		return Result{Flat: true}, nil
+	}
+	if ws.auto == nil {
+		ws.auto = &autoWork{}
+	}
+	cp := c.crop(ws.auto, p)
+	rp := setupRisk(ws.auto, cp, &c.noise[k.Band], c.riskWeights(cp.W, cp.H), c.seed, NoiseInflation)
+	if rp.nValid == 0 || !(rp.flux > 0) {
+		return Result{Flat: true}, nil
+	}
+	auto := c.cfg.Stop == StopAuto
+	runs := make([]riskRun, len(c.grids))
+	for i := range runs {
+		runs[i] = riskRun{Smooth: c.smooths[i], BestR: math.Inf(1), Mode: "skipped"}
+	}
+	for i, g := range c.grids {
+		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, false)
+		if err != nil {
+			return Result{}, err
+		}
+		if !auto {
+			// Fixed stop: the candidate is judged at the cap.
+			run.BestK, run.BestR = c.cfg.Iterations, run.Risk[len(run.Risk)-1]
+		}
+		run.Smooth = c.smooths[i]
+		runs[i] = run
+		// Candidates go from the least to the most smoothing; the risk
+		// has been unimodal in the bandwidth on every scene measured
+		// (DEVELOPERS.md), so the first rise ends the search.
+		if i > 0 && run.BestR > runs[i-1].BestR {
+			break
+		}
+	}
+	c.mu.Lock()
+	c.runs[k] = runs
+	c.valid[k] = rp.nValid
+	c.mu.Unlock()
+	return Result{Flat: true}, nil
+}
+
+// crop returns the part of the tile inside the scene. A halo mirrored at
+// the scene border repeats the same pixels and noise: the risk estimate
+// over such a tile weighs the border strips several times and, measured on
+// smooth relief, chose 8 iterations where the interior's optimum was 3.
+// The choice therefore sees each scene pixel once; the final pass restores
+// the full tile with the chosen settings.
+func (c *chooser) crop(aw *autoWork, p *Problem) *Problem {
+	k := p.Key
+	ix, iy := c.plan.InSpan(c.plan.Cols, k.Col), c.plan.InSpan(c.plan.Rows, k.Row)
+	x0, y0 := max(0, -ix.Start), max(0, -iy.Start)
+	x1, y1 := min(p.W, c.plan.W-ix.Start), min(p.H, c.plan.H-iy.Start)
+	if x0 == 0 && y0 == 0 && x1 == p.W && y1 == p.H {
+		return p
+	}
+	cw, chh := x1-x0, y1-y0
+	aw.cropD, aw.cropM = grow(aw.cropD, cw*chh), grow(aw.cropM, cw*chh)
+	for y := 0; y < chh; y++ {
+		copy(aw.cropD[y*cw:(y+1)*cw], p.D[(y0+y)*p.W+x0:])
+		copy(aw.cropM[y*cw:(y+1)*cw], p.Mask[(y0+y)*p.W+x0:])
+	}
+	return &Problem{D: aw.cropD, Mask: aw.cropM, W: cw, H: chh, Background: p.Background, Key: k}
+}
+
+// summarise turns one band's tile runs into its Choice.
+func (c *chooser) summarise(band int) Choice {
+	var keys []TileKey
+	for k := range c.runs {
+		if k.Band == band {
+			keys = append(keys, k)
+		}
+	}
+	sortKeys(keys)
+	ch := Choice{TilesUsed: len(keys)}
+	if c.cfg.Stop == StopAuto {
+		ch.Rule = fmt.Sprintf("risk minimum (stop %d iterations after it, cap %d)", RiskPatience, c.cfg.Iterations)
+	} else {
+		ch.Rule = fmt.Sprintf("risk at the stop (%s, cap %d)", c.cfg.Stop, c.cfg.Iterations)
+	}
+	if len(keys) == 0 {
+		ch.Smooth, ch.Iterations = c.cfg.Smooth, c.cfg.Iterations
+		ch.Rule = "no tile with signal: the given smoothing and cap"
+		return ch
+	}
+	// The two risk estimates weight errors differently (Q^2 against H^T H),
+	// so they are not summed together: tiles on the DCT estimate decide
+	// when there are any.
+	var dctKeys []TileKey
+	for _, k := range keys {
+		if c.runs[k][0].Mode == "prediction" {
+			ch.PredictionTiles++
+		} else {
+			dctKeys = append(dctKeys, k)
+		}
+	}
+	if len(dctKeys) > 0 {
+		keys = dctKeys
+	}
+	ch.TilesUsed = len(keys)
+	best := -1
+	for i, s := range c.smooths {
+		cr := CandidateReport{Smooth: s}
+		var ks []weighted
+		minLen := math.MaxInt
+		for _, k := range keys {
+			run := c.runs[k][i]
+			cr.Risk += run.BestR
+			ks = append(ks, weighted{float64(run.BestK), float64(c.valid[k])})
+			minLen = min(minLen, len(run.Risk))
+		}
+		if math.IsInf(cr.Risk, 1) {
+			// Skipped on some tile (its risk rose at a smaller
+			// bandwidth): not a candidate for the band.
+			cr.Skipped, cr.Risk, cr.BestIterations = true, 0, 0
+			ch.Candidates = append(ch.Candidates, cr)
+			continue
+		}
+		cr.BestIterations = int(weightedMedian(ks))
+		for it := 1; it <= minLen; it++ {
+			var sum float64
+			for _, k := range keys {
+				sum += c.runs[k][i].Risk[it-1]
+			}
+			if !math.IsNaN(sum) {
+				cr.Curve = append(cr.Curve, [2]float64{float64(it), sum})
+			}
+		}
+		ch.Candidates = append(ch.Candidates, cr)
+		if best < 0 || cr.Risk < ch.Candidates[best].Risk {
+			best = i
+		}
+	}
+	if best < 0 {
+		ch.Smooth, ch.Iterations = c.smooths[0], max(1, ch.Candidates[0].BestIterations)
+		return ch
+	}
+	ch.Smooth = ch.Candidates[best].Smooth
+	ch.Iterations = max(1, ch.Candidates[best].BestIterations)
+	return ch
+}
+
+type weighted struct{ v, w float64 }
+
+func weightedMedian(x []weighted) float64 {
+	if len(x) == 0 {
+		return math.NaN()
+	}
+	sort.Slice(x, func(i, j int) bool { return x[i].v < x[j].v })
+	var tot float64
+	for _, e := range x {
+		tot += e.w
+	}
+	var acc float64
+	for _, e := range x {
+		acc += e.w
+		if acc >= tot/2 {
+			return e.v
+		}
+	}
+	return x[len(x)-1].v
+}
+
+// tileMap returns the per-tile choices of a band, smoothed by a 3 x 3
+// median over the tile grid (bandwidth and log iterations separately), so
+// that neighbouring tiles do not jump between very different settings.
+func (c *chooser) tileMap(band int, fallback Choice) map[[2]int]TileChoice {
+	nc, nr := len(c.plan.Cols), len(c.plan.Rows)
+	raw := map[[2]int]TileChoice{}
+	for k, runs := range c.runs {
+		if k.Band != band {
+			continue
+		}
+		bi := 0
+		for i := range runs {
+			if runs[i].BestR < runs[bi].BestR {
+				bi = i
+			}
+		}
+		raw[[2]int{k.Col, k.Row}] = TileChoice{Col: k.Col, Row: k.Row, Smooth: runs[bi].Smooth, Iterations: max(1, runs[bi].BestK)}
+	}
+	out := map[[2]int]TileChoice{}
+	for row := 0; row < nr; row++ {
+		for col := 0; col < nc; col++ {
+			var es, ks []float64
+			for dy := -1; dy <= 1; dy++ {
+				for dx := -1; dx <= 1; dx++ {
+					if t, ok := raw[[2]int{col + dx, row + dy}]; ok {
+						es = append(es, t.Smooth)
+						ks = append(ks, math.Log(float64(t.Iterations)))
+					}
+				}
+			}
+			tc := TileChoice{Col: col, Row: row, Smooth: fallback.Smooth, Iterations: fallback.Iterations}
+			if len(es) > 0 {
+				tc.Smooth = lowMedian(es)
+				tc.Iterations = max(1, int(math.Round(math.Exp(lowMedian(ks)))))
+			}
+			out[[2]int{col, row}] = tc
+		}
+	}
+	return out
+}
+
+// lowMedian is the lower median (an element of the set, so a smoothed
+// bandwidth stays one of the candidates).
+func lowMedian(v []float64) float64 {
+	sort.Float64s(v)
+	return v[(len(v)-1)/2]
+}
+
+// newGrid builds a plain GridEMS for (eps, k).
+func newGrid(k *psf.Kernel, H *Conv, eps float64, iters int, tol float64) *GridEMS {
+	g := &GridEMS{H: H, Iterations: iters, Tolerance: tol}
+	if sk := SmoothingKernel(eps); sk != nil {
+		g.S = NewSeparableConv(sk, sk)
+	}
+	return g
+}
+
+// bandSolver dispatches tiles to a solver per band, or per tile.
+type bandSolver struct {
+	byBand []Solver
+	byTile []map[[2]int]Solver // per band; nil: use byBand
+}
+
+func (b *bandSolver) Name() string { return b.byBand[0].Name() }
+
+func (b *bandSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
+	k := p.Key
+	if b.byTile != nil && b.byTile[k.Band] != nil {
+		if s, ok := b.byTile[k.Band][[2]int{k.Col, k.Row}]; ok {
+			return s.Solve(ctx, ws, p, dst)
+		}
+	}
+	return b.byBand[k.Band].Solve(ctx, ws, p, dst)
+}
+
+// regularise estimates the noise where needed and chooses the smoothing and
+// stop per band; it returns the solver for the final pass.
+func (r *runner) regularise(ctx context.Context) (Solver, error) {
+	cfg := &r.cfg
+	nb := len(r.bands)
+	noise := make([]NoiseModel, nb)
+	if cfg.Noise != nil {
+		for i := range noise {
+			noise[i] = *cfg.Noise
+			noise[i].Source = "given"
+		}
+	} else {
+		var err error
+		if noise, err = r.estimateNoise(ctx); err != nil {
+			return nil, err
+		}
+	}
+	for i := range noise {
+		m := noise[i]
+		r.rep.Bands[i].Noise = &m
+	}
+	H := NewConv(cfg.PSF)
+	bs := &bandSolver{byBand: make([]Solver, nb)}
+	if !cfg.SmoothAuto && cfg.Stop != StopAuto {
+		// Discrepancy stop with a fixed bandwidth.
+		for b := range bs.byBand {
+			g := newGrid(cfg.PSF, H, cfg.Smooth, cfg.Iterations, 0)
+			g.Noise, g.Tau = &noise[b], DiscrepancyTau
+			bs.byBand[b] = g
+		}
+		return bs, nil
+	}
+	smooths := []float64{cfg.Smooth}
+	if cfg.SmoothAuto {
+		smooths = AutoSmooths
+	}
+	c := &chooser{cfg: cfg, plan: r.plan, noise: noise, smooths: smooths, seed: cfg.Seed,
+		weights: map[[2]int]*riskWeights{}, noDCT: map[[2]int]bool{}, runs: map[TileKey][]riskRun{}, valid: map[TileKey]int{}}
+	if cfg.Choose != ChoosePerTile {
+		c.tiles = sampleTiles(r.plan)
+	}
+	for _, e := range smooths {
+		c.grids = append(c.grids, newGrid(cfg.PSF, H, e, cfg.Iterations, 0))
+	}
+	if err := r.pass(ctx, c); err != nil {
+		return nil, err
+	}
+	tol := 0.0
+	if cfg.Stop == StopChange {
+		tol = cfg.Tolerance
+	}
+	cache := map[[2]float64]Solver{}
+	solverFor := func(eps float64, k int) Solver {
+		key := [2]float64{eps, float64(k)}
+		if s, ok := cache[key]; ok {
+			return s
+		}
+		it := k
+		if cfg.Stop != StopAuto {
+			it = cfg.Iterations
+		}
+		s := newGrid(cfg.PSF, H, eps, it, tol)
+		cache[key] = s
+		return s
+	}
+	if cfg.Choose == ChoosePerTile {
+		bs.byTile = make([]map[[2]int]Solver, nb)
+	}
+	for b := 0; b < nb; b++ {
+		ch := c.summarise(b)
+		bs.byBand[b] = solverFor(ch.Smooth, ch.Iterations)
+		if cfg.Choose == ChoosePerTile {
+			m := c.tileMap(b, ch)
+			bs.byTile[b] = map[[2]int]Solver{}
+			var ks []weighted
+			var es []float64
+			for row := range r.plan.Rows {
+				for col := range r.plan.Cols {
+					tc := m[[2]int{col, row}]
+					ch.TileChoices = append(ch.TileChoices, tc)
+					bs.byTile[b][[2]int{col, row}] = solverFor(tc.Smooth, tc.Iterations)
+					ks = append(ks, weighted{float64(tc.Iterations), 1})
+					es = append(es, tc.Smooth)
+				}
+			}
+			ch.Smooth, ch.Iterations = lowMedian(es), int(weightedMedian(ks))
+			ch.Rule += ", per tile, 3x3 median-smoothed map"
+		}
+		if cfg.Stop != StopAuto {
+			ch.Iterations = cfg.Iterations
+		}
+		chc := ch
+		r.rep.Bands[b].Choice = &chc
+	}
+	return bs, nil
+}
