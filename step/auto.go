@@ -42,12 +42,16 @@ import (
 // section 4.3).
 var riskLambda = 0.01
 
+// riskPlateau: an improvement smaller than this fraction of the risk's total
+// decrease so far does not restart the patience (measured in DEVELOPERS.md,
+// "Automatic regularisation").
+var riskPlateau = 1e-3
+
 const (
 	// RiskPatience: a run stops this many iterations after its last
 	// significant risk improvement (one larger than riskPlateau times the
 	// total decrease so far).
 	RiskPatience = 20
-	riskPlateau  = 1e-3
 	// AutoCap is the default iteration cap with --stop auto.
 	AutoCap = 200
 	// riskMaskedFraction: above this share of invalid pixels the DCT
@@ -260,7 +264,11 @@ func mix64(x uint64) uint64 {
 // runRisk runs EMS with eps = g.S's bandwidth and its derivative for up to
 // capK iterations, stopping RiskPatience iterations after the risk minimum
 // when patience is true. With keep, aw.best holds the best iterate.
-func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, g *GridEMS, capK int, patience, keep bool) (riskRun, error) {
+//
+// beat is the best risk another candidate reached on this tile (+Inf for
+// none): with patience, a run whose minimum is above it stops as soon as
+// its risk rises, since it can no longer win.
+func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, g *GridEMS, capK int, patience, keep bool, beat float64) (riskRun, error) {
 	p := rp.p
 	w, h := p.W, p.H
 	n := w * h
@@ -308,6 +316,9 @@ func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, 
 			}
 		}
 		if patience && k-lastGain >= RiskPatience {
+			break
+		}
+		if patience && r > run.BestR && run.BestR > beat {
 			break
 		}
 	}

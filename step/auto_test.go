@@ -259,7 +259,7 @@ func TestRiskUnbiasedGaussian(t *testing.T) {
 		p := &Problem{D: d, Mask: ones(n), W: w, H: h, Key: TileKey{Col: m}}
 		rp := setupRisk(aw, p, nm, rw, 1, 1)
 		// Re-run the recursion here to get every f_k for the true error.
-		run, err := runRisk(context.Background(), ws, aw, rp, g, K, false, false)
+		run, err := runRisk(context.Background(), ws, aw, rp, g, K, false, false, math.Inf(1))
 		if err != nil {
 			t.Fatal(err)
 		}

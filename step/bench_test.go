@@ -2,6 +2,7 @@ package step
 
 import (
 	"context"
+	"math"
 	"math/rand/v2"
 	"testing"
 
@@ -76,11 +77,11 @@ func BenchmarkRiskIteration512(b *testing.B) {
 	p := &Problem{D: make([]float32, n*n), Mask: ones(n * n), W: n, H: n}
 	copy(p.D, d)
 	rp := setupRisk(aw, p, nm, rw, 1, NoiseInflation)
-	runRisk(context.Background(), &ws, aw, rp, g, iters, false, false)
+	runRisk(context.Background(), &ws, aw, rp, g, iters, false, false, math.Inf(1))
 	b.ReportAllocs()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
-		if _, err := runRisk(context.Background(), &ws, aw, rp, g, iters, false, false); err != nil {
+		if _, err := runRisk(context.Background(), &ws, aw, rp, g, iters, false, false, math.Inf(1)); err != nil {
 			b.Fatal(err)
 		}
 	}

@@ -179,7 +179,18 @@ func (r *runner) estimateNoise(ctx context.Context) ([]NoiseModel, error) {
 		}
 		m, err := all.Fit()
 		if err != nil {
-			return nil, fmt.Errorf("%w: band %d: %v (give --noise a=...,b=...)", ErrConfig, r.bands[b]+1, err)
+			// Fallbacks: one constant variance from Immerkaer's estimate
+			// over the residuals there are; with none at all, no model
+			// (the band is then restored with the fixed settings).
+			m = NoiseModel{Source: "none: " + err.Error(), Samples: len(all.res)}
+			if len(all.res) >= 9 {
+				var s float64
+				for _, e := range all.res {
+					s += math.Abs(float64(e))
+				}
+				sig := math.Sqrt(math.Pi/2) * s / float64(len(all.res))
+				m = NoiseModel{B: sig * sig, Floor: math.Max(1e-6, 0.1*sig*sig), Source: "immerkaer (too few pixels for the intensity fit)", Samples: len(all.res)}
+			}
 		}
 		out[b] = m
 	}
@@ -239,6 +250,11 @@ type chooser struct {
 	smooths []float64
 	seed    uint64
 
+	// keep: the scene is one tile, so the best candidate's best iterate
+	// is the answer and no final pass is needed.
+	keep bool
+	kept []*keptTile // per band
+
 	mu      sync.Mutex
 	weights map[[2]int]*riskWeights
 	noDCT   map[[2]int]bool
@@ -273,6 +289,9 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 	if c.tiles != nil && !c.tiles[[2]int{k.Col, k.Row}] {
 		return Result{Flat: true}, nil
 	}
+	if nm := c.noise[k.Band]; nm.A+nm.B <= 0 {
+		return Result{Flat: true}, nil
+	}
 	if ws.auto == nil {
 		ws.auto = &autoWork{}
 	}
@@ -286,10 +305,18 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 	for i := range runs {
 		runs[i] = riskRun{Smooth: c.smooths[i], BestR: math.Inf(1), Mode: "skipped"}
 	}
+	beat := math.Inf(1)
+	var kept []float32
 	for i, g := range c.grids {
-		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, false)
+		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, beat)
 		if err != nil {
 			return Result{}, err
+		}
+		if run.BestR < beat {
+			beat = run.BestR
+			if c.keep {
+				kept = append(kept[:0], ws.auto.best[:cp.W*cp.H]...)
+			}
 		}
 		if !auto {
 			// Fixed stop: the candidate is judged at the cap.
@@ -307,6 +334,9 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 	c.mu.Lock()
 	c.runs[k] = runs
 	c.valid[k] = rp.nValid
+	if c.keep && auto {
+		c.kept[k.Band] = &keptTile{f: kept, w: cp.W, h: cp.H}
+	}
 	c.mu.Unlock()
 	return Result{Flat: true}, nil
 }
@@ -530,9 +560,19 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 	}
 	H := NewConv(cfg.PSF)
 	bs := &bandSolver{byBand: make([]Solver, nb)}
+	usable := func(b int) bool { return noise[b].A+noise[b].B > 0 }
+	fixed := func(b int) {
+		bs.byBand[b] = newGrid(cfg.PSF, H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
+		r.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
+			Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", noise[b].Source, DefaultTolerance)}
+	}
 	if !cfg.SmoothAuto && cfg.Stop != StopAuto {
 		// Discrepancy stop with a fixed bandwidth.
 		for b := range bs.byBand {
+			if !usable(b) {
+				fixed(b)
+				continue
+			}
 			g := newGrid(cfg.PSF, H, cfg.Smooth, cfg.Iterations, 0)
 			g.Noise, g.Tau = &noise[b], DiscrepancyTau
 			bs.byBand[b] = g
@@ -548,6 +588,8 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 	if cfg.Choose != ChoosePerTile {
 		c.tiles = sampleTiles(r.plan)
 	}
+	c.keep = r.plan.NTiles() == 1 && cfg.Stop == StopAuto
+	c.kept = make([]*keptTile, nb)
 	for _, e := range smooths {
 		c.grids = append(c.grids, newGrid(cfg.PSF, H, e, cfg.Iterations, 0))
 	}
@@ -576,8 +618,17 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		bs.byTile = make([]map[[2]int]Solver, nb)
 	}
 	for b := 0; b < nb; b++ {
+		if !usable(b) {
+			fixed(b)
+			continue
+		}
 		ch := c.summarise(b)
 		bs.byBand[b] = solverFor(ch.Smooth, ch.Iterations)
+		if kt := c.kept[b]; kt != nil && cfg.Choose != ChoosePerTile {
+			kt.res = Result{Iterations: ch.Iterations}
+			kt.x0, kt.y0 = -r.plan.InSpan(r.plan.Cols, 0).Start, -r.plan.InSpan(r.plan.Rows, 0).Start
+			bs.byBand[b] = kt
+		}
 		if cfg.Choose == ChoosePerTile {
 			m := c.tileMap(b, ch)
 			bs.byTile[b] = map[[2]int]Solver{}
@@ -602,4 +653,26 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		r.rep.Bands[b].Choice = &chc
 	}
 	return bs, nil
+}
+
+// keptTile is a single-tile band's chosen iterate, computed on the scene
+// (without the halo) during the choice; it is the solver of the final pass
+// and places the iterate in the tile's window.
+type keptTile struct {
+	f      []float32
+	w, h   int
+	x0, y0 int
+	res    Result
+}
+
+func (kt *keptTile) Name() string { return "grid" }
+
+func (kt *keptTile) Solve(_ context.Context, _ *Workspace, p *Problem, dst []float32) (Result, error) {
+	for i := range dst[:p.W*p.H] {
+		dst[i] = 0
+	}
+	for y := 0; y < kt.h; y++ {
+		copy(dst[(kt.y0+y)*p.W+kt.x0:(kt.y0+y)*p.W+kt.x0+kt.w], kt.f[y*kt.w:(y+1)*kt.w])
+	}
+	return kt.res, nil
 }

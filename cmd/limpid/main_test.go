@@ -247,6 +247,14 @@ func TestBadInputs(t *testing.T) {
 		{"bad iterations", []string{"--psf", psfOK, "--iterations", "0", obs, "OUT"}, "--iterations"},
 		{"bad background", []string{"--psf", psfOK, "--background", "dark", obs, "OUT"}, "--background"},
 		{"bad method", []string{"--psf", psfOK, "--method", "magic", obs, "OUT"}, "--method"},
+		{"negative smooth", []string{"--psf", psfOK, "--smooth", "-1", obs, "OUT"}, "--smooth"},
+		{"word smooth", []string{"--psf", psfOK, "--smooth", "some", obs, "OUT"}, "--smooth"},
+		{"bad stop", []string{"--psf", psfOK, "--stop", "never", obs, "OUT"}, "--stop"},
+		{"bad choose", []string{"--psf", psfOK, "--choose", "each", obs, "OUT"}, "--choose"},
+		{"bad noise", []string{"--psf", psfOK, "--noise", "a=x,b=2", obs, "OUT"}, "--noise"},
+		{"half noise", []string{"--psf", psfOK, "--noise", "a=0.4", obs, "OUT"}, "--noise"},
+		{"zero noise", []string{"--psf", psfOK, "--noise", "a=0,b=0", obs, "OUT"}, "--noise"},
+		{"discrepancy with auto smooth", []string{"--psf", psfOK, "--stop", "discrepancy", obs, "OUT"}, "--stop discrepancy"},
 		{"same as input", []string{"--psf", psfOK, copyIn, copyIn}, "is the INPUT"},
 		{"missing directory", []string{"--psf", psfOK, obs, filepath.Join(dir, "no", "such", "out.tif")}, "does not exist"},
 		{"flags after args", []string{obs, "x.tif", "--psf", psfOK}, "after the flags"},
@@ -280,5 +288,47 @@ func TestBadInputs(t *testing.T) {
 				t.Fatalf("temporary files left: %v", leftovers)
 			}
 		})
+	}
+}
+
+// Source: the fixture's simulation (cmd/limpid/demo.go: Poisson-Gaussian
+// noise of gain 0.4 DN per electron and read noise 3 DN, 12-bit rounding),
+// so the variance is 0.4 DN + 9.08. The fitted slope must be within 10 %
+// (the noise model's accuracy bar is 0.9-1.1 on the variance); the offset is
+// too small against the shot noise of 500-3000 DN scenes to check.
+func TestNoiseCommand(t *testing.T) {
+	js := filepath.Join(t.TempDir(), "noise.json")
+	code, stdout, stderr := limpid(t, nil, "noise", "--json", js, fixture("observed.tif"))
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	if !strings.Contains(stdout, "band") || strings.Count(stdout, "\n") != 5 {
+		t.Errorf("table on stdout should have a header and 4 bands:\n%s", stdout)
+	}
+	var got struct {
+		Bands []struct {
+			Band int     `json:"band"`
+			A    float64 `json:"a"`
+			B    float64 `json:"b"`
+			Bins []any   `json:"bins"`
+		} `json:"bands"`
+	}
+	b, err := os.ReadFile(js)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(b, &got); err != nil {
+		t.Fatal(err)
+	}
+	if len(got.Bands) != 4 {
+		t.Fatalf("%d bands in the JSON", len(got.Bands))
+	}
+	for _, bd := range got.Bands {
+		if math.Abs(bd.A/0.4-1) > 0.10 || len(bd.Bins) < 10 {
+			t.Errorf("band %d: a = %.3f (want 0.4 within 10 %%), %d bins", bd.Band, bd.A, len(bd.Bins))
+		}
+	}
+	if code, _, stderr := limpid(t, nil, "noise", "a.tif", "b.tif"); code != 2 || !strings.Contains(stderr, "one INPUT") {
+		t.Errorf("two inputs: exit %d, %s", code, stderr)
 	}
 }
