@@ -102,7 +102,10 @@ func sampleTiles(p Plan) map[[2]int]bool {
 
 // pass runs the tile loop over the whole scene with solver and discards the
 // output (the noise and choice passes).
-func (r *runner) pass(ctx context.Context, solver Solver) error {
+func (r *runner) pass(ctx context.Context, solver Solver, what string) error {
+	if r.cfg.Stage != nil {
+		r.cfg.Stage(what)
+	}
 	rep := *r.rep
 	rep.Bands = append([]BandReport(nil), r.rep.Bands...)
 	for i := range rep.Bands {
@@ -158,7 +161,7 @@ func (s *noiseSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst 
 func (r *runner) estimateNoise(ctx context.Context) ([]NoiseModel, error) {
 	tiles := sampleTiles(r.plan)
 	ns := &noiseSolver{plan: r.plan, tiles: tiles, samples: map[TileKey]*NoiseSampler{}, limit: max(1, noiseSamplesPerBand/len(tiles))}
-	if err := r.pass(ctx, ns); err != nil {
+	if err := r.pass(ctx, ns, "estimating the noise model"); err != nil {
 		return nil, err
 	}
 	out := make([]NoiseModel, len(r.bands))
@@ -576,6 +579,8 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 			g := newGrid(cfg.PSF, H, cfg.Smooth, cfg.Iterations, 0)
 			g.Noise, g.Tau = &noise[b], DiscrepancyTau
 			bs.byBand[b] = g
+			r.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
+				Rule: fmt.Sprintf("discrepancy: per tile, the first iterate with residual <= %.2f^2 x summed noise variance (cap %d; tiles report their iterations)", DiscrepancyTau, cfg.Iterations)}
 		}
 		return bs, nil
 	}
@@ -593,7 +598,7 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 	for _, e := range smooths {
 		c.grids = append(c.grids, newGrid(cfg.PSF, H, e, cfg.Iterations, 0))
 	}
-	if err := r.pass(ctx, c); err != nil {
+	if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(smooths), cfg.Choose)); err != nil {
 		return nil, err
 	}
 	tol := 0.0

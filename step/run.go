@@ -64,6 +64,9 @@ type Config struct {
 	Noise *NoiseModel
 	// Progress, when set, is called after each strip with tiles done/total.
 	Progress func(done, total int)
+	// Stage, when set, is called when an extra pass over the scene starts
+	// (noise estimate, automatic choice) with a short description.
+	Stage func(what string)
 }
 
 // DefaultOverlap is the halo rule: 4 (r_H + r_S) rounded up to a multiple of

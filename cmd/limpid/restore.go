@@ -216,9 +216,6 @@ func parseRegularisation(c *cli.Context, cfg *step.Config) error {
 	default:
 		return usagef("--stop %q: use auto, discrepancy or change", st)
 	}
-	if cfg.SmoothAuto && cfg.Stop == step.StopChange && !c.IsSet("iterations") {
-		cfg.Iterations = step.DefaultIterations
-	}
 	if nz := c.String("noise"); nz != "auto" {
 		m, err := parseNoise(nz)
 		if err != nil {
@@ -369,6 +366,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	}
 	cfg := j.cfg
 	cfg.Progress = progress(stderr, len(bands)*tileCount(meta, cfg))
+	cfg.Stage = func(what string) { fmt.Fprintf(stderr, "limpid: %s\n", what) }
 	rep, err := step.Restore(ctx, src, bands, dst, cfg)
 	if err != nil {
 		dst.Abort()
