@@ -124,7 +124,7 @@ func TestWorkersByteIdentical(t *testing.T) {
 	var first []byte
 	for _, w := range []string{"1", "2", "7"} {
 		out := filepath.Join(dir, "r"+w+".tif")
-		code, _, stderr := limpid(t, nil, "restore", "--psf", "gaussian:sigma=1.4", "--tile", "64", "--iterations", "8", "--workers", w, fixture("observed.tif"), out)
+		code, _, stderr := limpid(t, nil, "restore", "--psf", "gaussian:sigma=1.4", "--tile", "64", "--iterations", "4", "--workers", w, fixture("observed.tif"), out)
 		if code != 0 {
 			t.Fatalf("workers %s: exit %d: %s", w, code, stderr)
 		}
