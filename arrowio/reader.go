@@ -234,13 +234,13 @@ func (r *Reader) bindBatch() (err error) {
 		if !ok {
 			return fail(name, "is not a utf8 array")
 		}
-		off, data := s.ValueOffsets(), s.ValueBytes()
-		if len(off) != n+1 && n > 0 {
-			return fail(name, "has %d string offsets for %d rows", len(off), n)
+		off, nbytes := s.ValueOffsets(), 0
+		if bufs := s.Data().Buffers(); len(bufs) > 2 && bufs[2] != nil {
+			nbytes = bufs[2].Len()
 		}
 		for i := 0; i+1 < len(off); i++ {
-			if off[i] < 0 || off[i+1] < off[i] || int(off[i+1]) > len(data) {
-				return &StreamError{Batch: r.batch, Row: i, Column: name, Err: fmt.Errorf("string offsets %d-%d are outside the %d bytes", off[i], off[i+1], len(data))}
+			if off[i] < 0 || off[i+1] < off[i] || int(off[i+1]) > nbytes {
+				return &StreamError{Batch: r.batch, Row: i, Column: name, Err: fmt.Errorf("string offsets %d-%d are outside the %d bytes", off[i], off[i+1], nbytes)}
 			}
 		}
 		if name == ColSceneID {
@@ -290,9 +290,14 @@ func (r *Reader) bindBatch() (err error) {
 			return fail(name, "has %d null pixel values (invalid pixels travel as NaN)", vals.NullN())
 		}
 		v := vals.Float32Values()
-		off := l.Offsets()
-		if len(off) != n+1 {
-			return fail(name, "has %d list offsets for %d rows", len(off), n)
+		off := l.Offsets() // the whole buffer: slice it at the array's offset
+		beg := l.Data().Offset()
+		if n == 0 {
+			off = []int32{0}
+		} else if len(off) < beg+n+1 {
+			return fail(name, "has %d list offsets for %d rows", len(off)-beg, n)
+		} else {
+			off = off[beg : beg+n+1]
 		}
 		for i := 0; i < n; i++ {
 			if off[i] < 0 || off[i+1] < off[i] || int(off[i+1]) > len(v) {
