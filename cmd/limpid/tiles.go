@@ -380,6 +380,12 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 	if err := checkCompress(c.String("compress")); err != nil {
 		return err
 	}
+	if c.IsSet("compress") && outFmt != "arrow" {
+		return usagef("--compress applies to --output-format arrow only")
+	}
+	if c.IsSet("scene-id") && (inFmt == "arrow" || outFmt != "arrow") {
+		return usagef("--scene-id applies to a raster INPUT restored to --output-format arrow (a stream keeps its own scene id)")
+	}
 	if j.reportPath != "" {
 		return usagef("--report is available only with raster input and output (a tile stream carries each tile's iterations and final change instead)")
 	}

@@ -285,3 +285,33 @@ func TestNodeCrossCheck(t *testing.T) {
 		t.Error("the stream built by apache-arrow does not restore to restore's GeoTIFF")
 	}
 }
+
+// Source: the issue and README (stream restore is stateless per tile: no
+// whole-scene options; the tiling is the stream's): usage errors, exit 2.
+func TestStreamFlags(t *testing.T) {
+	packed := mustRun(t, nil, "tiles", "pack", "--tile", "64", "--overlap", "32", "--bands", "1", fixture("observed.tif"), "-")
+	restored := mustRun(t, packed, args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow"}, streamArgs, []string{"-", "-"})...)
+	base := args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow"}, streamArgs)
+	for _, c := range []struct {
+		stdin []byte
+		args  []string
+		want  string
+	}{
+		{packed, args(base, []string{"--background", "auto", "-", "-"}), "--background auto needs the whole scene"},
+		{packed, args(base, []string{"--bands", "1", "-", "-"}), "--bands"},
+		{packed, args(base, []string{"--tile", "128", "-", "-"}), "cut in tiles of 64"},
+		{packed, args(base, []string{"--overlap", "16", "-", "-"}), "has an overlap of 32"},
+		{packed, args(base, []string{"--report", "r.json", "-", "-"}), "--report"},
+		{restored, args(base, []string{"-", "-"}), "restore needs an observed stream"},
+		{packed, args(base, []string{"--input-format", "jpeg", "-", "-"}), "--input-format"},
+		{packed, []string{"tiles", "pack", "--compress", "brotli", fixture("observed.tif"), "-"}, "--compress"},
+		{packed, []string{"tiles", "pack", "--tile", "64", "--overlap", "65", fixture("observed.tif"), "-"}, "overlap 65"},
+		{packed, []string{"tiles", "unpack", "-"}, "needs INPUT and OUTPUT"},
+		{packed, []string{"tiles", "unpack", "missing.arrows", "-"}, "INPUT missing.arrows"},
+	} {
+		code, stdout, errs := limpid(t, c.stdin, c.args...)
+		if code != 2 || !strings.Contains(errs, c.want) || stdout != "" {
+			t.Errorf("%v: exit %d, stderr %q, %d bytes on stdout; want 2 and %q", c.args, code, errs, len(stdout), c.want)
+		}
+	}
+}
