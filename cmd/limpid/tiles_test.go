@@ -16,7 +16,7 @@ import (
 // Common parameters of the stream tests: the valley fixture (256 x 256, 4
 // UInt16 bands, nodata 0), tiles of 64 with the halo restore's auto rule
 // gives this PSF (32), few iterations to keep -race runs short.
-var streamArgs = []string{"--psf", "gaussian:sigma=1.4", "--iterations", "8", "--workers", "2"}
+var streamArgs = []string{"--psf", "gaussian:sigma=1.4", "--iterations", "5", "--workers", "2"}
 
 func mustRun(t *testing.T, stdin []byte, args ...string) []byte {
 	t.Helper()
@@ -259,7 +259,7 @@ func TestNodeCrossCheck(t *testing.T) {
 	exp := map[string]any{
 		"width": meta.Width, "height": meta.Height, "geotransform": meta.Geo.Transform, "crs_wkt": meta.Geo.WKT,
 		"nodata": nd, "data_type": meta.DataType, "scene_id": "observed", "tile": 64, "overlap": 32,
-		"psf": "gaussian:sigma=1.4", "iterations": 8,
+		"psf": "gaussian:sigma=1.4", "iterations": 5,
 		"bands": []map[string]any{
 			{"description": meta.Bands[2].Description, "source_band": 3},
 			{"description": meta.Bands[3].Description, "source_band": 4},
