@@ -210,6 +210,30 @@ func rawStream(t *testing.T, mem memory.Allocator, h *Header, fs []arrow.Field, 
 	return buf.Bytes()
 }
 
+// schemaOnly writes a stream without batches whose valid observed metadata
+// has key set to value.
+func schemaOnly(t *testing.T, mem memory.Allocator, key, value string) []byte {
+	t.Helper()
+	md, err := encodeMetadata(testHeader(KindObserved))
+	if err != nil {
+		t.Fatal(err)
+	}
+	keys, vals := md.Keys(), md.Values()
+	for i := range keys {
+		if keys[i] == key {
+			vals[i] = value
+		}
+	}
+	m := arrow.NewMetadata(keys, vals)
+	s := arrow.NewSchema(fields(KindObserved), &m)
+	var buf bytes.Buffer
+	w := ipc.NewWriter(&buf, ipc.WithSchema(s), ipc.WithAllocator(mem))
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
+	}
+	return buf.Bytes()
+}
+
 // fillTile appends t to b column by column (contract order), with pixel
 // values from pix (which may have the wrong length).
 func fillTile(b *array.RecordBuilder, t *Tile, pix []float32) {
@@ -282,7 +306,7 @@ func TestBadStreams(t *testing.T) {
 		}, []string{"batch 1 row 0 column buffer_width", "-5"}},
 		{"huge-buffer", func(mem memory.Allocator) []byte {
 			h := testHeader(KindObserved)
-			h.Width, h.Height = 1<<30, 1<<30
+			h.Width, h.Height, h.Tile = 1<<30, 1<<30, 16384
 			return rawStream(t, mem, h, fields(KindObserved), func(b *array.RecordBuilder) {
 				tl := testTile(h, 0)
 				tl.W, tl.H = 1<<20, 1<<20
@@ -298,21 +322,11 @@ func TestBadStreams(t *testing.T) {
 			})
 		}, []string{"batch 1 row 0 column scene_id", "another scene"}},
 		{"contract-version", func(mem memory.Allocator) []byte {
-			h := testHeader(KindObserved)
-			md, _ := encodeMetadata(h)
-			keys, vals := md.Keys(), md.Values()
-			for i := range keys {
-				if keys[i] == KeyContract {
-					vals[i] = "9"
-				}
-			}
-			m := arrow.NewMetadata(keys, vals)
-			s := arrow.NewSchema(fields(KindObserved), &m)
-			var buf bytes.Buffer
-			w := ipc.NewWriter(&buf, ipc.WithSchema(s), ipc.WithAllocator(mem))
-			w.Close()
-			return buf.Bytes()
+			return schemaOnly(t, mem, KeyContract, "9")
 		}, []string{"schema", KeyContract, "version 1"}},
+		{"too-many-tiles", func(mem memory.Allocator) []byte {
+			return schemaOnly(t, mem, KeySceneWidth, "1073741824")
+		}, []string{"schema", "tiles along a side"}},
 		{"bad-message-size", func(mem memory.Allocator) []byte {
 			return []byte{0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0xff, 0x7f}
 		}, []string{"schema", "metadata size"}},

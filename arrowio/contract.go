@@ -82,6 +82,9 @@ const (
 	MaxBands = 65535
 	// MaxSceneSide bounds the scene width and height.
 	MaxSceneSide = 1 << 30
+	// MaxTilesPerAxis bounds the tiling a header may ask for (the tile
+	// layout is allocated from it).
+	MaxTilesPerAxis = 1 << 16
 )
 
 // ErrStream is matched (errors.Is) by every error about the stream's content:
@@ -341,6 +344,9 @@ func (h *Header) check() error {
 	}
 	if h.Tile < 16 || h.Tile > 16384 {
 		return schemaErrorf("", "metadata %s is %d, want 16 to 16384", KeyTileSize, h.Tile)
+	}
+	if (h.Width+h.Tile-1)/h.Tile > MaxTilesPerAxis || (h.Height+h.Tile-1)/h.Tile > MaxTilesPerAxis {
+		return schemaErrorf("", "metadata %s %d makes more than %d tiles along a side of the %d x %d scene", KeyTileSize, h.Tile, MaxTilesPerAxis, h.Width, h.Height)
 	}
 	if h.Overlap < 0 || h.Overlap > h.Tile {
 		return schemaErrorf("", "metadata %s is %d, want 0 to the tile size %d", KeyOverlap, h.Overlap, h.Tile)

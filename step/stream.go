@@ -365,7 +365,7 @@ func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64
 	}()
 
 	seq := 0
-	for {
+	for ctx.Err() == nil {
 		var t *arrowio.Tile
 		select {
 		case t = <-free:
@@ -491,6 +491,10 @@ type Assembler struct {
 	Report *Report
 }
 
+// maxAssemblerBytes bounds the strips an Assembler allocates (16 GiB: a
+// 100000-pixel-wide, 16-band scene in 576-row strips needs 7 GiB).
+const maxAssemblerBytes = 16 << 30
+
 type asmTile struct {
 	out    []float32
 	ox, oy Span
@@ -509,6 +513,11 @@ func NewAssembler(h *arrowio.Header, dst raster.Writer) (*Assembler, error) {
 	maxOut := 0
 	for i := range p.Rows {
 		maxOut = max(maxOut, a.outSpan(p.Rows, i).Len())
+	}
+	// Two strips (accumulator and write buffer) per band: refuse what a
+	// stream's header cannot honestly need on one machine.
+	if need := 2 * int64(a.nb) * int64(p.W) * int64(maxOut) * 4; need > maxAssemblerBytes {
+		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("%d bands of a %d-pixel-wide scene in strips of %d rows need %d GiB: more than the %d GiB limit", a.nb, p.W, maxOut, need>>30, maxAssemblerBytes>>30)}
 	}
 	a.acc = make([][]float32, a.nb)
 	a.buf = make([][]float32, a.nb)
