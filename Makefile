@@ -1,10 +1,13 @@
 # limpid build, demo, test and benchmark entry points.
 # `make demo` and `make test` install what is missing (Debian packages, Go
-# modules) themselves and are safe to run again.
+# modules, the pinned npm packages of testdata/node) themselves and are safe
+# to run again.
 SHELL := /bin/bash
 GO ?= go
 APT_PKGS := libgdal-dev gdal-bin python3-gdal python3-skimage pkg-config
 SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
+# The Node cross-check of the Arrow tile stream (npm apache-arrow, pinned).
+NODE_DIR := testdata/node
 
 .PHONY: deps demo test bench build clean
 
@@ -13,6 +16,11 @@ deps:
 		echo "installing $(APT_PKGS)"; \
 		$(SUDO) apt-get update -q && DEBIAN_FRONTEND=noninteractive $(SUDO) apt-get install -y -q $(APT_PKGS); \
 	fi
+	@command -v node >/dev/null 2>&1 && command -v npm >/dev/null 2>&1 || { \
+		echo "installing nodejs npm"; \
+		$(SUDO) apt-get update -q && DEBIAN_FRONTEND=noninteractive $(SUDO) apt-get install -y -q nodejs npm; \
+	}
+	@cd $(NODE_DIR) && npm ci --no-audit --no-fund --loglevel=error
 	@$(GO) mod download
 
 build: deps
@@ -25,10 +33,12 @@ test: deps
 	@test -z "$$(gofmt -l $$(git ls-files '*.go' 2>/dev/null || find . -name '*.go'))" || { echo "gofmt needed:"; gofmt -l .; exit 1; }
 	$(GO) vet ./...
 	$(GO) test -race -count=1 ./...
+	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s ./arrowio
 
 bench: deps
 	$(GO) test -run '^$$' -bench . -benchmem -benchtime 10x ./step
 	LIMPID_BENCH_SCENE=1 $(GO) test -run '^$$' -bench 'BenchmarkScene' -benchtime 1x -timeout 60m ./cmd/limpid
+	LIMPID_BENCH_STREAM=1 $(GO) test -run '^$$' -bench 'BenchmarkStreamRSS200' -benchtime 1x -cpu 1 ./cmd/limpid
 
 clean:
 	rm -rf bin limpid-demo

@@ -11,8 +11,34 @@ import (
 // TestImportRules enforces DEVELOPERS.md's one-way data flow
 // cmd -> step -> {psf, raster, arrowio}: psf is pure Go (no GDAL, Arrow or
 // other limpid package), raster and arrowio never import step or cmd, step
-// never imports GDAL or Arrow directly.
+// never imports GDAL or Arrow directly (it reaches Arrow streams only through
+// arrowio's plain-Go Tile and Header). arrowio imports only the standard
+// library, Arrow and limpid/raster's types.
 func TestImportRules(t *testing.T) {
+	arrowioAllowed := []string{"github.com/apache/arrow/go/v17/", "limpid/raster"}
+	files, _ := filepath.Glob(filepath.Join("..", "arrowio", "*.go"))
+	for _, f := range files {
+		if strings.HasSuffix(f, "_test.go") {
+			continue
+		}
+		af, err := parser.ParseFile(token.NewFileSet(), f, nil, parser.ImportsOnly)
+		if err != nil {
+			t.Fatal(err)
+		}
+	imports:
+		for _, imp := range af.Imports {
+			path := strings.Trim(imp.Path.Value, `"`)
+			if !strings.Contains(strings.SplitN(path, "/", 2)[0], ".") && !strings.HasPrefix(path, "limpid") && path != "C" {
+				continue // standard library
+			}
+			for _, a := range arrowioAllowed {
+				if path == a || strings.HasPrefix(path, a) {
+					continue imports
+				}
+			}
+			t.Errorf("%s imports %s (arrowio may import only the standard library, Arrow and limpid/raster)", f, path)
+		}
+	}
 	forbidden := map[string][]string{
 		"psf":     {"limpid/", "github.com/airbusgeo/godal", "github.com/apache/arrow", "C"},
 		"raster":  {"limpid/step", "limpid/cmd", "limpid/arrowio"},

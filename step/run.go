@@ -229,6 +229,13 @@ func (cfg *Config) NewSolver() Solver {
 	if k := SmoothingKernel(cfg.Smooth); k != nil {
 		g.S = NewSeparableConv(k, k)
 	}
+	if cfg.Stop == StopDiscrepancy && cfg.Noise != nil {
+		// Stateless per tile with a given noise model (tile streams);
+		// Restore builds the same solver per band in regularise.
+		g.Tolerance, g.Noise, g.Tau = 0, cfg.Noise, DiscrepancyTau
+	} else if cfg.Stop != StopChange {
+		g.Tolerance = 0
+	}
 	return g
 }
 

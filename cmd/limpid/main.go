@@ -14,6 +14,7 @@ import (
 
 	"github.com/urfave/cli/v2"
 
+	"limpid/arrowio"
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step"
@@ -46,7 +47,7 @@ func exitCode(err error) int {
 	case err == nil:
 		return exitOK
 	case errors.As(err, &u), errors.Is(err, raster.ErrInput), errors.Is(err, step.ErrConfig),
-		errors.Is(err, psf.ErrSpec), errors.Is(err, psf.ErrKernel):
+		errors.Is(err, psf.ErrSpec), errors.Is(err, psf.ErrKernel), errors.Is(err, arrowio.ErrStream):
 		return exitUsage
 	}
 	return exitFailure
@@ -77,6 +78,7 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			restoreCommand(stdin, stdout, stderr),
 			noiseCommand(stdin, stdout, stderr),
 			demoCommand(stderr, stdout),
+			tilesCommand(stdin, stdout, stderr),
 		},
 	}
 	err := app.RunContext(ctx, args)

@@ -75,10 +75,13 @@ Examples:
    gdal_translate -of GTiff in.jp2 /vsistdout/ | limpid restore --psf kernel:psf.txt - - > out.tif
    LIMPID_PSF=gaussian:sigma=0.6 LIMPID_WORKERS=2 limpid restore in.tif out.tif
 
+Arrow IPC tile streams (README, "Arrow tile streams"):
+   limpid tiles pack scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 - - | limpid tiles unpack - out.tif
+
 Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
 
 ` + caution,
-		Flags:  restoreFlags(),
+		Flags:  append(restoreFlags(), streamFlags()...),
 		Action: func(c *cli.Context) error { return restoreAction(c, stdin, stdout, stderr) },
 	}
 }
@@ -314,6 +317,15 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 	}
 	if err := checkPaths(j.in, j.out); err != nil {
 		return err
+	}
+	// Tile streams on either side (tiles.go).
+	for _, f := range []string{"input-format", "output-format"} {
+		if v := c.String(f); v != "raster" && v != "arrow" {
+			return usagef("--%s %q: use raster or arrow", f, v)
+		}
+	}
+	if c.String("input-format") == "arrow" || c.String("output-format") == "arrow" {
+		return runStreamRestore(c.Context, c, j, stdin, stdout, stderr)
 	}
 	_, err = runRestore(c.Context, j, stdin, stdout, stderr)
 	return err

@@ -1,0 +1,516 @@
+package main
+
+import (
+	"bufio"
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
+
+	"github.com/urfave/cli/v2"
+
+	"limpid/arrowio"
+	"limpid/raster"
+	"limpid/step"
+)
+
+// DefaultPackOverlap is the halo limpid tiles pack cuts when --overlap is not
+// given: restore's automatic halo for PSFs up to sigma 1.5 with the default
+// smoothing (4 x (6 + 1) = 28, rounded up to 32).
+const DefaultPackOverlap = 32
+
+func tilesCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
+	return &cli.Command{
+		Name:  "tiles",
+		Usage: "convert between rasters and Arrow IPC tile streams (see README, \"Arrow tile streams\")",
+		Subcommands: []*cli.Command{
+			{
+				Name:      "pack",
+				Usage:     "cut a raster into an Arrow IPC tile stream (flags come before INPUT OUTPUT)",
+				ArgsUsage: "INPUT OUTPUT",
+				Description: `INPUT is any GDAL-readable raster or - for stdin; OUTPUT is a path or - for stdout.
+One row (and one record batch) per band and tile; invalid pixels become NaN.
+
+Examples:
+   limpid tiles pack --tile 512 --overlap 32 scene.tif scene.arrows
+   limpid tiles pack --bands 3,2,1 scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 - - | limpid tiles unpack - restored.tif`,
+				Flags: []cli.Flag{
+					&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels (16-16384)"},
+					&cli.IntFlag{Name: "overlap", Value: DefaultPackOverlap, EnvVars: env("overlap"), Usage: "halo in pixels around each tile (restore needs at least 4 x (PSF radius + smoothing radius))"},
+					&cli.StringFlag{Name: "bands", EnvVars: env("bands"), Usage: "1-based bands to pack, in stream order (default: all)"},
+					&cli.StringFlag{Name: "scene-id", EnvVars: env("scene-id"), Usage: "scene identifier written to every row (default: INPUT's base name without extension; stdin for -)"},
+					&cli.StringFlag{Name: "compress", Value: "none", EnvVars: env("compress"), Usage: "IPC buffer compression: none, zstd or lz4 (the JavaScript Arrow reader cannot decompress)"},
+				},
+				Action: func(c *cli.Context) error { return packAction(c, stdin, stdout) },
+			},
+			{
+				Name:      "unpack",
+				Usage:     "write the scene of an Arrow IPC tile stream as a GeoTIFF or COG (flags come before INPUT OUTPUT)",
+				ArgsUsage: "INPUT OUTPUT",
+				Description: `INPUT is a tile stream file or - for stdin; OUTPUT is a path or - for stdout.
+Restored streams are blended with restore's weights (the result equals restore's raster output);
+observed streams give back the packed bands.`,
+				Flags: []cli.Flag{
+					&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff or cog"},
+					&cli.StringFlag{Name: "output-type", Value: "same", EnvVars: env("output-type"), Usage: "same (the stream's source data type, rounded and clamped) or float32"},
+				},
+				Action: func(c *cli.Context) error { return unpackAction(c, stdin, stdout) },
+			},
+		},
+	}
+}
+
+// streamFlags are restore's tile-stream flags.
+func streamFlags() []cli.Flag {
+	return []cli.Flag{
+		&cli.StringFlag{Name: "input-format", Value: "raster", EnvVars: env("input-format"), Usage: "raster (anything GDAL reads) or arrow (a tile stream from limpid tiles pack or any Arrow writer)"},
+		&cli.StringFlag{Name: "output-format", Value: "raster", EnvVars: env("output-format"), Usage: "raster (see --format) or arrow (a restored tile stream, tiles in input order)"},
+		&cli.StringFlag{Name: "compress", Value: "none", EnvVars: env("compress"), Usage: "arrow output: IPC buffer compression none, zstd or lz4"},
+		&cli.StringFlag{Name: "scene-id", EnvVars: env("scene-id"), Usage: "raster input, arrow output: the scene identifier (default: INPUT's base name)"},
+	}
+}
+
+func twoArgs(c *cli.Context, cmd string) (string, string, error) {
+	if c.NArg() != 2 {
+		if c.NArg() > 2 {
+			return "", "", usagef("%s takes INPUT OUTPUT after the flags (got %d arguments: %s); flags after the arguments are not read", cmd, c.NArg(), strings.Join(c.Args().Slice(), " "))
+		}
+		return "", "", usagef("%s needs INPUT and OUTPUT", cmd)
+	}
+	return c.Args().Get(0), c.Args().Get(1), nil
+}
+
+func sceneID(flag, in string) string {
+	if flag != "" {
+		return flag
+	}
+	if in == "-" {
+		return "stdin"
+	}
+	b := filepath.Base(in)
+	return strings.TrimSuffix(b, filepath.Ext(b))
+}
+
+func checkCompress(s string) error {
+	switch s {
+	case "none", "zstd", "lz4":
+		return nil
+	}
+	return usagef("--compress %q: use none, zstd or lz4", s)
+}
+
+// openRaster opens a raster INPUT (stdin is spooled to a temporary file);
+// cleanup removes the spool.
+func openRaster(in string, stdin io.Reader) (*raster.GDALReader, func(), error) {
+	path := in
+	cleanup := func() {}
+	if in == "-" {
+		p, err := spoolStdin(stdin)
+		if err != nil {
+			return nil, cleanup, err
+		}
+		cleanup = func() { os.Remove(p) }
+		path = p
+	}
+	src, err := raster.Open(path)
+	if err != nil {
+		cleanup()
+		if in == "-" {
+			return nil, func() {}, usagef("INPUT - (stdin) is not a raster GDAL can read")
+		}
+		return nil, func() {}, err
+	}
+	return src, cleanup, nil
+}
+
+// openStream opens a tile-stream INPUT and reads its schema.
+func openStream(in string, stdin io.Reader) (*arrowio.Reader, func(), error) {
+	var r io.Reader
+	closeFn := func() {}
+	if in == "-" {
+		r = bufio.NewReaderSize(stdin, 1<<20)
+	} else {
+		f, err := os.Open(in)
+		if err != nil {
+			return nil, closeFn, usagef("INPUT %s: %v", in, errors.Unwrap(err))
+		}
+		if st, err := f.Stat(); err == nil && st.IsDir() {
+			f.Close()
+			return nil, closeFn, usagef("INPUT %s is a directory", in)
+		}
+		closeFn = func() { f.Close() }
+		r = bufio.NewReaderSize(f, 1<<20)
+	}
+	rd, err := arrowio.NewReader(r)
+	if err != nil {
+		closeFn()
+		return nil, func() {}, streamErr(in, err)
+	}
+	return rd, func() { rd.Release(); closeFn() }, nil
+}
+
+// streamErr names the input of a stream error.
+func streamErr(in string, err error) error {
+	if errors.Is(err, arrowio.ErrStream) {
+		name := in
+		if in == "-" {
+			name = "- (stdin)"
+		}
+		return fmt.Errorf("INPUT %s: %w", name, err)
+	}
+	return err
+}
+
+// streamOutput is an arrow OUTPUT: stdout (buffered) or a temporary file in
+// the target directory renamed on commit.
+type streamOutput struct {
+	w     io.Writer
+	bw    *bufio.Writer
+	f     *os.File
+	final string
+}
+
+func createStreamOutput(out string, stdout io.Writer) (*streamOutput, error) {
+	if out == "-" {
+		bw := bufio.NewWriterSize(stdout, 1<<20)
+		return &streamOutput{w: bw, bw: bw}, nil
+	}
+	f, err := os.CreateTemp(filepath.Dir(out), ".limpid-*.arrows")
+	if err != nil {
+		return nil, usagef("OUTPUT %s: cannot create a file in %s: %v", out, filepath.Dir(out), errors.Unwrap(err))
+	}
+	os.Chmod(f.Name(), 0o644)
+	bw := bufio.NewWriterSize(f, 1<<20)
+	return &streamOutput{w: bw, bw: bw, f: f, final: out}, nil
+}
+
+func (o *streamOutput) commit() error {
+	if err := o.bw.Flush(); err != nil {
+		o.abort()
+		return fmt.Errorf("writing the stream: %w", err)
+	}
+	if o.f == nil {
+		return nil
+	}
+	if err := o.f.Close(); err != nil {
+		os.Remove(o.f.Name())
+		return fmt.Errorf("writing the stream: %w", err)
+	}
+	if err := os.Rename(o.f.Name(), o.final); err != nil {
+		os.Remove(o.f.Name())
+		return fmt.Errorf("moving the stream to %s: %w", o.final, err)
+	}
+	return nil
+}
+
+// abort: on stdout, the complete batches already buffered are flushed (no
+// end-of-stream marker follows); a file output is removed.
+func (o *streamOutput) abort() {
+	if o.f == nil {
+		o.bw.Flush()
+		return
+	}
+	o.f.Close()
+	os.Remove(o.f.Name())
+}
+
+func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
+	in, out, err := twoArgs(c, "tiles pack")
+	if err != nil {
+		return err
+	}
+	if err := checkCompress(c.String("compress")); err != nil {
+		return err
+	}
+	if err := checkPaths(in, out); err != nil {
+		return err
+	}
+	if c.Int("overlap") < 0 {
+		return usagef("--overlap %d must be >= 0", c.Int("overlap"))
+	}
+	src, cleanup, err := openRaster(in, stdin)
+	if err != nil {
+		return err
+	}
+	defer cleanup()
+	defer src.Close()
+	meta := src.Meta()
+	bands, err := parseBands(c.String("bands"), len(meta.Bands))
+	if err != nil {
+		return err
+	}
+	hdr, err := step.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), in), c.Int("tile"), c.Int("overlap"))
+	if err != nil {
+		return err
+	}
+	tiler, err := step.NewSceneTiler(src, bands, hdr)
+	if err != nil {
+		return err
+	}
+	o, err := createStreamOutput(out, stdout)
+	if err != nil {
+		return err
+	}
+	w, err := arrowio.NewWriter(o.w, hdr, arrowio.WithCompression(c.String("compress")))
+	if err != nil {
+		o.abort()
+		return err
+	}
+	var t arrowio.Tile
+	for {
+		ok, err := tiler.Next(&t)
+		if err == nil && ok {
+			err = w.Write(&t)
+		}
+		if err != nil {
+			w.Abandon()
+			o.abort()
+			return err
+		}
+		if !ok {
+			break
+		}
+	}
+	if err := w.Close(); err != nil {
+		o.abort()
+		return err
+	}
+	return o.commit()
+}
+
+// metaFromHeader is the raster description of a stream's scene.
+func metaFromHeader(h *arrowio.Header) raster.Meta {
+	m := raster.Meta{Width: h.Width, Height: h.Height, DataType: h.DataType, Geo: h.Geo, Metadata: h.Metadata}
+	for _, b := range h.Bands {
+		m.Bands = append(m.Bands, b.BandInfo)
+	}
+	return m
+}
+
+// createRasterFor prepares the raster OUTPUT of a stream's scene exactly as
+// restore would for the same source (type, nodata rule, metadata).
+func createRasterFor(h *arrowio.Header, out string, format raster.Format, outType string, hasSaturated bool, stdout io.Writer) (*raster.GDALWriter, error) {
+	meta := metaFromHeader(h)
+	all := make([]int, len(meta.Bands))
+	for i := range all {
+		all[i] = i
+	}
+	j := &restoreJob{format: format, outType: outType, cfg: step.Config{HasSaturated: hasSaturated}}
+	om := outputMeta(meta, all, j)
+	wopts := raster.WriteOptions{Format: format, DataType: om.DataType}
+	wopts.NoData, wopts.HasNoData = outputNoData(meta, all, j)
+	if out == "-" {
+		wopts.Stdout = stdout
+	}
+	return raster.Create(out, om, wopts)
+}
+
+func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
+	in, out, err := twoArgs(c, "tiles unpack")
+	if err != nil {
+		return err
+	}
+	format := raster.Format(c.String("format"))
+	if format != raster.GTiff && format != raster.COG {
+		return usagef("--format %q: use gtiff or cog", c.String("format"))
+	}
+	outType := c.String("output-type")
+	if outType != "same" && outType != "float32" {
+		return usagef("--output-type %q: use same or float32", outType)
+	}
+	if err := checkPaths(in, out); err != nil {
+		return err
+	}
+	r, closeIn, err := openStream(in, stdin)
+	if err != nil {
+		return err
+	}
+	defer closeIn()
+	h := r.Header()
+	var rep *step.Report
+	if h.Kind == arrowio.KindRestored {
+		if rep, err = step.ReportFromHeader(h); err != nil {
+			return streamErr(in, err)
+		}
+	}
+	dst, err := createRasterFor(h, out, format, outType, rep != nil && rep.Saturated != nil, stdout)
+	if err != nil {
+		return err
+	}
+	asm, err := step.NewAssembler(h, dst)
+	if err != nil {
+		dst.Abort()
+		return err
+	}
+	asm.Report = rep
+	var t arrowio.Tile
+	for {
+		ok, err := r.Next(&t)
+		if err == nil && ok {
+			err = asm.Write(&t)
+		}
+		if err != nil {
+			dst.Abort()
+			return streamErr(in, err)
+		}
+		if !ok {
+			break
+		}
+	}
+	if err := asm.Finish(); err != nil {
+		dst.Abort()
+		return streamErr(in, err)
+	}
+	if rep != nil {
+		if err := recordProcessing(dst, rep); err != nil {
+			dst.Abort()
+			return err
+		}
+	}
+	return dst.Commit()
+}
+
+// runStreamRestore is restore with a tile stream on either side.
+func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin io.Reader, stdout, stderr io.Writer) error {
+	inFmt, outFmt := c.String("input-format"), c.String("output-format")
+	if err := checkCompress(c.String("compress")); err != nil {
+		return err
+	}
+	if c.IsSet("compress") && outFmt != "arrow" {
+		return usagef("--compress applies to --output-format arrow only")
+	}
+	if c.IsSet("scene-id") && (inFmt == "arrow" || outFmt != "arrow") {
+		return usagef("--scene-id applies to a raster INPUT restored to --output-format arrow (a stream keeps its own scene id)")
+	}
+	if j.reportPath != "" {
+		return usagef("--report is available only with raster input and output (a tile stream carries each tile's iterations and final change instead)")
+	}
+	cfg := j.cfg
+	// A stream is restored tile by tile without the rest of the scene, so
+	// the scene-wide noise fit and choice cannot run there.
+	if cfg.SmoothAuto || cfg.Stop == step.StopAuto {
+		return usagef("--smooth auto and --stop auto need the whole scene and cannot run on a tile stream: give --smooth EPS with --stop change, or --stop discrepancy with --noise a=...,b=... (limpid noise prints them)")
+	}
+	if cfg.Stop == step.StopDiscrepancy && cfg.Noise == nil {
+		return usagef("--stop discrepancy on a tile stream needs --noise a=...,b=... (the noise fit needs the whole scene; limpid noise prints it)")
+	}
+	var (
+		hdr    *arrowio.Header
+		src    step.TileSource
+		rsrc   raster.Reader
+		bands  []int
+		inName = j.in
+	)
+	if inFmt == "arrow" {
+		if c.IsSet("bands") {
+			return usagef("--bands: a tile stream is restored whole; choose the bands when packing (limpid tiles pack --bands)")
+		}
+		r, closeIn, err := openStream(j.in, stdin)
+		if err != nil {
+			return err
+		}
+		defer closeIn()
+		hdr, src = r.Header(), r
+		if c.IsSet("tile") && c.Int("tile") != hdr.Tile {
+			return usagef("--tile %d: the stream INPUT %s is cut in tiles of %d (%s)", c.Int("tile"), j.in, hdr.Tile, arrowio.KeyTileSize)
+		}
+		if o := c.String("overlap"); c.IsSet("overlap") && o != "auto" && o != strconv.Itoa(hdr.Overlap) {
+			return usagef("--overlap %s: the stream INPUT %s has an overlap of %d (%s)", o, j.in, hdr.Overlap, arrowio.KeyOverlap)
+		}
+		cfg.Tile, cfg.Overlap = hdr.Tile, hdr.Overlap
+		if err := cfg.Resolve(); err != nil {
+			return err
+		}
+		if want := step.DefaultOverlap(cfg.PSF, cfg.Smooth, cfg.Tile); hdr.Overlap < want {
+			fmt.Fprintf(stderr, "limpid: warning: the stream's overlap %d is below the %d this PSF and smoothing want; tile borders may show (pack with --overlap %d)\n", hdr.Overlap, want, want)
+		}
+	} else {
+		s, cleanup, err := openRaster(j.in, stdin)
+		if err != nil {
+			return err
+		}
+		defer cleanup()
+		defer s.Close()
+		meta := s.Meta()
+		if bands, err = parseBands(j.bandSpec, len(meta.Bands)); err != nil {
+			return err
+		}
+		if hdr, err = step.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), j.in), cfg.Tile, cfg.Overlap); err != nil {
+			return err
+		}
+		if src, err = step.NewSceneTiler(s, bands, hdr); err != nil {
+			return err
+		}
+		rsrc = s
+	}
+	bgs, err := step.StreamBackgrounds(cfg, hdr, rsrc, bands)
+	if err != nil {
+		return err
+	}
+	outHdr, err := step.RestoredHeader(hdr, cfg, bgs)
+	if err != nil {
+		return err
+	}
+	tiles := 0
+	cfg.Progress = func(done, _ int) { tiles = done }
+	if outFmt == "arrow" {
+		o, err := createStreamOutput(j.out, stdout)
+		if err != nil {
+			return err
+		}
+		w, err := arrowio.NewWriter(o.w, outHdr, arrowio.WithCompression(c.String("compress")))
+		if err != nil {
+			o.abort()
+			return err
+		}
+		if err := step.RestoreTiles(ctx, hdr, bgs, src, w, cfg); err != nil {
+			w.Abandon()
+			o.abort()
+			return streamErr(inName, err)
+		}
+		if err := w.Close(); err != nil {
+			o.abort()
+			return err
+		}
+		if err := o.commit(); err != nil {
+			return err
+		}
+		fmt.Fprintf(stderr, "limpid: restored %d tiles\n", tiles)
+		return nil
+	}
+	rep, err := step.ReportFromHeader(outHdr)
+	if err != nil {
+		return err
+	}
+	dst, err := createRasterFor(outHdr, j.out, j.format, j.outType, cfg.HasSaturated, stdout)
+	if err != nil {
+		return err
+	}
+	asm, err := step.NewAssembler(outHdr, dst)
+	if err != nil {
+		dst.Abort()
+		return err
+	}
+	asm.Report = rep
+	if err := step.RestoreTiles(ctx, hdr, bgs, src, asm, cfg); err != nil {
+		dst.Abort()
+		return streamErr(inName, err)
+	}
+	if err := asm.Finish(); err != nil {
+		dst.Abort()
+		return streamErr(inName, err)
+	}
+	if err := recordProcessing(dst, rep); err != nil {
+		dst.Abort()
+		return err
+	}
+	if err := dst.Commit(); err != nil {
+		return err
+	}
+	fmt.Fprintf(stderr, "limpid: restored %d tiles\n", tiles)
+	return nil
+}

@@ -1,0 +1,657 @@
+package step
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"sync"
+
+	"limpid/arrowio"
+	"limpid/raster"
+)
+
+// Tile streams (arrowio): the same tiles, halos, solver and blend weights as
+// Restore, with the tiles travelling one by one. A tile row of the stream
+// carries the tile's input window InSpan clipped to the scene; the mirrored
+// positions outside the scene are rebuilt from it, so a tile restored from a
+// stream is the same Problem (same pixels, mask, background and Key) as in
+// Restore, and Assembler adds the weighted windows in Restore's order:
+// pack | restore | unpack gives Restore's output bit for bit.
+
+// TileSource yields tiles in stream order (arrowio.Reader, SceneTiler).
+type TileSource interface {
+	Next(t *arrowio.Tile) (bool, error)
+}
+
+// TileSink receives tiles in stream order (arrowio.Writer, Assembler).
+type TileSink interface {
+	Write(t *arrowio.Tile) error
+}
+
+// ObservedHeader describes the stream limpid tiles pack cuts from a scene:
+// bands (0-based, stream order) of meta, tile core size and halo.
+func ObservedHeader(meta raster.Meta, bands []int, sceneID string, tile, overlap int) (*arrowio.Header, error) {
+	if _, err := NewPlan(meta.Width, meta.Height, tile, overlap); err != nil {
+		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+	}
+	h := &arrowio.Header{Kind: arrowio.KindObserved, SceneID: sceneID, Width: meta.Width, Height: meta.Height,
+		DataType: meta.DataType, Geo: meta.Geo, Metadata: meta.Metadata, Tile: tile, Overlap: overlap}
+	for _, b := range bands {
+		if b < 0 || b >= len(meta.Bands) {
+			return nil, fmt.Errorf("%w: band %d does not exist (input has %d)", ErrConfig, b+1, len(meta.Bands))
+		}
+		bi := meta.Bands[b]
+		h.Bands = append(h.Bands, arrowio.Band{SourceBand: b + 1, BandInfo: bi})
+		if bi.HasNoData && !h.HasNoData {
+			h.NoData, h.HasNoData = bi.NoData, true
+		}
+	}
+	// Widest buffer: the longest core (a merged last tile) plus two halos.
+	p, _ := NewPlan(meta.Width, meta.Height, tile, overlap)
+	bw, bh := 0, 0
+	for i := range p.Cols {
+		bw = max(bw, clipSpan(p.InSpan(p.Cols, i), p.W).Len())
+	}
+	for i := range p.Rows {
+		bh = max(bh, clipSpan(p.InSpan(p.Rows, i), p.H).Len())
+	}
+	if int64(bw)*int64(bh) > arrowio.MaxTilePixels {
+		return nil, fmt.Errorf("%w: tile %d with overlap %d makes %dx%d buffers, more than %d pixels per batch: lower --tile", ErrConfig, tile, overlap, bw, bh, arrowio.MaxTilePixels)
+	}
+	return h, nil
+}
+
+func clipSpan(s Span, n int) Span { return Span{max(0, s.Start), min(n, s.End)} }
+
+// streamParams are the restoration parameters a restored stream records
+// (the same keys as the LIMPID_PARAMETERS metadata of a restored raster).
+type streamParams struct {
+	Smooth     float64  `json:"smooth"`
+	SmoothRule string   `json:"smooth_rule"`
+	Stop       string   `json:"stop"`
+	Choose     string   `json:"choose"`
+	Iterations int      `json:"iterations"`
+	Tolerance  float64  `json:"tolerance"`
+	Tile       int      `json:"tile"`
+	Overlap    int      `json:"overlap"`
+	Blend      int      `json:"blend"`
+	Seed       uint64   `json:"seed"`
+	Saturated  *float64 `json:"saturated"`
+}
+
+// RestoredHeader is the header of the stream RestoreTiles makes from in with
+// a resolved cfg and per-band backgrounds.
+func RestoredHeader(in *arrowio.Header, cfg Config, backgrounds []float64) (*arrowio.Header, error) {
+	out := *in
+	out.Kind = arrowio.KindRestored
+	out.Bands = append([]arrowio.Band(nil), in.Bands...)
+	for i := range out.Bands {
+		out.Bands[i].Background = backgrounds[i]
+	}
+	p := streamParams{Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance, Tile: in.Tile,
+		Overlap: in.Overlap, Blend: in.Overlap / 2, Seed: cfg.Seed}
+	if cfg.HasSaturated {
+		s := cfg.Saturated
+		p.Saturated = &s
+	}
+	b, err := json.Marshal(p)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+	}
+	out.Restored = &arrowio.Restoration{SoftwareVersion: Version, Method: cfg.NewSolver().Name(), PSF: cfg.PSFSpec, Parameters: string(b)}
+	return &out, nil
+}
+
+// ReportFromHeader rebuilds the Report fields a restored stream records
+// (for the metadata of the raster Assembler writes). Tiles and
+// MaxIterations are filled by the Assembler.
+func ReportFromHeader(h *arrowio.Header) (*Report, error) {
+	if h.Restored == nil {
+		return nil, errors.New("not a restored stream")
+	}
+	var p streamParams
+	if err := json.Unmarshal([]byte(h.Restored.Parameters), &p); err != nil {
+		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("metadata %s: %v", arrowio.KeyParameters, err)}
+	}
+	rep := &Report{Version: h.Restored.SoftwareVersion, Method: h.Restored.Method, PSF: h.Restored.PSF,
+		Smooth: p.Smooth, SmoothRule: p.SmoothRule, Stop: p.Stop, Choose: p.Choose, Iterations: p.Iterations, Tolerance: p.Tolerance, Tile: p.Tile, Overlap: p.Overlap,
+		Blend: p.Blend, Seed: p.Seed, Saturated: p.Saturated, Width: h.Width, Height: h.Height}
+	for i, b := range h.Bands {
+		rep.Bands = append(rep.Bands, BandReport{Band: i + 1, SourceBand: b.SourceBand, Background: b.Background, BackgroundRule: "recorded in the stream"})
+	}
+	return rep, nil
+}
+
+// StreamBackgrounds returns the background of each band of h: cfg.Background,
+// or with cfg.BackgroundAuto the percentile rule of Restore over src (which
+// must then be the whole scene; nil for a stream input is an error).
+func StreamBackgrounds(cfg Config, h *arrowio.Header, src raster.Reader, bands []int) ([]float64, error) {
+	out := make([]float64, len(h.Bands))
+	if !cfg.BackgroundAuto {
+		for i := range out {
+			out[i] = cfg.Background
+		}
+		return out, nil
+	}
+	if src == nil {
+		return nil, fmt.Errorf("%w: --background auto needs the whole scene; a tile-stream input is restored tile by tile: give a value", ErrConfig)
+	}
+	valid := make([]validFn, len(bands))
+	for i, b := range h.Bands {
+		valid[i] = makeValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated)
+	}
+	return autoBackground(src, bands, valid)
+}
+
+// CheckPlan checks that t is a tile of plan: its column and row exist and
+// its buffer is the tile's input window clipped to the scene.
+func CheckPlan(p Plan, t *arrowio.Tile) error {
+	if t.Col >= len(p.Cols) {
+		return arrowio.TileErrorf(t, arrowio.ColTileColumn, "is %d; the tiling has %d columns (scene width %d, tile %d)", t.Col, len(p.Cols), p.W, p.Tile)
+	}
+	if t.TileRow >= len(p.Rows) {
+		return arrowio.TileErrorf(t, arrowio.ColTileRow, "is %d; the tiling has %d rows (scene height %d, tile %d)", t.TileRow, len(p.Rows), p.H, p.Tile)
+	}
+	for _, ax := range []struct {
+		spans                 []Span
+		i, n                  int
+		pos, size, lo, hi     int
+		cPos, cSize, cLo, cHi string
+	}{
+		{p.Cols, t.Col, p.W, t.X, t.W, t.HaloLeft, t.HaloRight, arrowio.ColBufferX, arrowio.ColBufferWidth, arrowio.ColHaloLeft, arrowio.ColHaloRight},
+		{p.Rows, t.TileRow, p.H, t.Y, t.H, t.HaloTop, t.HaloBottom, arrowio.ColBufferY, arrowio.ColBufferHeight, arrowio.ColHaloTop, arrowio.ColHaloBottom},
+	} {
+		core := ax.spans[ax.i]
+		in := clipSpan(p.InSpan(ax.spans, ax.i), ax.n)
+		switch {
+		case ax.pos != in.Start:
+			return arrowio.TileErrorf(t, ax.cPos, "is %d, want %d for tile (%d,%d) (core %d-%d, overlap %d)", ax.pos, in.Start, t.Col, t.TileRow, core.Start, core.End, p.Overlap)
+		case ax.size != in.Len():
+			return arrowio.TileErrorf(t, ax.cSize, "is %d, want %d for tile (%d,%d)", ax.size, in.Len(), t.Col, t.TileRow)
+		case ax.lo != core.Start-in.Start:
+			return arrowio.TileErrorf(t, ax.cLo, "is %d, want %d for tile (%d,%d)", ax.lo, core.Start-in.Start, t.Col, t.TileRow)
+		case ax.hi != in.End-core.End:
+			return arrowio.TileErrorf(t, ax.cHi, "is %d, want %d for tile (%d,%d)", ax.hi, in.End-core.End, t.Col, t.TileRow)
+		}
+	}
+	return nil
+}
+
+// SceneTiler cuts a scene into the tiles of an observed stream, in the order
+// (tile row, band, tile column). It reads one strip of rows of one band at a
+// time. Invalid pixels (nodata, NaN, Inf) become NaN.
+type SceneTiler struct {
+	src      raster.Reader
+	bands    []int
+	hdr      *arrowio.Header
+	plan     Plan
+	valid    []validFn
+	row, b   int
+	col      int
+	strip    []float32
+	stripY   int
+	loaded   bool
+	finished bool
+}
+
+// NewSceneTiler tiles bands (0-based, stream order) of src as h describes.
+func NewSceneTiler(src raster.Reader, bands []int, h *arrowio.Header) (*SceneTiler, error) {
+	p, err := NewPlan(h.Width, h.Height, h.Tile, h.Overlap)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+	}
+	s := &SceneTiler{src: src, bands: bands, hdr: h, plan: p}
+	for _, b := range h.Bands {
+		s.valid = append(s.valid, makeValid(b.NoData, b.HasNoData, 0, false))
+	}
+	return s, nil
+}
+
+// Next implements TileSource.
+func (s *SceneTiler) Next(t *arrowio.Tile) (bool, error) {
+	p := s.plan
+	if s.finished {
+		return false, nil
+	}
+	iy := clipSpan(p.InSpan(p.Rows, s.row), p.H)
+	if !s.loaded {
+		s.strip = grow(s.strip, p.W*iy.Len())
+		if err := s.src.ReadRows(iy.Start, iy.End, s.bands[s.b:s.b+1], [][]float32{s.strip}); err != nil {
+			return false, err
+		}
+		s.stripY = iy.Start
+		s.loaded = true
+	}
+	ix := clipSpan(p.InSpan(p.Cols, s.col), p.W)
+	band := s.hdr.Bands[s.b]
+	*t = arrowio.Tile{SceneID: s.hdr.SceneID, Band: s.b, BandName: band.Description, Col: s.col, TileRow: s.row,
+		X: ix.Start, Y: iy.Start, W: ix.Len(), H: iy.Len(),
+		HaloLeft: p.Cols[s.col].Start - ix.Start, HaloRight: ix.End - p.Cols[s.col].End,
+		HaloTop: p.Rows[s.row].Start - iy.Start, HaloBottom: iy.End - p.Rows[s.row].End,
+		Pix: t.Pix, Uncertainty: nil}
+	t.Pix = grow(t.Pix, t.W*t.H)
+	valid := s.valid[s.b]
+	nan := float32(math.NaN())
+	for y := 0; y < t.H; y++ {
+		src := s.strip[(iy.Start+y-s.stripY)*p.W+ix.Start:][:t.W]
+		dst := t.Pix[y*t.W : (y+1)*t.W]
+		for x, v := range src {
+			if valid(v) {
+				dst[x] = v
+			} else {
+				dst[x] = nan
+			}
+		}
+	}
+	// Advance: column, then band, then tile row.
+	s.col++
+	if s.col == len(p.Cols) {
+		s.col = 0
+		s.loaded = false
+		s.b++
+		if s.b == len(s.bands) {
+			s.b = 0
+			s.row++
+			if s.row == len(p.Rows) {
+				s.finished = true
+			}
+		}
+	}
+	return true, nil
+}
+
+// streamWorker is one worker's memory, reused across tiles.
+type streamWorker struct {
+	ws             Workspace
+	d, mask, f, se []float32
+}
+
+// RestoreTiles restores every tile of src (an observed stream described by
+// in) and writes the restored tiles to dst in input order. Each tile is
+// independent (stateless); at most 2 x workers + 2 tiles are in memory; the
+// result does not depend on cfg.Workers (random streams come from
+// Problem.Key). The first error (in stream order) stops the run; nothing is
+// written to dst after it is known.
+func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64, src TileSource, dst TileSink, cfg Config) error {
+	if in.Kind != arrowio.KindObserved {
+		return &arrowio.StreamError{Row: -1, Err: fmt.Errorf("metadata %s is %q: restore needs an observed stream (limpid tiles pack)", arrowio.KeyKind, in.Kind)}
+	}
+	cfg.Tile, cfg.Overlap = in.Tile, in.Overlap
+	if err := cfg.Resolve(); err != nil {
+		return err
+	}
+	plan, err := NewPlan(in.Width, in.Height, in.Tile, in.Overlap)
+	if err != nil {
+		return fmt.Errorf("%w: %v", ErrConfig, err)
+	}
+	solver := cfg.NewSolver()
+	valid := make([]validFn, len(in.Bands))
+	for i, b := range in.Bands {
+		valid[i] = makeValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated)
+	}
+	nw := cfg.Workers
+	nbuf := 2*nw + 2
+	type job struct {
+		seq int
+		t   *arrowio.Tile
+		err error
+	}
+	ctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	free := make(chan *arrowio.Tile, nbuf)
+	for i := 0; i < nbuf; i++ {
+		free <- &arrowio.Tile{}
+	}
+	jobs := make(chan job, nw)
+	results := make(chan job, nbuf)
+
+	var errMu sync.Mutex
+	errSeq, firstErr := math.MaxInt, error(nil)
+	setErr := func(seq int, err error) {
+		errMu.Lock()
+		// A real failure wins over the cancellations it caused; then the
+		// earliest tile in stream order.
+		if firstErr == nil || (isCancel(firstErr) && !isCancel(err)) || (isCancel(firstErr) == isCancel(err) && seq < errSeq) {
+			errSeq, firstErr = seq, err
+		}
+		errMu.Unlock()
+		cancel()
+	}
+	failed := func() bool {
+		errMu.Lock()
+		defer errMu.Unlock()
+		return firstErr != nil
+	}
+
+	var wg sync.WaitGroup
+	for k := 0; k < nw; k++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			wk := &streamWorker{}
+			for j := range jobs {
+				if ctx.Err() == nil {
+					j.err = restoreTile(ctx, solver, plan, wk, j.t, valid[j.t.Band], float32(backgrounds[j.t.Band]))
+				} else {
+					j.err = ctx.Err()
+				}
+				results <- j
+			}
+		}()
+	}
+	writerDone := make(chan struct{})
+	go func() {
+		defer close(writerDone)
+		pending := map[int]job{}
+		next := 0
+		for j := range results {
+			pending[j.seq] = j
+			for {
+				r, ok := pending[next]
+				if !ok {
+					break
+				}
+				delete(pending, next)
+				if r.err != nil {
+					setErr(r.seq, &TileError{Band: r.t.Band, Col: r.t.Col, Row: r.t.TileRow, Err: r.err})
+				} else if !failed() {
+					if err := dst.Write(r.t); err != nil {
+						setErr(r.seq, err)
+					}
+				}
+				free <- r.t
+				next++
+			}
+		}
+	}()
+
+	seq := 0
+	for ctx.Err() == nil {
+		var t *arrowio.Tile
+		select {
+		case t = <-free:
+		case <-ctx.Done():
+		}
+		if t == nil {
+			break
+		}
+		ok, err := src.Next(t)
+		if err == nil && ok {
+			err = CheckPlan(plan, t)
+		}
+		if err != nil {
+			setErr(seq, err)
+			break
+		}
+		if !ok {
+			break
+		}
+		jobs <- job{seq: seq, t: t}
+		seq++
+		if cfg.Progress != nil {
+			cfg.Progress(seq, 0)
+		}
+	}
+	close(jobs)
+	wg.Wait()
+	close(results)
+	<-writerDone
+	errMu.Lock()
+	defer errMu.Unlock()
+	return firstErr
+}
+
+func isCancel(err error) bool {
+	return errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded)
+}
+
+// restoreTile rebuilds the tile's Problem (its input window with the
+// mirrored positions outside the scene), solves it and overwrites t's pixels
+// with the restored object plus background (NaN where the input is invalid).
+func restoreTile(ctx context.Context, solver Solver, p Plan, wk *streamWorker, t *arrowio.Tile, valid validFn, bg float32) error {
+	ix, iy := p.InSpan(p.Cols, t.Col), p.InSpan(p.Rows, t.TileRow)
+	tw, th := ix.Len(), iy.Len()
+	n := tw * th
+	wk.d = grow(wk.d, n)
+	wk.mask = grow(wk.mask, n)
+	wk.f = grow(wk.f, n)
+	wk.se = grow(wk.se, n)
+	for y := 0; y < th; y++ {
+		sy := raster.Mirror(iy.Start+y, p.H) - t.Y
+		srow := t.Pix[sy*t.W : (sy+1)*t.W]
+		drow := wk.d[y*tw : (y+1)*tw]
+		mrow := wk.mask[y*tw : (y+1)*tw]
+		for x := 0; x < tw; x++ {
+			v := srow[raster.Mirror(ix.Start+x, p.W)-t.X]
+			drow[x] = v
+			if valid(v) {
+				mrow[x] = 1
+			} else {
+				mrow[x] = 0
+			}
+		}
+	}
+	prob := &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}, SE: wk.se}
+	res, err := solver.Solve(ctx, &wk.ws, prob, wk.f)
+	if err != nil {
+		return err
+	}
+	nan := float32(math.NaN())
+	if res.HasSE {
+		t.Uncertainty = make([]float32, t.W*t.H)
+	} else {
+		t.Uncertainty = nil
+	}
+	for by := 0; by < t.H; by++ {
+		o := (t.Y+by-iy.Start)*tw + t.X - ix.Start
+		frow, mrow := wk.f[o:o+t.W], wk.mask[o:o+t.W]
+		orow := t.Pix[by*t.W : (by+1)*t.W]
+		for x := range orow {
+			if mrow[x] != 0 {
+				orow[x] = frow[x] + bg
+			} else {
+				orow[x] = nan
+			}
+		}
+		if res.HasSE {
+			srow, urow := wk.se[o:o+t.W], t.Uncertainty[by*t.W:(by+1)*t.W]
+			for x := range urow {
+				if mrow[x] != 0 {
+					urow[x] = srow[x]
+				} else {
+					urow[x] = nan
+				}
+			}
+		}
+	}
+	t.Iterations, t.Change = res.Iterations, res.Change
+	return nil
+}
+
+// Assembler writes the scene a stream describes to a raster.Writer. For a
+// restored stream it blends the tiles' output windows with Plan.Weights and
+// adds them in Restore's order (tile row, band, column), so the result equals
+// Restore's bit for bit; for an observed stream it copies the tile cores.
+// Tiles may arrive in any order; a tile row is written once all its tiles
+// are there (out-of-order rows wait in memory).
+type Assembler struct {
+	hdr      *arrowio.Header
+	plan     Plan
+	dst      raster.Writer
+	restored bool
+	nb       int
+	rows     map[int][]*asmTile
+	counts   map[int]int
+	nextRow  int
+	acc      [][]float32
+	accY     int
+	buf      [][]float32
+	wx, wy   []float32
+	// Report, when set (restored streams), receives per-tile records and the
+	// per-band maximum iteration count.
+	Report *Report
+}
+
+// maxAssemblerBytes bounds the strips an Assembler allocates (16 GiB: a
+// 100000-pixel-wide, 16-band scene in 576-row strips needs 7 GiB).
+const maxAssemblerBytes = 16 << 30
+
+type asmTile struct {
+	out    []float32
+	ox, oy Span
+	iters  int
+	change float64
+}
+
+// NewAssembler prepares writing h's scene to dst (bands in stream order).
+func NewAssembler(h *arrowio.Header, dst raster.Writer) (*Assembler, error) {
+	p, err := NewPlan(h.Width, h.Height, h.Tile, h.Overlap)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+	}
+	a := &Assembler{hdr: h, plan: p, dst: dst, restored: h.Kind == arrowio.KindRestored, nb: len(h.Bands),
+		rows: map[int][]*asmTile{}, counts: map[int]int{}}
+	maxOut := 0
+	for i := range p.Rows {
+		maxOut = max(maxOut, a.outSpan(p.Rows, i).Len())
+	}
+	// Two strips (accumulator and write buffer) per band: refuse what a
+	// stream's header cannot honestly need on one machine.
+	if need := 2 * int64(a.nb) * int64(p.W) * int64(maxOut) * 4; need > maxAssemblerBytes {
+		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("%d bands of a %d-pixel-wide scene in strips of %d rows need %d GiB: more than the %d GiB limit", a.nb, p.W, maxOut, need>>30, maxAssemblerBytes>>30)}
+	}
+	a.acc = make([][]float32, a.nb)
+	a.buf = make([][]float32, a.nb)
+	for i := range a.acc {
+		a.acc[i] = make([]float32, p.W*maxOut)
+		a.buf[i] = make([]float32, p.W*maxOut)
+	}
+	return a, nil
+}
+
+// outSpan: a restored tile contributes its blended output window, an
+// observed tile its core.
+func (a *Assembler) outSpan(spans []Span, i int) Span {
+	if a.restored {
+		return a.plan.OutSpan(spans, i)
+	}
+	return spans[i]
+}
+
+// Write implements TileSink.
+func (a *Assembler) Write(t *arrowio.Tile) error {
+	p := a.plan
+	if err := CheckPlan(p, t); err != nil {
+		return err
+	}
+	slots := a.rows[t.TileRow]
+	if t.TileRow < a.nextRow || (slots != nil && slots[t.Band*len(p.Cols)+t.Col] != nil) {
+		return arrowio.TileErrorf(t, arrowio.ColTileColumn, "tile (%d,%d) of band %d appears twice", t.Col, t.TileRow, t.Band+1)
+	}
+	if slots == nil {
+		slots = make([]*asmTile, a.nb*len(p.Cols))
+		a.rows[t.TileRow] = slots
+	}
+	at := &asmTile{ox: a.outSpan(p.Cols, t.Col), oy: a.outSpan(p.Rows, t.TileRow), iters: t.Iterations, change: t.Change}
+	ow, oh := at.ox.Len(), at.oy.Len()
+	at.out = make([]float32, ow*oh)
+	x0, y0 := at.ox.Start-t.X, at.oy.Start-t.Y
+	if a.restored {
+		a.wx = grow(a.wx, ow)
+		a.wy = grow(a.wy, oh)
+		p.Weights(a.wx, p.Cols, t.Col)
+		p.Weights(a.wy, p.Rows, t.TileRow)
+		for y := 0; y < oh; y++ {
+			frow := t.Pix[(y0+y)*t.W+x0:]
+			orow := at.out[y*ow : (y+1)*ow]
+			wy := a.wy[y]
+			for x := range orow {
+				// Same expression and rounding as Restore's solveTile.
+				orow[x] = float32(wy * a.wx[x] * frow[x])
+			}
+		}
+	} else {
+		for y := 0; y < oh; y++ {
+			copy(at.out[y*ow:(y+1)*ow], t.Pix[(y0+y)*t.W+x0:])
+		}
+	}
+	slots[t.Band*len(p.Cols)+t.Col] = at
+	a.counts[t.TileRow]++
+	for a.nextRow < len(p.Rows) && a.counts[a.nextRow] == a.nb*len(p.Cols) {
+		if err := a.flushRow(a.nextRow); err != nil {
+			return err
+		}
+		delete(a.rows, a.nextRow)
+		delete(a.counts, a.nextRow)
+		a.nextRow++
+	}
+	return nil
+}
+
+// flushRow adds a complete tile row into the accumulator in (band, column)
+// order and writes the rows no later tile row touches (as Restore's
+// blendAndWrite does).
+func (a *Assembler) flushRow(row int) error {
+	p := a.plan
+	W := p.W
+	for i, s := range a.rows[row] {
+		b, col := i/len(p.Cols), i%len(p.Cols)
+		acc := a.acc[b]
+		ow := s.ox.Len()
+		for y := 0; y < s.oy.Len(); y++ {
+			arow := acc[(s.oy.Start+y-a.accY)*W+s.ox.Start:]
+			orow := s.out[y*ow : (y+1)*ow]
+			if a.restored {
+				for x, v := range orow {
+					arow[x] += v
+				}
+			} else {
+				copy(arow[:ow], orow)
+			}
+		}
+		if a.Report != nil {
+			br := &a.Report.Bands[b]
+			br.Tiles = append(br.Tiles, TileReport{Col: col, Row: row, Iterations: s.iters, Change: s.change})
+			br.MaxIterations = max(br.MaxIterations, s.iters)
+		}
+	}
+	last := row == len(p.Rows)-1
+	end := p.Rows[row].End
+	if !last && a.restored {
+		end -= p.Blend
+	}
+	n := end - a.accY
+	for b := 0; b < a.nb; b++ {
+		copy(a.buf[b][:n*W], a.acc[b][:n*W])
+	}
+	if err := a.dst.WriteRows(a.accY, end, a.buf); err != nil {
+		return err
+	}
+	for b := 0; b < a.nb; b++ {
+		acc := a.acc[b]
+		rest := len(acc)/W - n
+		copy(acc[:rest*W], acc[n*W:])
+		for i := rest * W; i < len(acc); i++ {
+			acc[i] = 0
+		}
+	}
+	a.accY = end
+	return nil
+}
+
+// Finish checks that every tile arrived.
+func (a *Assembler) Finish() error {
+	p := a.plan
+	if a.nextRow == len(p.Rows) {
+		return nil
+	}
+	slots := a.rows[a.nextRow]
+	for i := 0; i < a.nb*len(p.Cols); i++ {
+		if slots == nil || slots[i] == nil {
+			return &arrowio.StreamError{Batch: -1, Row: -1, Err: fmt.Errorf("tile (%d,%d) of band %d is missing (%d of %d tile rows complete)", i%len(p.Cols), a.nextRow, i/len(p.Cols)+1, a.nextRow, len(p.Rows))}
+		}
+	}
+	return nil
+}
