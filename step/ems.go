@@ -50,6 +50,7 @@ type Solver interface {
 type Workspace struct {
 	conv              ConvWork
 	f, fn, p, q, t, s []float32
+	pw                *particleWork // particle method state (particle.go)
 }
 
 func (ws *Workspace) reset(n int) {
