@@ -39,7 +39,7 @@ func psfHelp() string {
 }
 
 func restoreFlags() []cli.Flag {
-	return []cli.Flag{
+	return append([]cli.Flag{
 		&cli.StringFlag{Name: "psf", EnvVars: env("psf"), Usage: psfHelp()},
 		&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff (tiled, DEFLATE, predictor, BIGTIFF=IF_SAFER) or cog (Cloud Optimized GeoTIFF)"},
 		&cli.StringFlag{Name: "bands", EnvVars: env("bands"), Usage: "1-based bands to restore, in output order, e.g. 1,3,4 (default: all)"},
@@ -49,13 +49,13 @@ func restoreFlags() []cli.Flag {
 		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, EnvVars: env("iterations"), Usage: "maximum EMS iterations per tile"},
 		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, EnvVars: env("tolerance"), Usage: "stop a tile early when the relative L1 change falls below this (0 = never)"},
 		&cli.Float64Flag{Name: "smooth", Value: step.DefaultSmooth, EnvVars: env("smooth"), Usage: "EMS smoothing bandwidth in pixels (0 = Richardson-Lucy)"},
-		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid)"},
+		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid) or particle (sequential Monte Carlo EMS with per-pixel error bars; see the particle flags)"},
 		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for stochastic methods (recorded; grid is deterministic)"},
 		&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs); output is identical for any value"},
 		&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels"},
 		&cli.StringFlag{Name: "overlap", Value: "auto", EnvVars: env("overlap"), Usage: "halo in pixels read around each tile; auto = 4 x (PSF radius + smoothing radius), rounded up to 8, at least 16, at most the tile"},
 		&cli.StringFlag{Name: "report", EnvVars: env("report"), Usage: "write a JSON report of the run to this file"},
-	}
+	}, particleFlags()...)
 }
 
 func restoreCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
@@ -88,6 +88,8 @@ type restoreJob struct {
 	bandSpec   string
 	cfg        step.Config
 	reportPath string
+	// uncPath is --uncertainty (particle method): the standard-error raster.
+	uncPath string
 }
 
 func parseBands(s string, n int) ([]int, error) {
@@ -174,6 +176,9 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 		}
 		cfg.Saturated, cfg.HasSaturated = v, true
 	}
+	if err := parseParticle(c, &cfg, j); err != nil {
+		return nil, err
+	}
 	if err := cfg.Resolve(); err != nil {
 		return nil, err
 	}
@@ -240,6 +245,9 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 	if err := checkPaths(j.in, j.out); err != nil {
 		return err
 	}
+	if err := checkUncertaintyPath(j); err != nil {
+		return err
+	}
 	_, err = runRestore(c.Context, j, stdin, stdout, stderr)
 	return err
 }
@@ -254,6 +262,8 @@ type fullReport struct {
 	Finished   string       `json:"finished_utc"`
 	Product    string       `json:"product"`
 	Step       *step.Report `json:"restoration"`
+	// Uncertainty is the --uncertainty raster (particle method).
+	Uncertainty string `json:"uncertainty,omitempty"`
 }
 
 func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, stderr io.Writer) (*step.Report, error) {
@@ -291,26 +301,59 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	}
 	cfg := j.cfg
 	cfg.Progress = progress(stderr, len(bands)*tileCount(meta, cfg))
-	rep, err := step.Restore(ctx, src, bands, dst, cfg)
+	unc, err := createUncertainty(j, om)
 	if err != nil {
 		dst.Abort()
 		return nil, err
 	}
-	if err := recordProcessing(dst, rep); err != nil {
+	if unc != nil {
+		cfg.Uncertainty = unc
+	}
+	abort := func() {
 		dst.Abort()
+		if unc != nil {
+			unc.Abort()
+		}
+	}
+	rep, err := step.Restore(ctx, src, bands, dst, cfg)
+	if err != nil {
+		abort()
 		return nil, err
+	}
+	if err := recordProcessing(dst, rep); err != nil {
+		abort()
+		return nil, err
+	}
+	if unc != nil {
+		if err := recordUncertainty(unc, rep); err != nil {
+			abort()
+			return nil, err
+		}
 	}
 	if j.reportPath != "" {
 		full := fullReport{Input: j.in, Output: j.out, Format: string(j.format), OutputType: om.DataType,
-			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: "restored (deconvolved) image; keep the original", Step: rep}
+			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: "restored (deconvolved) image; keep the original", Step: rep,
+			Uncertainty: j.uncPath}
 		if err := writeJSON(j.reportPath, full); err != nil {
+			abort()
+			return nil, err
+		}
+	}
+	if unc != nil {
+		if err := unc.Commit(); err != nil {
 			dst.Abort()
+			if j.reportPath != "" {
+				os.Remove(j.reportPath)
+			}
 			return nil, err
 		}
 	}
 	if err := dst.Commit(); err != nil {
 		if j.reportPath != "" {
 			os.Remove(j.reportPath)
+		}
+		if unc != nil {
+			os.Remove(j.uncPath)
 		}
 		return nil, err
 	}
@@ -380,10 +423,14 @@ func writeJSON(path string, v any) error {
 
 // recordProcessing adds limpid's processing metadata to the output.
 func recordProcessing(dst *raster.GDALWriter, rep *step.Report) error {
-	params, _ := json.Marshal(map[string]any{
+	pm := map[string]any{
 		"smooth": rep.Smooth, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
 		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,
-	})
+	}
+	if rep.Particle != nil {
+		pm["particle"] = particleParams(rep.Particle)
+	}
+	params, _ := json.Marshal(pm)
 	items := [][2]string{
 		{"LIMPID_PRODUCT", "restored (deconvolved) image; keep the original"},
 		{"LIMPID_VERSION", rep.Version},
