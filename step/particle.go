@@ -143,8 +143,13 @@ type ParticleEMS struct {
 	// Iterations).
 	BurnIn int
 	Start  Start
-	// Batches is the number of batch means for the standard error (>= 2,
-	// <= Iterations - BurnIn).
+	// Replicates G >= 2 runs G independent clouds of PerPixel/G particles
+	// per pixel (PerPixel must be a multiple of G); the output is their mean
+	// and the standard error comes from their spread, sqrt(sum (f_g -
+	// mean)^2 / (G (G-1))). G <= 1 runs one cloud with batch means.
+	Replicates int
+	// Batches is the number of batch means for the standard error when
+	// Replicates <= 1 (>= 2, <= Iterations - BurnIn).
 	Batches int
 	Seed    uint64
 	// RawEstimate averages the splatted cloud after mutation instead of the
@@ -272,6 +277,8 @@ type particleWork struct {
 	est, prev []float32
 	sum, bsum []float64
 	bmean, m2 []float64
+	rmean     []float64 // replicates: Welford mean and M2 of the estimates
+	rm2       []float64
 	rng       rand.PCG
 }
 
@@ -318,10 +325,15 @@ func TileStream(k TileKey) uint64 {
 // halo) stay exact under integer moves.
 func subpixel(u uint64) float32 { return (float32(u&0x7f) + 0.5) / 128 }
 
-// startCloud places the initial particles and returns their number.
-func (pe *ParticleEMS) startCloud(pw *particleWork, ws *Workspace, p *Problem, nValid int) int {
+// startCloud places K particles per valid pixel and returns their number.
+func (pe *ParticleEMS) startCloud(pw *particleWork, ws *Workspace, p *Problem, K int) int {
 	w, h := p.W, p.H
-	K := pe.PerPixel
+	nValid := 0
+	for _, m := range p.Mask[:w*h] {
+		if m != 0 {
+			nValid++
+		}
+	}
 	j := 0
 	place := func(pix, copies int) {
 		px, py := float32(pix%w), float32(pix/w)
@@ -539,12 +551,58 @@ func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst
 		ws.pw = &particleWork{}
 	}
 	pw := ws.pw
-	np := pe.PerPixel * nValid
-	pw.reset(np, n)
-	pw.rng.Seed(pe.Seed, TileStream(p.Key))
-	np = pe.startCloud(pw, ws, p, nValid)
-	pw.x, pw.y, pw.w = pw.x[:np], pw.y[:np], pw.w[:np]
 	pe.H.Adjoint(&ws.conv, ws.s, p.Mask, w, h)
+	G := pe.Replicates
+	if G <= 1 {
+		res, err := pe.run(ctx, ws, p, nValid, flux, pe.PerPixel, TileStream(p.Key), dst, p.SE)
+		res.HasSE = err == nil && p.SE != nil
+		return res, err
+	}
+	// Independent replicate clouds: the spread of their estimates gives an
+	// unbiased variance of the mean whatever the autocorrelation of the
+	// iterations (DEVELOPERS.md: batch means underestimate it at small
+	// smoothing).
+	pw.rmean, pw.rm2 = grow64(pw.rmean, n), grow64(pw.rm2, n)
+	clear(pw.rmean)
+	clear(pw.rm2)
+	var res Result
+	for g := 0; g < G; g++ {
+		r, err := pe.run(ctx, ws, p, nValid, flux, pe.PerPixel/G, TileStream(p.Key)^(uint64(g)*0x9E3779B97F4A7C15), dst, nil)
+		if err != nil {
+			return r, err
+		}
+		res = r
+		for i, v := range dst[:n] {
+			d := float64(v) - pw.rmean[i]
+			pw.rmean[i] += d / float64(g+1)
+			pw.rm2[i] += d * (float64(v) - pw.rmean[i])
+		}
+	}
+	for i, m := range pw.rmean {
+		dst[i] = float32(m)
+	}
+	if p.SE != nil {
+		inv := 1 / float64(G*(G-1))
+		for i, v := range pw.rm2 {
+			p.SE[i] = float32(math.Sqrt(v * inv))
+		}
+		res.HasSE = true
+	}
+	return res, nil
+}
+
+// run is one particle system with K particles per valid pixel on the random
+// stream (Seed, stream): its window mean goes to dst, its batch-means
+// standard error to se when non-nil.
+func (pe *ParticleEMS) run(ctx context.Context, ws *Workspace, p *Problem, nValid int, flux float64, K int, stream uint64, dst, se []float32) (Result, error) {
+	w, h := p.W, p.H
+	n := w * h
+	pw := ws.pw
+	np := K * nValid
+	pw.reset(np, n)
+	pw.rng.Seed(pe.Seed, stream)
+	np = pe.startCloud(pw, ws, p, K)
+	pw.x, pw.y, pw.w = pw.x[:np], pw.y[:np], pw.w[:np]
 
 	tm := pe.Timing
 	var t0 time.Time
@@ -558,9 +616,9 @@ func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst
 	if tm != nil {
 		t0 = time.Now()
 	}
-	K, B := pe.Iterations, pe.BurnIn
-	T := K - B
-	nb := pe.Batches
+	its, B := pe.Iterations, pe.BurnIn
+	T := its - B
+	nb := max(pe.Batches, 1)
 	batch, batchEnd, batchLen := 0, T/nb, T/nb
 	mass, wsum := flux, float64(np)
 	fN := float64(np)
@@ -601,7 +659,7 @@ func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst
 			}
 		}
 	}
-	for k := 0; k < K; k++ {
+	for k := 0; k < its; k++ {
 		if err := ctx.Err(); err != nil {
 			return res, err
 		}
@@ -681,21 +739,20 @@ func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst
 		accumulate(pw.fhat)
 	}
 	if tm != nil {
-		tm.ParticleIterations += int64(np) * int64(K)
+		tm.ParticleIterations += int64(np) * int64(its)
 	}
 	res.Change = change
 	invT := 1 / float64(window)
 	for i, s := range pw.sum {
 		dst[i] = float32(s * invT)
 	}
-	if p.SE != nil {
+	if se != nil {
 		// Batch-means standard error of the window mean: sqrt(var(batch
 		// means) / nb) (e.g. Flegal & Jones, Ann. Statist. 38:1034, 2010).
 		inv := 1 / float64((nb-1)*nb)
 		for i, v := range pw.m2 {
-			p.SE[i] = float32(math.Sqrt(v * inv))
+			se[i] = float32(math.Sqrt(v * inv))
 		}
-		res.HasSE = true
 	}
 	return res, nil
 }

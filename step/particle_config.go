@@ -37,8 +37,25 @@ type ParticleConfig struct {
 	BurnIn int
 	// Start is "flat" or "observed" ("" = DefaultStart).
 	Start string
-	// Batches for the batch-means standard error (0 = DefaultBatches).
+	// Batches for the batch-means standard error (0 = DefaultBatches),
+	// used when Replicates resolves to 1.
 	Batches int
+	// Replicates G: independent clouds whose spread gives the standard
+	// error (PerPixel must be a multiple of G; 1 = one cloud with batch
+	// means). 0 = auto: 4, else 2, else 1, the largest that divides
+	// PerPixel.
+	Replicates int
+}
+
+// AutoReplicates is the Replicates = 0 rule: the largest of 4, 2, 1 that
+// divides K.
+func AutoReplicates(k int) int {
+	for _, g := range []int{4, 2} {
+		if k%g == 0 {
+			return g
+		}
+	}
+	return 1
 }
 
 // DefaultParticle returns the default particle parameters.
@@ -69,6 +86,9 @@ func (cfg *Config) resolveParticle() error {
 	if pc.BurnIn < 0 {
 		pc.BurnIn = cfg.Iterations / 2
 	}
+	if pc.Replicates == 0 && pc.PerPixel > 0 {
+		pc.Replicates = AutoReplicates(pc.PerPixel)
+	}
 	if pc.PerPixel <= 0 || pc.PerPixel > 65536 {
 		return fmt.Errorf("%w: --particles-per-pixel %d must be between 1 and 65536", ErrConfig, pc.PerPixel)
 	}
@@ -87,7 +107,10 @@ func (cfg *Config) resolveParticle() error {
 	if pc.BurnIn >= cfg.Iterations {
 		return fmt.Errorf("%w: --burn-in %d must be less than --iterations %d (the estimate averages the iterations after the burn-in)", ErrConfig, pc.BurnIn, cfg.Iterations)
 	}
-	if pc.Batches < 2 || pc.Batches > cfg.Iterations-pc.BurnIn {
+	if pc.Replicates < 1 || pc.Replicates > pc.PerPixel || pc.PerPixel%pc.Replicates != 0 {
+		return fmt.Errorf("%w: --replicates %d must divide --particles-per-pixel %d (each replicate cloud gets K/G particles per pixel)", ErrConfig, pc.Replicates, pc.PerPixel)
+	}
+	if pc.Replicates == 1 && (pc.Batches < 2 || pc.Batches > cfg.Iterations-pc.BurnIn) {
 		return fmt.Errorf("%w: --batches %d must be between 2 and iterations - burn-in (%d)", ErrConfig, pc.Batches, cfg.Iterations-pc.BurnIn)
 	}
 	side := int64(cfg.Tile) + 3*int64(max(cfg.Overlap, 0)) // core (a last one may be longer by 2 blend = overlap) plus halo
@@ -106,7 +129,7 @@ func (cfg *Config) newParticleSolver() *ParticleEMS {
 	k := SmoothingKernel(cfg.Smooth)
 	return &ParticleEMS{H: NewConv(cfg.PSF), PSF: cfg.PSF, SmoothX: k, SmoothY: k, Iterations: cfg.Iterations,
 		PerPixel: pc.PerPixel, Potential: pot, Resampling: rs, ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn,
-		Start: st, Batches: pc.Batches, Seed: cfg.Seed}
+		Start: st, Batches: pc.Batches, Replicates: pc.Replicates, Seed: cfg.Seed}
 }
 
 // ParticleReport records the particle method's parameters and, per band,
@@ -119,6 +142,8 @@ type ParticleReport struct {
 	BurnIn       int                  `json:"burn_in"`
 	Start        string               `json:"start"`
 	Batches      int                  `json:"batches"`
+	Replicates   int                  `json:"replicates"`
+	SEMethod     string               `json:"standard_error_method"`
 	SEBlend      string               `json:"standard_error_blend"`
 	Bands        []ParticleBandReport `json:"bands"`
 }
@@ -135,3 +160,10 @@ type ParticleBandReport struct {
 
 // SEBlendRule documents how tile standard errors are combined.
 const SEBlendRule = "sqrt(sum_t w_t^2 se_t^2): blend weights w_t of the image, tiles' Monte Carlo errors independent"
+
+func (pc ParticleConfig) seMethod() string {
+	if pc.Replicates > 1 {
+		return fmt.Sprintf("spread of %d independent replicate clouds", pc.Replicates)
+	}
+	return fmt.Sprintf("batch means (%d batches) over the averaging window", pc.Batches)
+}

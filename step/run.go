@@ -230,7 +230,8 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	if cfg.Method == "particle" {
 		pc := cfg.Particle
 		rep.Particle = &ParticleReport{PerPixel: pc.PerPixel, Potential: pc.Potential, Resampling: pc.Resampling,
-			ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn, Start: pc.Start, Batches: pc.Batches, SEBlend: SEBlendRule}
+			ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn, Start: pc.Start, Batches: pc.Batches, SEBlend: SEBlendRule,
+			Replicates: pc.Replicates, SEMethod: pc.seMethod()}
 	}
 	nb := len(bands)
 	validity := make([]validFn, nb)

@@ -23,6 +23,7 @@ func particleFlags() []cli.Flag {
 		&cli.StringFlag{Name: "burn-in", Value: "auto", EnvVars: env("burn-in"), Usage: "particle method: iterations discarded before averaging (auto = half of --iterations)"},
 		&cli.StringFlag{Name: "start", Value: step.DefaultStart, EnvVars: env("start"), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
 		&cli.IntFlag{Name: "batches", Value: step.DefaultBatches, EnvVars: env("batches"), Usage: "particle method: batch means for the Monte Carlo standard error (2 - iterations after burn-in)"},
+		&cli.IntFlag{Name: "replicates", Value: 0, EnvVars: env("replicates"), Usage: "particle method: independent clouds whose spread gives the standard error (must divide --particles-per-pixel; 1 = one cloud with batch means; 0 = auto: 4, 2 or 1)"},
 		&cli.StringFlag{Name: "uncertainty", EnvVars: env("uncertainty"), Usage: "particle method: write the per-pixel Monte Carlo standard error (DN, float32, same grid and bands) to this GeoTIFF"},
 	}
 }
@@ -38,7 +39,7 @@ func parseParticle(c *cli.Context, cfg *step.Config, j *restoreJob) error {
 	}
 	pc := step.ParticleConfig{PerPixel: c.Int("particles-per-pixel"), Potential: c.String("potential"),
 		Resampling: c.String("resampling"), ESSThreshold: c.Float64("ess-threshold"), Start: c.String("start"),
-		Batches: c.Int("batches"), BurnIn: -1}
+		Batches: c.Int("batches"), BurnIn: -1, Replicates: c.Int("replicates")}
 	if b := c.String("burn-in"); b != "auto" {
 		v, err := strconv.Atoi(b)
 		if err != nil || v < 0 {
@@ -51,6 +52,9 @@ func parseParticle(c *cli.Context, cfg *step.Config, j *restoreJob) error {
 	}
 	if pc.Batches == 0 {
 		return usagef("--batches 0: give at least 2")
+	}
+	if pc.Replicates < 0 {
+		return usagef("--replicates %d must be >= 0 (0 = auto)", pc.Replicates)
 	}
 	cfg.Particle = pc
 	return nil
@@ -99,7 +103,7 @@ func createUncertainty(j *restoreJob, om raster.Meta) (*raster.GDALWriter, error
 
 func particleParams(p *step.ParticleReport) map[string]any {
 	return map[string]any{"particles_per_pixel": p.PerPixel, "potential": p.Potential, "resampling": p.Resampling,
-		"ess_threshold": p.ESSThreshold, "burn_in": p.BurnIn, "start": p.Start, "batches": p.Batches}
+		"ess_threshold": p.ESSThreshold, "burn_in": p.BurnIn, "start": p.Start, "batches": p.Batches, "replicates": p.Replicates}
 }
 
 // recordUncertainty labels the standard-error raster.
@@ -112,6 +116,7 @@ func recordUncertainty(dst *raster.GDALWriter, rep *step.Report) error {
 		{"LIMPID_PSF", rep.PSF},
 		{"LIMPID_PARAMETERS", string(params)},
 		{"LIMPID_SE_BLEND", step.SEBlendRule},
+		{"LIMPID_SE_METHOD", rep.Particle.SEMethod},
 	}
 	for _, it := range items {
 		if err := dst.SetMetadata(it[0], it[1]); err != nil {
