@@ -102,8 +102,14 @@ type ParticleTiming struct {
 // After BurnIn iterations the smoothed density S(f_hat * c) (the expected
 // density after reweighting, resampling and mutation given the cloud:
 // Rao-Blackwellised over steps 4 and 5) is averaged over the remaining
-// iterations: the output. Batch means over that window (Batches batches)
-// give the per-pixel Monte Carlo standard error written to Problem.SE.
+// iterations: the output. The per-pixel Monte Carlo standard error written
+// to Problem.SE comes from Replicates independent clouds (their spread), or
+// with one cloud from batch means over the window (Batches batches), which
+// underestimate it when the window is short against the autocorrelation of
+// the iterations (measured in DEVELOPERS.md).
+//
+// With PotentialSampled the mass update uses the sampled potentials, so the
+// flux is kept in expectation only.
 //
 // Why cells and discrete moves rather than cloud-in-cell (bilinear) weights
 // and Gaussian moves: with cell deposits the splat and the gather of c are

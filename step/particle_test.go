@@ -35,9 +35,11 @@ func particleProblem(t testing.TB) (d []float32, n int, k *psf.Kernel, sk []floa
 	return d, n, k, SmoothingKernel(0.5)
 }
 
-// gridFixedPoint runs grid EMS to its fixed point (relative change 1e-9).
+// gridFixedPoint runs grid EMS to its fixed point: on this problem the
+// iterate at 500 equals those at 1000, 2000 and 5000 to float32 rounding
+// (measured, smooth 0.2 and 0.5).
 func gridFixedPoint(t testing.TB, d []float32, n int, k *psf.Kernel, sk []float64) []float32 {
-	g := &GridEMS{H: NewConv(k), S: NewSeparableConv(sk, sk), Iterations: 5000, Tolerance: 1e-9}
+	g := &GridEMS{H: NewConv(k), S: NewSeparableConv(sk, sk), Iterations: 500, Tolerance: 1e-9}
 	p := &Problem{D: append([]float32(nil), d...), Mask: ones(n * n), W: n, H: n}
 	f := make([]float32, n*n)
 	var ws Workspace
@@ -96,7 +98,7 @@ func TestParticleConvergesToGrid(t *testing.T) {
 	d, n, k, sk := particleProblem(t)
 	grid := gridFixedPoint(t, d, n, k, sk)
 	var xs, ys []float64
-	for _, K := range []int{1, 2, 4, 8, 16, 32, 64} {
+	for _, K := range []int{1, 2, 4, 8, 16, 32} {
 		f, _ := particleSolve(t, newTestParticle(k, sk, K, 1), nil, d, ones(n*n), n, n, TileKey{})
 		e := rmsDiff(f, grid)
 		xs = append(xs, math.Log(float64(K*n*n)))
@@ -166,7 +168,6 @@ func TestParticleErrorBarsCalibrated(t *testing.T) {
 		its, burn, reps int
 	}{
 		{"replicates, smooth 0.2, 50 iterations", 0.2, 50, 25, 4},
-		{"replicates, smooth 0.5, 200 iterations", 0.5, 200, 100, 4},
 		{"batch means, smooth 0.5, 200 iterations", 0.5, 200, 100, 1},
 	} {
 		sk := SmoothingKernel(c.eps)
@@ -217,8 +218,8 @@ func TestParticleGaussianFixedPoint(t *testing.T) {
 		var vs []float64
 		var ws Workspace
 		for s := 0; s < seeds; s++ {
-			pe := &ParticleEMS{H: NewConv(H), PSF: H, SmoothX: SmoothingKernel(c.eps * z), Iterations: 500, PerPixel: 64,
-				ESSThreshold: 0.5, BurnIn: 200, Batches: 10, Seed: uint64(s + 1)}
+			pe := &ParticleEMS{H: NewConv(H), PSF: H, SmoothX: SmoothingKernel(c.eps * z), Iterations: 400, PerPixel: 32,
+				ESSThreshold: 0.5, BurnIn: 150, Batches: 10, Seed: uint64(s + 1)}
 			f, _ := particleSolve(t, pe, &ws, d, ones(n), n, 1, TileKey{})
 			vs = append(vs, variance1D(f)/(z*z))
 		}
@@ -499,8 +500,8 @@ func TestParticleBlendedSE(t *testing.T) {
 	one := raster.NewMem(raster.Meta{Width: w, Height: h, DataType: "Float32", Bands: src.M.Bands[:1]})
 	one.Bands[0] = src.Bands[2]
 	cfg := baseConfig(k)
-	cfg.Method, cfg.Tile, cfg.Overlap, cfg.Smooth, cfg.Iterations = "particle", 32, 16, 0.5, 40
-	cfg.Particle = ParticleConfig{PerPixel: 4, ESSThreshold: 0.5, BurnIn: 20, Batches: 5}
+	cfg.Method, cfg.Tile, cfg.Overlap, cfg.Smooth, cfg.Iterations = "particle", 32, 16, 0.5, 20
+	cfg.Particle = ParticleConfig{PerPixel: 4, ESSThreshold: 0.5, BurnIn: 10, Batches: 5}
 	plan, _ := NewPlan(w, h, 32, 16)
 	inRamp := func(x int) bool {
 		for i := 1; i < len(plan.Cols); i++ {
@@ -510,7 +511,7 @@ func TestParticleBlendedSE(t *testing.T) {
 		}
 		return false
 	}
-	const seeds = 12
+	const seeds = 10
 	n := w * h
 	sum, sq, se2 := make([]float64, n), make([]float64, n), make([]float64, n)
 	for s := 0; s < seeds; s++ {
