@@ -564,3 +564,46 @@ func TestParticleBlendedSE(t *testing.T) {
 		}
 	}
 }
+
+// Source: as TestMutationVariance, for the whole cloud's move (the
+// jump-sampling path used at small eps and the per-particle path above
+// jumpMaxP): per axis, mean displacement 0 and variance eps^2, no
+// covariance between the axes (the product kernel), within 4 standard
+// errors (sd of the sample variance <= sqrt(E d^4 / n); of the mean and
+// covariance <= sqrt(E d^2 / n)).
+func TestCloudMoveLaw(t *testing.T) {
+	const n, side = 400000, 4096
+	for _, c := range []struct{ ex, ey float64 }{{0.2, 0.2}, {0.3, 0.1}, {0.5, 0.5}, {0.9, 0.4}, {0.2, 0}} {
+		pe := &ParticleEMS{SmoothX: SmoothingKernel(c.ex), SmoothY: SmoothingKernel(c.ey)}
+		pe.init()
+		pw := &particleWork{x: make([]float32, n), y: make([]float32, n)}
+		pw.rng.Seed(9, uint64(100*c.ex+10*c.ey))
+		for i := range pw.x {
+			pw.x[i], pw.y[i] = side/2+0.5, side/2+0.5
+		}
+		pe.mutate(pw, side, side)
+		var mx, my, vx, vy, cxy float64
+		for i := range pw.x {
+			dx, dy := float64(pw.x[i])-(side/2+0.5), float64(pw.y[i])-(side/2+0.5)
+			mx += dx / n
+			my += dy / n
+			vx += dx * dx / n
+			vy += dy * dy / n
+			cxy += dx * dy / n
+		}
+		for _, a := range []struct {
+			name      string
+			m, v, eps float64
+		}{{"x", mx, vx, c.ex}, {"y", my, vy, c.ey}} {
+			e2 := a.eps * a.eps
+			sdv := math.Sqrt(math.Max(e2, 3*e2*e2) / n)
+			sdm := math.Sqrt(e2 / n)
+			if math.Abs(a.v-e2) > 4*sdv+1e-12 || math.Abs(a.m) > 4*sdm+1e-12 {
+				t.Errorf("eps (%g, %g) axis %s: mean %.5f, variance %.5f, want 0 and %.5f", c.ex, c.ey, a.name, a.m, a.v, e2)
+			}
+		}
+		if sd := math.Sqrt(c.ex * c.ex * c.ey * c.ey / n); math.Abs(cxy) > 4*sd+1e-12 {
+			t.Errorf("eps (%g, %g): covariance %.5f", c.ex, c.ey, cxy)
+		}
+	}
+}
