@@ -607,3 +607,27 @@ func TestCloudMoveLaw(t *testing.T) {
 		}
 	}
 }
+
+// Source: the EMS fixed point does not depend on the start (Silverman et
+// al. 1990), and the sampled potential is unbiased for the exact one
+// (GUIDE section 2): with either start and either potential the particle
+// estimate must be as far from the converged grid EMS as its reported
+// error says (ratio in [0.7, 1.4], the calibration bar).
+func TestParticleStartsAndPotentialsAgree(t *testing.T) {
+	d, n, k, sk := particleProblem(t)
+	grid := gridFixedPoint(t, d, n, k, sk)
+	for _, c := range []struct {
+		start Start
+		pot   Potential
+	}{{StartObserved, PotentialExact}, {StartFlat, PotentialSampled}, {StartObserved, PotentialSampled}} {
+		pe := newTestParticle(k, sk, 16, 31)
+		pe.Start, pe.Potential, pe.Replicates = c.start, c.pot, 4
+		pe.Iterations, pe.BurnIn = 100, 50
+		f, se := particleSolve(t, pe, nil, d, ones(n*n), n, n, TileKey{})
+		ratio := rmsDiff(f, grid) / rms(se)
+		t.Logf("start %v, potential %v: RMS(particle - grid) %.2f, RMS(SE) %.2f, ratio %.3f", c.start, c.pot, rmsDiff(f, grid), rms(se), ratio)
+		if ratio < 0.7 || ratio > 1.4 {
+			t.Errorf("start %v, potential %v: ratio %.3f outside [0.7, 1.4]", c.start, c.pot, ratio)
+		}
+	}
+}
