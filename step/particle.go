@@ -621,6 +621,9 @@ func (pe *ParticleEMS) resample(pw *particleWork, wsum float64) {
 
 // Solve implements Solver.
 func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
+	if pe.PerPixel < 1 || pe.Iterations < 1 || pe.BurnIn < 0 || pe.BurnIn >= pe.Iterations {
+		return Result{}, fmt.Errorf("particle EMS: need PerPixel >= 1 and 0 <= BurnIn < Iterations (got %d, %d, %d)", pe.PerPixel, pe.BurnIn, pe.Iterations)
+	}
 	pe.once.Do(pe.init)
 	w, h := p.W, p.H
 	n := w * h
@@ -638,7 +641,7 @@ func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst
 	}
 	pw := ws.pw
 	pe.H.Adjoint(&ws.conv, ws.s, p.Mask, w, h)
-	G := pe.Replicates
+	G := min(pe.Replicates, pe.PerPixel)
 	if G <= 1 {
 		res, err := pe.run(ctx, ws, p, nValid, flux, pe.PerPixel, TileStream(p.Key), dst, p.SE)
 		res.HasSE = err == nil && p.SE != nil
