@@ -601,14 +601,18 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 // the cloud roughly sorted by pixel, good for the cache) with unit weights.
 func (pe *ParticleEMS) resample(pw *particleWork, wsum float64) {
 	np := len(pw.x)
-	pe.Resampling.Counts(pw.cnt[:np], pw.w, wsum, np, pw.x2, &pw.rng)
 	x2, y2 := pw.x2[:np], pw.y2[:np]
-	j := 0
-	for i, c := range pw.cnt[:np] {
-		xi, yi := pw.x[i], pw.y[i]
-		for ; c > 0; c-- {
-			x2[j], y2[j] = xi, yi
-			j++
+	if pe.Resampling == Stratified || pe.Resampling == Systematic {
+		mergeResample(x2, y2, pw.x, pw.y, pw.w, wsum, pe.Resampling == Stratified, &pw.rng)
+	} else {
+		pe.Resampling.Counts(pw.cnt[:np], pw.w, wsum, np, pw.x2, &pw.rng)
+		j := 0
+		for i, c := range pw.cnt[:np] {
+			xi, yi := pw.x[i], pw.y[i]
+			for ; c > 0; c-- {
+				x2[j], y2[j] = xi, yi
+				j++
+			}
 		}
 	}
 	pw.x, pw.x2 = x2, pw.x[:cap(pw.x)]
@@ -854,4 +858,43 @@ func tm0(t *ParticleTiming) *ParticleTiming {
 		return &discardTiming
 	}
 	return t
+}
+
+// mergeResample writes the stratified (or systematic) offspring of (x, y, w)
+// into (x2, y2) in one pass: the same points, the same random numbers and
+// the same offspring as Counts followed by copying, without the counts.
+func mergeResample(x2, y2, x, y, w []float32, wsum float64, stratified bool, r *rand.PCG) {
+	n := len(x2)
+	step := wsum / float64(n)
+	u0 := uniform53(r)
+	j := 0
+	next := u0 * step
+	var cum float64
+	y, w = y[:len(x)], w[:len(x)]
+	for i, xi := range x {
+		cum += float64(w[i])
+		if next >= cum {
+			continue
+		}
+		yi := y[i]
+		for j < n && next < cum {
+			x2[j], y2[j] = xi, yi
+			j++
+			if stratified {
+				next = (float64(j) + uniform53(r)) * step
+			} else {
+				next = (float64(j) + u0) * step
+			}
+		}
+	}
+	if j < n {
+		for i := len(w) - 1; i >= 0; i-- {
+			if w[i] > 0 {
+				for ; j < n; j++ {
+					x2[j], y2[j] = x[i], y[i]
+				}
+				break
+			}
+		}
+	}
 }

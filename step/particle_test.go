@@ -631,3 +631,40 @@ func TestParticleStartsAndPotentialsAgree(t *testing.T) {
 		}
 	}
 }
+
+// The one-pass stratified and systematic resampling gives exactly the
+// offspring of Counts (whose unbiasedness TestResamplingUnbiased checks)
+// from the same random state.
+func TestMergeResampleMatchesCounts(t *testing.T) {
+	const n = 5000
+	var pcg rand.PCG
+	pcg.Seed(8, 9)
+	x, y, w := make([]float32, n), make([]float32, n), make([]float32, n)
+	var wsum float64
+	for i := range x {
+		x[i], y[i] = float32(i), float32(-i)
+		if i%7 != 0 {
+			w[i] = float32(math.Exp(2 * (uniform53(&pcg) - 0.5)))
+		}
+		wsum += float64(w[i])
+	}
+	for _, s := range []Resampling{Stratified, Systematic} {
+		a, b := pcg, pcg
+		cnt := make([]uint32, n)
+		s.Counts(cnt, w, wsum, n, nil, &a)
+		x2, y2 := make([]float32, n), make([]float32, n)
+		mergeResample(x2, y2, x, y, w, wsum, s == Stratified, &b)
+		j := 0
+		for i, c := range cnt {
+			for ; c > 0; c-- {
+				if x2[j] != x[i] || y2[j] != y[i] {
+					t.Fatalf("%v: offspring %d is %g, want ancestor %d", s, j, x2[j], i)
+				}
+				j++
+			}
+		}
+		if a != b {
+			t.Fatalf("%v: random streams diverged", s)
+		}
+	}
+}
