@@ -588,15 +588,28 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 	if cfg.SmoothAuto {
 		smooths = AutoSmooths
 	}
-	c := &chooser{cfg: cfg, plan: r.plan, noise: noise, smooths: smooths, seed: cfg.Seed,
+	particle := cfg.Method == "particle"
+	ccfg := cfg
+	if particle {
+		// The particle method's output is a Monte Carlo average whose
+		// derivative along a probe is not defined pathwise (resampling is
+		// discontinuous), so the risk is not computed on it. It
+		// approximates the same EMS recursion, so the bandwidth the grid
+		// EMS risk chooses is the one it gets; it keeps its own
+		// iterations (burn-in and averaging window).
+		cc := *cfg
+		cc.Stop, cc.Iterations = StopAuto, AutoCap
+		ccfg = &cc
+	}
+	c := &chooser{cfg: ccfg, plan: r.plan, noise: noise, smooths: smooths, seed: cfg.Seed,
 		weights: map[[2]int]*riskWeights{}, noDCT: map[[2]int]bool{}, runs: map[TileKey][]riskRun{}, valid: map[TileKey]int{}}
 	if cfg.Choose != ChoosePerTile {
 		c.tiles = sampleTiles(r.plan)
 	}
-	c.keep = r.plan.NTiles() == 1 && cfg.Stop == StopAuto
+	c.keep = r.plan.NTiles() == 1 && cfg.Stop == StopAuto && !particle
 	c.kept = make([]*keptTile, nb)
 	for _, e := range smooths {
-		c.grids = append(c.grids, newGrid(cfg.PSF, H, e, cfg.Iterations, 0))
+		c.grids = append(c.grids, newGrid(cfg.PSF, H, e, ccfg.Iterations, 0))
 	}
 	if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(smooths), cfg.Choose)); err != nil {
 		return nil, err
@@ -615,7 +628,14 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		if cfg.Stop != StopAuto {
 			it = cfg.Iterations
 		}
-		s := newGrid(cfg.PSF, H, eps, it, tol)
+		var s Solver
+		if particle {
+			pc := *cfg
+			pc.Smooth = eps
+			s = pc.newParticleSolver()
+		} else {
+			s = newGrid(cfg.PSF, H, eps, it, tol)
+		}
 		cache[key] = s
 		return s
 	}
@@ -653,6 +673,9 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		}
 		if cfg.Stop != StopAuto {
 			ch.Iterations = cfg.Iterations
+		}
+		if particle {
+			ch.Rule = "bandwidth by the grid EMS risk estimate (" + ch.Rule + "); the particle method runs --iterations"
 		}
 		chc := ch
 		r.rep.Bands[b].Choice = &chc

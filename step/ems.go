@@ -51,6 +51,7 @@ type Workspace struct {
 	conv              ConvWork
 	f, fn, p, q, t, s []float32
 	auto              *autoWork
+	pw                *particleWork // particle method state (particle.go)
 }
 
 func (ws *Workspace) reset(n int) {

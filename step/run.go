@@ -32,7 +32,7 @@ const (
 // Config is one restoration job. Zero values mean the documented default
 // only where a field says so.
 type Config struct {
-	Method  string // "grid"
+	Method  string // "grid" or "particle"
 	PSF     *psf.Kernel
 	PSFSpec string
 	// Smooth is the EMS smoothing bandwidth in pixels (0 = Richardson-Lucy).
@@ -67,6 +67,12 @@ type Config struct {
 	// Stage, when set, is called when an extra pass over the scene starts
 	// (noise estimate, automatic choice) with a short description.
 	Stage func(what string)
+	// Particle holds the particle method's parameters (particle_config.go).
+	Particle ParticleConfig
+	// Uncertainty, when set (particle method only), receives the blended
+	// per-pixel Monte Carlo standard error, same grid and bands as dst
+	// (NaN on invalid pixels). Restore writes it; the caller commits it.
+	Uncertainty raster.Writer
 }
 
 // DefaultOverlap is the halo rule: 4 (r_H + r_S) rounded up to a multiple of
@@ -135,6 +141,8 @@ type Report struct {
 	Height      int          `json:"height"`
 	Bands       []BandReport `json:"bands"`
 	WallSeconds float64      `json:"wall_seconds"`
+	// Particle is set for the particle method.
+	Particle *ParticleReport `json:"particle,omitempty"`
 }
 
 // TileError locates a failure (like encoding/csv's ParseError).
@@ -160,8 +168,8 @@ func (cfg *Config) Resolve() error {
 	if cfg.Method == "" {
 		cfg.Method = "grid"
 	}
-	if cfg.Method != "grid" {
-		return fmt.Errorf("%w: --method %q: only grid is available", ErrConfig, cfg.Method)
+	if cfg.Method != "grid" && cfg.Method != "particle" {
+		return fmt.Errorf("%w: --method %q: use grid or particle", ErrConfig, cfg.Method)
 	}
 	if cfg.Iterations < 1 || cfg.Iterations > 100000 {
 		return fmt.Errorf("%w: --iterations %d must be between 1 and 100000", ErrConfig, cfg.Iterations)
@@ -220,11 +228,23 @@ func (cfg *Config) Resolve() error {
 	if cfg.Workers > 1024 {
 		return fmt.Errorf("%w: --workers %d is more than 1024", ErrConfig, cfg.Workers)
 	}
+	if cfg.Method == "particle" {
+		if cfg.Stop != StopChange {
+			return fmt.Errorf("%w: --stop %s: the particle method runs a fixed number of iterations (--iterations, --burn-in); --stop auto and discrepancy apply to the grid method", ErrConfig, cfg.Stop)
+		}
+		return cfg.resolveParticle()
+	}
+	if cfg.Uncertainty != nil {
+		return fmt.Errorf("%w: --uncertainty: the grid method has no Monte Carlo error (use --method particle)", ErrConfig)
+	}
 	return nil
 }
 
 // NewSolver builds the solver cfg names.
 func (cfg *Config) NewSolver() Solver {
+	if cfg.Method == "particle" {
+		return cfg.newParticleSolver()
+	}
 	g := &GridEMS{H: NewConv(cfg.PSF), Iterations: cfg.Iterations, Tolerance: cfg.Tolerance}
 	if k := SmoothingKernel(cfg.Smooth); k != nil {
 		g.S = NewSeparableConv(k, k)
@@ -262,6 +282,12 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		s := cfg.Saturated
 		rep.Saturated = &s
 	}
+	if cfg.Method == "particle" {
+		pc := cfg.Particle
+		rep.Particle = &ParticleReport{PerPixel: pc.PerPixel, Potential: pc.Potential, Resampling: pc.Resampling,
+			ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn, Start: pc.Start, Batches: pc.Batches, SEBlend: SEBlendRule,
+			Replicates: pc.Replicates, SEMethod: pc.seMethod()}
+	}
 	nb := len(bands)
 	validity := make([]validFn, nb)
 	for i, b := range bands {
@@ -282,7 +308,8 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 			rep.Bands[i].BackgroundRule = fmt.Sprintf("auto: %g percentile of valid pixels", BackgroundPercentile)
 		}
 	}
-	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver}
+	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver,
+		withSE: cfg.Method == "particle"}
 	if cfg.SmoothAuto {
 		rep.SmoothRule = fmt.Sprintf("auto: risk estimate over %v", AutoSmooths)
 	}
@@ -298,6 +325,9 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	}
 	if err := r.run(ctx); err != nil {
 		return nil, err
+	}
+	if r.withSE {
+		r.finishSE()
 	}
 	for i := range rep.Bands {
 		b := &rep.Bands[i]
@@ -373,6 +403,13 @@ type runner struct {
 	accY    int
 	slots   []*slot // per (band, col)
 
+	// withSE: the solver reports standard errors; accSE holds the blended
+	// sum of w^2 se^2 like acc, seSum/seFlux the report's per-band sums.
+	withSE        bool
+	accSE         [][]float32
+	seSum, seFlux []float64
+	freeSE        chan [][]float32
+
 	// Finished rows go to a writer goroutine so that compression overlaps
 	// the next strip's computation.
 	writes chan writeJob
@@ -390,6 +427,7 @@ func (r *runner) writeErr() error {
 type writeJob struct {
 	y0, y1 int
 	bufs   [][]float32
+	se     [][]float32 // nil without standard errors
 }
 
 // slot holds one tile's blended output window.
@@ -397,6 +435,7 @@ type slot struct {
 	key    TileKey
 	strip  int
 	out    []float32
+	seOut  []float32 // w^2 se^2 when the solver reports SE
 	ox, oy Span
 	res    Result
 	err    error
@@ -406,6 +445,7 @@ type worker struct {
 	ws      Workspace
 	d, mask []float32
 	f       []float32
+	se      []float32
 	wx, wy  []float32
 }
 
@@ -441,17 +481,38 @@ func (r *runner) run(ctx context.Context) error {
 		}
 		r.free <- bufs
 	}
+	if r.withSE {
+		r.accSE = make([][]float32, nb)
+		for i := range r.accSE {
+			r.accSE[i] = make([]float32, W*maxOut)
+		}
+		r.seSum, r.seFlux = make([]float64, nb), make([]float64, nb)
+		r.freeSE = make(chan [][]float32, 2)
+		for k := 0; k < 2; k++ {
+			bufs := make([][]float32, nb)
+			for i := range bufs {
+				bufs[i] = make([]float32, W*maxOut)
+			}
+			r.freeSE <- bufs
+		}
+	}
 	writerDone := make(chan struct{})
 	go func() {
 		defer close(writerDone)
 		for j := range r.writes {
 			if r.writeErr() == nil {
 				err := r.dst.WriteRows(j.y0, j.y1, j.bufs)
+				if err == nil && j.se != nil && r.cfg.Uncertainty != nil {
+					err = r.cfg.Uncertainty.WriteRows(j.y0, j.y1, j.se)
+				}
 				r.werrMu.Lock()
 				r.werr = err
 				r.werrMu.Unlock()
 			}
 			r.free <- j.bufs
+			if j.se != nil {
+				r.freeSE <- j.se
+			}
 		}
 	}()
 	r.slots = make([]*slot, nb*len(p.Cols))
@@ -589,6 +650,10 @@ func (r *runner) solveTile(ctx context.Context, wk *worker, s *slot) error {
 	}
 	bg := float32(r.rep.Bands[k.Band].Background)
 	prob := &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: k}
+	if r.withSE {
+		wk.se = grow(wk.se, n)
+		prob.SE = wk.se
+	}
 	res, err := r.solver.Solve(ctx, &wk.ws, prob, wk.f)
 	if err != nil {
 		return err
@@ -610,6 +675,9 @@ func (r *runner) solveTile(ctx context.Context, wk *worker, s *slot) error {
 			orow[x] = wy * wk.wx[x] * (frow[x] + bg)
 		}
 	}
+	if r.withSE {
+		r.weightSE(wk, s, res, tw, x0, y0)
+	}
 	return nil
 }
 
@@ -628,6 +696,9 @@ func (r *runner) blendAndWrite(row, cur int) error {
 			for x, v := range orow {
 				arow[x] += v
 			}
+		}
+		if r.withSE {
+			r.blendSE(s)
 		}
 		br := &r.rep.Bands[s.key.Band]
 		br.Tiles = append(br.Tiles, TileReport{Col: s.key.Col, Row: s.key.Row, Iterations: s.res.Iterations, Change: s.res.Change, Flat: s.res.Flat})
@@ -666,7 +737,11 @@ func (r *runner) blendAndWrite(row, cur int) error {
 		}
 		bufs[b] = bufs[b][:cap(bufs[b])]
 	}
-	r.writes <- writeJob{y0: r.accY, y1: end, bufs: bufs}
+	var se [][]float32
+	if r.withSE {
+		se = r.outputSE(n, cur)
+	}
+	r.writes <- writeJob{y0: r.accY, y1: end, bufs: bufs, se: se}
 	// Carry the rows still being blended to the top of the accumulator.
 	for b := 0; b < nb; b++ {
 		acc := r.acc[b]
@@ -674,6 +749,11 @@ func (r *runner) blendAndWrite(row, cur int) error {
 		copy(acc[:rest*W], acc[n*W:])
 		for i := rest * W; i < len(acc); i++ {
 			acc[i] = 0
+		}
+		if r.withSE {
+			a := r.accSE[b]
+			copy(a[:rest*W], a[n*W:])
+			clear(a[rest*W:])
 		}
 	}
 	r.accY = end

@@ -219,3 +219,86 @@ func Poisson(r *rand.Rand, lam float64) int64 {
 		}
 	}
 }
+
+// Night-time scene of the fictional harbour town of Quillhaven (test and
+// measurement content only): a dark land background, lit roads with street
+// lamps, a quay with floodlights, harbour water with a breakwater, and boats
+// with deck lights. Values are photo-electron counts per pixel (mean well
+// below 30), so the observation is photon-limited.
+
+// nightAt returns the expected count rate at continuous pixel position
+// (u, v) of a w x h scene.
+func nightAt(u, v, w, h float64) float64 {
+	const land, water = 1.5, 0.4
+	shore := 0.55*h + 0.05*h*math.Sin(u/(0.13*w))
+	if v > shore {
+		// Harbour water, the breakwater and boats.
+		bw := math.Abs(v-(shore+0.3*(h-shore))) < 1.2 && u > 0.3*w && u < 0.85*w
+		if bw {
+			if math.Mod(u, 23) < 1 {
+				return 160 // breakwater lamps
+			}
+			return 6
+		}
+		for k := 0; k < 9; k++ {
+			hsh := hash2(k, 77)
+			bx := w * (0.08 + 0.1*float64(k) + 0.02*float64(hsh%5))
+			by := shore + 6 + float64(hsh>>8%uint64(math.Max(1, 0.35*(h-shore))))
+			lx, ly := (u-bx)*math.Cos(0.3*float64(k))+(v-by)*math.Sin(0.3*float64(k)), -(u-bx)*math.Sin(0.3*float64(k))+(v-by)*math.Cos(0.3*float64(k))
+			if math.Abs(lx) < 4+float64(k%3) && math.Abs(ly) < 1.5 {
+				if math.Abs(lx) < 0.6 && math.Abs(ly) < 0.6 {
+					return 400 // mast light
+				}
+				return 25 // lit deck
+			}
+		}
+		// Reflections of the quay lights on the water.
+		if v-shore < 12 && math.Mod(u, 17) < 1.5 {
+			return water + 8*math.Exp(-(v-shore)/4)
+		}
+		return water
+	}
+	// Quay: a floodlit strip along the shore.
+	if shore-v < 4 {
+		if math.Mod(u, 17) < 1.5 && shore-v < 1.5 {
+			return 300 // floodlights
+		}
+		return 40
+	}
+	// Roads: a grid turned 8 degrees with lamps every 11 pixels.
+	c, s := math.Cos(8*math.Pi/180), math.Sin(8*math.Pi/180)
+	pu, pv := c*u+s*v, -s*u+c*v
+	du, dv := math.Mod(pu+1000, 37), math.Mod(pv+1000, 29)
+	if du < 2 || dv < 2 {
+		if (du < 1 && math.Mod(pv+1000, 11) < 0.8) || (dv < 1 && math.Mod(pu+1000, 11) < 0.8) {
+			return 220 // street lamp
+		}
+		return 12 // lit road surface
+	}
+	// Houses: some windows lit.
+	hsh := hash2(int(pu/37), int(pv/29))
+	if hsh%3 == 0 && du > 8 && du < 14 && dv > 6 && dv < 10 {
+		return 18
+	}
+	return land
+}
+
+// NightReference renders the Quillhaven night scene (w x h, photo-electron
+// counts; each pixel the mean of a 4x4 supersampled patch).
+func NightReference(w, h int) []float32 {
+	const ss = 4
+	out := make([]float32, w*h)
+	fw, fh := float64(w), float64(h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var acc float64
+			for sy := 0; sy < ss; sy++ {
+				for sx := 0; sx < ss; sx++ {
+					acc += nightAt(float64(x)+(float64(sx)+0.5)/ss, float64(y)+(float64(sy)+0.5)/ss, fw, fh)
+				}
+			}
+			out[y*w+x] = float32(acc / (ss * ss))
+		}
+	}
+	return out
+}

@@ -45,6 +45,7 @@ DIR/report.json, then prints PSNR and SSIM of observed and restored against the 
 			&cli.StringFlag{Name: "out", Value: "limpid-demo", EnvVars: env("out"), Usage: "output directory (created)"},
 			&cli.IntFlag{Name: "size", Value: 768, EnvVars: env("size"), Usage: "scene width and height in pixels (64-4096)"},
 			&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs)"},
+			&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, EnvVars: env("particles-per-pixel"), Usage: "also restore with the particle method at K particles per pixel and print it beside grid (0 = grid only)"},
 		},
 		Action: func(c *cli.Context) error {
 			n := c.Int("size")
@@ -53,6 +54,9 @@ DIR/report.json, then prints PSNR and SSIM of observed and restored against the 
 			}
 			if c.NArg() > 0 {
 				return usagef("demo takes no arguments (got %q)", c.Args().First())
+			}
+			if k := c.Int("particles-per-pixel"); k < 0 || k > 1024 {
+				return usagef("--particles-per-pixel %d must be between 0 and 1024", k)
 			}
 			return runDemo(c, c.String("out"), n, c.Int("workers"), stdout, stderr)
 		},
@@ -154,17 +158,25 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 	if err != nil {
 		return err
 	}
+	part, err := demoParticle(c, dir, obsPath, cfg, c.Int("particles-per-pixel"), stdout, stderr)
+	if err != nil {
+		return err
+	}
 	valid := make([]bool, n*n)
 	for i := range valid {
 		valid[i] = !math.IsNaN(float64(ref[0][i]))
 	}
 	fmt.Fprintf(stdout, "Brannock Vale demo (invented scene), PSF %s, EMS smooth %g, %d iterations, %.1f s\n",
 		demoPSF, rep.Smooth, rep.Iterations, rep.WallSeconds)
-	fmt.Fprintf(stdout, "%-6s %14s %14s %13s %13s\n", "band", "PSNR observed", "PSNR restored", "SSIM observed", "SSIM restored")
-	for b, name := range step.ValleyBands {
-		fmt.Fprintf(stdout, "%-6s %11.2f dB %11.2f dB %13.4f %13.4f\n", name,
-			step.PSNR(ref[b], obs[b], valid, demoDataMax), step.PSNR(ref[b], res[b], valid, demoDataMax),
-			step.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), step.SSIM(ref[b], res[b], valid, n, n, demoDataMax))
+	if part != nil {
+		part.printSideBySide(stdout, ref, obs, res, valid, n)
+	} else {
+		fmt.Fprintf(stdout, "%-6s %14s %14s %13s %13s\n", "band", "PSNR observed", "PSNR restored", "SSIM observed", "SSIM restored")
+		for b, name := range step.ValleyBands {
+			fmt.Fprintf(stdout, "%-6s %11.2f dB %11.2f dB %13.4f %13.4f\n", name,
+				step.PSNR(ref[b], obs[b], valid, demoDataMax), step.PSNR(ref[b], res[b], valid, demoDataMax),
+				step.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), step.SSIM(ref[b], res[b], valid, n, n, demoDataMax))
+		}
 	}
 	ql := filepath.Join(dir, "quicklook.png")
 	if err := quicklook(ql, obs, res, valid, n); err != nil {

@@ -39,7 +39,7 @@ func psfHelp() string {
 }
 
 func restoreFlags() []cli.Flag {
-	return []cli.Flag{
+	return append([]cli.Flag{
 		&cli.StringFlag{Name: "psf", EnvVars: env("psf"), Usage: psfHelp()},
 		&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff (tiled, DEFLATE, predictor, BIGTIFF=IF_SAFER) or cog (Cloud Optimized GeoTIFF)"},
 		&cli.StringFlag{Name: "bands", EnvVars: env("bands"), Usage: "1-based bands to restore, in output order, e.g. 1,3,4 (default: all)"},
@@ -52,13 +52,13 @@ func restoreFlags() []cli.Flag {
 		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, EnvVars: env("tolerance"), Usage: "--stop change: stop a tile when the relative L1 change falls below this (0 = never)"},
 		&cli.StringFlag{Name: "choose", Value: step.ChooseGlobal, EnvVars: env("choose"), Usage: "with auto: global (one choice per band from up to 16 tiles, uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
 		&cli.StringFlag{Name: "noise", Value: "auto", EnvVars: env("noise"), Usage: "noise model var = a*DN + b used by auto and discrepancy: auto (fitted per band from the scene) or a=GAIN,b=READVAR"},
-		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid)"},
+		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid) or particle (sequential Monte Carlo EMS with per-pixel error bars; see the particle flags)"},
 		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for stochastic methods (recorded; grid is deterministic)"},
 		&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs); output is identical for any value"},
 		&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels"},
 		&cli.StringFlag{Name: "overlap", Value: "auto", EnvVars: env("overlap"), Usage: "halo in pixels read around each tile; auto = 4 x (PSF radius + smoothing radius), rounded up to 8, at least 16, at most the tile"},
 		&cli.StringFlag{Name: "report", EnvVars: env("report"), Usage: "write a JSON report of the run to this file"},
-	}
+	}, particleFlags()...)
 }
 
 func restoreCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
@@ -94,6 +94,8 @@ type restoreJob struct {
 	bandSpec   string
 	cfg        step.Config
 	reportPath string
+	// uncPath is --uncertainty (particle method): the standard-error raster.
+	uncPath string
 }
 
 func parseBands(s string, n int) ([]int, error) {
@@ -184,6 +186,9 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 		}
 		cfg.Saturated, cfg.HasSaturated = v, true
 	}
+	if err := parseParticle(c, &cfg, j); err != nil {
+		return nil, err
+	}
 	if err := cfg.Resolve(); err != nil {
 		return nil, err
 	}
@@ -211,7 +216,13 @@ func parseRegularisation(c *cli.Context, cfg *step.Config) error {
 		}
 		cfg.Smooth = v
 	}
-	switch st := c.String("stop"); st {
+	st := c.String("stop")
+	if c.String("method") == "particle" && !c.IsSet("stop") {
+		// The particle method runs a fixed number of iterations.
+		st = step.StopChange
+		cfg.Stop = st
+	}
+	switch st {
 	case step.StopAuto, step.StopDiscrepancy, step.StopChange:
 		if st != step.StopChange && !c.IsSet("iterations") {
 			cfg.Iterations = step.AutoCap
@@ -318,6 +329,9 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 	if err := checkPaths(j.in, j.out); err != nil {
 		return err
 	}
+	if err := checkUncertaintyPath(j); err != nil {
+		return err
+	}
 	// Tile streams on either side (tiles.go).
 	for _, f := range []string{"input-format", "output-format"} {
 		if v := c.String(f); v != "raster" && v != "arrow" {
@@ -341,6 +355,8 @@ type fullReport struct {
 	Finished   string       `json:"finished_utc"`
 	Product    string       `json:"product"`
 	Step       *step.Report `json:"restoration"`
+	// Uncertainty is the --uncertainty raster (particle method).
+	Uncertainty string `json:"uncertainty,omitempty"`
 }
 
 func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, stderr io.Writer) (*step.Report, error) {
@@ -379,26 +395,59 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	cfg := j.cfg
 	cfg.Progress = progress(stderr, len(bands)*tileCount(meta, cfg))
 	cfg.Stage = func(what string) { fmt.Fprintf(stderr, "limpid: %s\n", what) }
-	rep, err := step.Restore(ctx, src, bands, dst, cfg)
+	unc, err := createUncertainty(j, om)
 	if err != nil {
 		dst.Abort()
 		return nil, err
 	}
-	if err := recordProcessing(dst, rep); err != nil {
+	if unc != nil {
+		cfg.Uncertainty = unc
+	}
+	abort := func() {
 		dst.Abort()
+		if unc != nil {
+			unc.Abort()
+		}
+	}
+	rep, err := step.Restore(ctx, src, bands, dst, cfg)
+	if err != nil {
+		abort()
 		return nil, err
+	}
+	if err := recordProcessing(dst, rep); err != nil {
+		abort()
+		return nil, err
+	}
+	if unc != nil {
+		if err := recordUncertainty(unc, rep); err != nil {
+			abort()
+			return nil, err
+		}
 	}
 	if j.reportPath != "" {
 		full := fullReport{Input: j.in, Output: j.out, Format: string(j.format), OutputType: om.DataType,
-			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: "restored (deconvolved) image; keep the original", Step: rep}
+			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: "restored (deconvolved) image; keep the original", Step: rep,
+			Uncertainty: j.uncPath}
 		if err := writeJSON("--report", j.reportPath, full); err != nil {
+			abort()
+			return nil, err
+		}
+	}
+	if unc != nil {
+		if err := unc.Commit(); err != nil {
 			dst.Abort()
+			if j.reportPath != "" {
+				os.Remove(j.reportPath)
+			}
 			return nil, err
 		}
 	}
 	if err := dst.Commit(); err != nil {
 		if j.reportPath != "" {
 			os.Remove(j.reportPath)
+		}
+		if unc != nil {
+			os.Remove(j.uncPath)
 		}
 		return nil, err
 	}
@@ -468,10 +517,14 @@ func writeJSON(flag, path string, v any) error {
 
 // recordProcessing adds limpid's processing metadata to the output.
 func recordProcessing(dst *raster.GDALWriter, rep *step.Report) error {
-	params, _ := json.Marshal(map[string]any{
+	pm := map[string]any{
 		"smooth": rep.Smooth, "smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
 		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,
-	})
+	}
+	if rep.Particle != nil {
+		pm["particle"] = particleParams(rep.Particle)
+	}
+	params, _ := json.Marshal(pm)
 	items := [][2]string{
 		{"LIMPID_PRODUCT", "restored (deconvolved) image; keep the original"},
 		{"LIMPID_VERSION", rep.Version},

@@ -1,0 +1,132 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"path/filepath"
+	"strconv"
+
+	"github.com/urfave/cli/v2"
+
+	"limpid/raster"
+	"limpid/step"
+)
+
+// particleFlags are restore's flags for --method particle.
+func particleFlags() []cli.Flag {
+	return []cli.Flag{
+		&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, EnvVars: env("particles-per-pixel"), Usage: "particle method: particles per valid pixel K (cost and memory grow with K, Monte Carlo error falls as 1/sqrt(K))"},
+		&cli.StringFlag{Name: "potential", Value: step.DefaultPotential, EnvVars: env("potential"), Usage: "particle method: exact (potential integrated on the grid) or sampled (one PSF draw per particle)"},
+		&cli.StringFlag{Name: "resampling", Value: step.DefaultResampling, EnvVars: env("resampling"), Usage: "particle method: stratified, systematic, residual or multinomial"},
+		&cli.Float64Flag{Name: "ess-threshold", Value: step.DefaultESSThreshold, EnvVars: env("ess-threshold"), Usage: "particle method: resample when the effective sample size falls below this fraction of the particles (0-1)"},
+		&cli.StringFlag{Name: "burn-in", Value: "auto", EnvVars: env("burn-in"), Usage: "particle method: iterations discarded before averaging (auto = half of --iterations)"},
+		&cli.StringFlag{Name: "start", Value: step.DefaultStart, EnvVars: env("start"), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
+		&cli.IntFlag{Name: "batches", Value: step.DefaultBatches, EnvVars: env("batches"), Usage: "particle method: batch means for the Monte Carlo standard error (2 - iterations after burn-in)"},
+		&cli.IntFlag{Name: "replicates", Value: 0, EnvVars: env("replicates"), Usage: "particle method: independent clouds whose spread gives the standard error (must divide --particles-per-pixel; 1 = one cloud with batch means; 0 = auto: 4, 2 or 1)"},
+		&cli.StringFlag{Name: "uncertainty", EnvVars: env("uncertainty"), Usage: "particle method: write the per-pixel Monte Carlo standard error (DN, float32, same grid and bands) to this GeoTIFF"},
+	}
+}
+
+// parseParticle reads the particle flags into cfg (validated by Resolve).
+func parseParticle(c *cli.Context, cfg *step.Config, j *restoreJob) error {
+	j.uncPath = c.String("uncertainty")
+	if cfg.Method != "particle" {
+		if j.uncPath != "" {
+			return usagef("--uncertainty %s: the grid method has no Monte Carlo error; use --method particle", j.uncPath)
+		}
+		return nil
+	}
+	pc := step.ParticleConfig{PerPixel: c.Int("particles-per-pixel"), Potential: c.String("potential"),
+		Resampling: c.String("resampling"), ESSThreshold: c.Float64("ess-threshold"), Start: c.String("start"),
+		Batches: c.Int("batches"), BurnIn: -1, Replicates: c.Int("replicates")}
+	if b := c.String("burn-in"); b != "auto" {
+		v, err := strconv.Atoi(b)
+		if err != nil || v < 0 {
+			return usagef("--burn-in %q: give a number of iterations >= 0 or auto", b)
+		}
+		pc.BurnIn = v
+	}
+	if pc.PerPixel <= 0 {
+		return usagef("--particles-per-pixel %d must be at least 1", pc.PerPixel)
+	}
+	if pc.Batches == 0 {
+		return usagef("--batches 0: give at least 2")
+	}
+	if pc.Replicates < 0 {
+		return usagef("--replicates %d must be >= 0 (0 = auto)", pc.Replicates)
+	}
+	cfg.Particle = pc
+	return nil
+}
+
+// checkUncertaintyPath refuses stdout, the INPUT or OUTPUT path and a missing
+// directory for --uncertainty before any work is done.
+func checkUncertaintyPath(j *restoreJob) error {
+	if j.uncPath == "" {
+		return nil
+	}
+	if j.uncPath == "-" {
+		return usagef("--uncertainty -: stdout carries the image only; give a file")
+	}
+	if j.out != "-" {
+		a, _ := filepath.Abs(j.out)
+		b, _ := filepath.Abs(j.uncPath)
+		if a == b {
+			return usagef("--uncertainty %s is the OUTPUT: give another file", j.uncPath)
+		}
+	}
+	if err := checkPaths(j.in, j.uncPath); err != nil {
+		return usagef("--uncertainty: %v", err)
+	}
+	return nil
+}
+
+// createUncertainty prepares the standard-error raster: the output's grid
+// and bands, float32, NaN nodata.
+func createUncertainty(j *restoreJob, om raster.Meta) (*raster.GDALWriter, error) {
+	if j.uncPath == "" {
+		return nil, nil
+	}
+	um := om
+	um.DataType = "Float32"
+	um.Metadata = map[string]string{}
+	for k, v := range om.Metadata {
+		um.Metadata[k] = v
+	}
+	um.Bands = append([]raster.BandInfo(nil), om.Bands...)
+	for i := range um.Bands {
+		um.Bands[i].NoData, um.Bands[i].HasNoData = math.NaN(), true
+	}
+	return raster.Create(j.uncPath, um, raster.WriteOptions{Format: j.format, DataType: "Float32", NoData: math.NaN(), HasNoData: true})
+}
+
+func particleParams(p *step.ParticleReport) map[string]any {
+	return map[string]any{"particles_per_pixel": p.PerPixel, "potential": p.Potential, "resampling": p.Resampling,
+		"ess_threshold": p.ESSThreshold, "burn_in": p.BurnIn, "start": p.Start, "batches": p.Batches, "replicates": p.Replicates}
+}
+
+// recordUncertainty labels the standard-error raster.
+func recordUncertainty(dst *raster.GDALWriter, rep *step.Report) error {
+	params, _ := json.Marshal(particleParams(rep.Particle))
+	items := [][2]string{
+		{"LIMPID_PRODUCT", "Monte Carlo standard error (DN) of a restored (deconvolved) image"},
+		{"LIMPID_VERSION", rep.Version},
+		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
+		{"LIMPID_PSF", rep.PSF},
+		{"LIMPID_PARAMETERS", string(params)},
+		{"LIMPID_SE_BLEND", step.SEBlendRule},
+		{"LIMPID_SE_METHOD", rep.Particle.SEMethod},
+	}
+	for _, it := range items {
+		if err := dst.SetMetadata(it[0], it[1]); err != nil {
+			return err
+		}
+	}
+	for i, b := range rep.Particle.Bands {
+		if err := dst.SetBandMetadata(i, "LIMPID_MEAN_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanSE)); err != nil {
+			return err
+		}
+	}
+	return nil
+}

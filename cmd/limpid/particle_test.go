@@ -1,0 +1,146 @@
+package main
+
+import (
+	"bytes"
+	"encoding/json"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// Bad particle parameters exit 2 with one line naming the flag and leave
+// nothing at OUTPUT or at the --uncertainty path (issue requirement: K <= 0,
+// eps < 0, burn-in >= iterations; the grid method has no Monte Carlo error).
+func TestParticleBadParameters(t *testing.T) {
+	dir := t.TempDir()
+	obs := fixture("observed.tif")
+	unc := filepath.Join(dir, "unc.tif")
+	p := []string{"--psf", "gaussian:sigma=1", "--method", "particle"}
+	cases := []struct {
+		name string
+		args []string
+		want string
+	}{
+		{"K zero", append(p, "--particles-per-pixel", "0"), "--particles-per-pixel"},
+		{"K negative", append(p, "--particles-per-pixel", "-4"), "--particles-per-pixel"},
+		{"eps negative", append(p, "--smooth", "-0.5"), "--smooth"},
+		{"burn-in equal", append(p, "--iterations", "20", "--burn-in", "20"), "--burn-in 20 must be less than --iterations 20"},
+		{"burn-in above", append(p, "--iterations", "20", "--burn-in", "30"), "--burn-in"},
+		{"burn-in nonsense", append(p, "--burn-in", "half"), "--burn-in"},
+		{"potential", append(p, "--potential", "guess"), "--potential"},
+		{"resampling", append(p, "--resampling", "random"), "--resampling"},
+		{"ess threshold", append(p, "--ess-threshold", "1.5"), "--ess-threshold"},
+		{"start", append(p, "--start", "zero"), "--start"},
+		{"batches", append(p, "--iterations", "20", "--burn-in", "15", "--replicates", "1", "--batches", "6"), "--batches"},
+		{"replicates", append(p, "--particles-per-pixel", "6", "--replicates", "4"), "--replicates 4 must divide --particles-per-pixel 6"},
+		{"uncertainty with grid", []string{"--psf", "gaussian:sigma=1", "--uncertainty", unc}, "grid method has no Monte Carlo error"},
+		{"uncertainty stdout", append(p, "--uncertainty", "-"), "--uncertainty"},
+		{"uncertainty no dir", append(p, "--uncertainty", filepath.Join(dir, "no", "u.tif")), "does not exist"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			out := filepath.Join(dir, "out.tif")
+			args := append([]string{"restore"}, c.args...)
+			args = append(args, obs, out)
+			code, stdout, stderr := limpid(t, nil, args...)
+			if code != 2 {
+				t.Fatalf("exit %d, want 2; stderr: %s", code, stderr)
+			}
+			if lines := strings.Split(strings.TrimSpace(stderr), "\n"); len(lines) != 1 || !strings.Contains(stderr, c.want) {
+				t.Fatalf("stderr should be one line naming %q, got: %s", c.want, stderr)
+			}
+			if stdout != "" {
+				t.Fatalf("stdout not empty")
+			}
+			for _, f := range []string{out, unc} {
+				if _, err := os.Stat(f); err == nil {
+					t.Fatalf("%s was written", f)
+				}
+			}
+		})
+	}
+}
+
+// Source: GDAL's gdalinfo -json (gdal-bin): the uncertainty raster has the
+// output's size, geotransform, CRS and bands, in Float32 with NaN nodata;
+// --workers 1 and 2 give byte-identical image and uncertainty files (issue
+// requirement); the report records the particle parameters and the mean
+// standard error, which must agree with the raster's own mean.
+func TestParticleUncertaintyRaster(t *testing.T) {
+	dir := t.TempDir()
+	var img, unc [][]byte
+	for _, w := range []string{"1", "2"} {
+		out, u, rep := filepath.Join(dir, "o"+w+".tif"), filepath.Join(dir, "u"+w+".tif"), filepath.Join(dir, "r"+w+".json")
+		code, _, stderr := limpid(t, nil, "restore", "--psf", "gaussian:sigma=1.4", "--method", "particle", "--particles-per-pixel", "2",
+			"--iterations", "12", "--batches", "3", "--tile", "96", "--bands", "3,1", "--workers", w, "--uncertainty", u, "--report", rep,
+			fixture("observed.tif"), out)
+		if code != 0 {
+			t.Fatalf("exit %d: %s", code, stderr)
+		}
+		a, _ := os.ReadFile(out)
+		b, _ := os.ReadFile(u)
+		img, unc = append(img, a), append(unc, b)
+		if w != "1" {
+			continue
+		}
+		in, got := gdalinfo(t, out), gdalinfo(t, u)
+		for _, key := range []string{"geoTransform", "size", "coordinateSystem"} {
+			if mustJSON(in[key]) != mustJSON(got[key]) {
+				t.Errorf("%s: image %s, uncertainty %s", key, mustJSON(in[key]), mustJSON(got[key]))
+			}
+		}
+		ib, ub := in["bands"].([]any), got["bands"].([]any)
+		if len(ub) != 2 {
+			t.Fatalf("uncertainty has %d bands", len(ub))
+		}
+		for i := range ub {
+			bi, bu := ib[i].(map[string]any), ub[i].(map[string]any)
+			if bu["type"] != "Float32" || bu["description"] != bi["description"] || mustJSON(bu["noDataValue"]) != `"NaN"` {
+				t.Errorf("band %d: %s", i+1, mustJSON(bu))
+			}
+		}
+		var r struct {
+			Uncertainty string `json:"uncertainty"`
+			Restoration struct {
+				Method   string `json:"method"`
+				Particle struct {
+					PerPixel int `json:"particles_per_pixel"`
+					Bands    []struct {
+						MeanSE float64 `json:"mean_standard_error"`
+					} `json:"bands"`
+				} `json:"particle"`
+			} `json:"restoration"`
+		}
+		rb, _ := os.ReadFile(rep)
+		if err := json.Unmarshal(rb, &r); err != nil {
+			t.Fatal(err)
+		}
+		if r.Uncertainty != u || r.Restoration.Method != "particle" || r.Restoration.Particle.PerPixel != 2 || len(r.Restoration.Particle.Bands) != 2 {
+			t.Fatalf("report: %s", rb)
+		}
+		_, planes, err := readAll(u)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for bi, pl := range planes {
+			var s float64
+			var nv int
+			for _, v := range pl {
+				if !math.IsNaN(float64(v)) {
+					s += float64(v)
+					nv++
+				}
+			}
+			// The report's mean is over the same valid pixels in float64;
+			// the raster holds float32 values: relative 1e-6.
+			if m := s / float64(nv); math.Abs(m-r.Restoration.Particle.Bands[bi].MeanSE) > 1e-6*m || !(m > 0) {
+				t.Errorf("band %d: raster mean SE %g, report %g", bi+1, m, r.Restoration.Particle.Bands[bi].MeanSE)
+			}
+		}
+	}
+	if !bytes.Equal(img[0], img[1]) || !bytes.Equal(unc[0], unc[1]) {
+		t.Fatal("--workers 2 output differs from --workers 1")
+	}
+}

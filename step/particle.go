@@ -1,0 +1,900 @@
+package step
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"sync"
+	"time"
+
+	"limpid/psf"
+)
+
+// Potential selects how the particle method evaluates the EMS potential.
+type Potential int
+
+const (
+	// PotentialExact integrates G(x) = sum_y g(y|x) h(y)/h_n(y) on the pixel
+	// grid: G = (H^T r)/s with r = w d / h_n (Rao-Blackwellised).
+	PotentialExact Potential = iota
+	// PotentialSampled draws one Y from the PSF around each particle and
+	// weights it by r(Y)/s(X), an unbiased estimate of the same G (the
+	// published method's estimator, with h known on the grid).
+	PotentialSampled
+)
+
+func (p Potential) String() string {
+	if p == PotentialSampled {
+		return "sampled"
+	}
+	return "exact"
+}
+
+// ParsePotential maps "exact" / "sampled" to a Potential.
+func ParsePotential(s string) (Potential, error) {
+	switch s {
+	case "exact":
+		return PotentialExact, nil
+	case "sampled":
+		return PotentialSampled, nil
+	}
+	return 0, fmt.Errorf("%q: use exact or sampled", s)
+}
+
+// Start selects the particle method's initial cloud.
+type Start int
+
+const (
+	// StartFlat spreads PerPixel particles uniformly over every valid pixel.
+	StartFlat Start = iota
+	// StartObserved draws the particles from the observed image above
+	// background (systematic sampling over the valid pixels).
+	StartObserved
+)
+
+func (s Start) String() string {
+	if s == StartObserved {
+		return "observed"
+	}
+	return "flat"
+}
+
+// ParseStart maps "flat" / "observed" to a Start.
+func ParseStart(s string) (Start, error) {
+	switch s {
+	case "flat":
+		return StartFlat, nil
+	case "observed":
+		return StartObserved, nil
+	}
+	return 0, fmt.Errorf("%q: use flat or observed", s)
+}
+
+// ParticleTiming accumulates where a ParticleEMS spends its time (for the
+// benchmark's split); nil in production.
+type ParticleTiming struct {
+	Splat, Convolution, Reweight, Resample, Mutate, Estimate time.Duration
+	ParticleIterations                                       int64
+	Resamplings                                              int
+}
+
+// ParticleEMS is the sequential Monte Carlo approximation of EMS: "A
+// particle method for solving Fredholm equations of the first kind" (Crucinio,
+// Doucet & Johansen, JASA 2021, arXiv:2009.09974), on limpid's pixel grid.
+// N = PerPixel x (valid pixels) particles X_i (float32 tile coordinates,
+// structure of arrays) with weights W_i and a tracked total mass M
+// approximate the tile's object. Each iteration:
+//
+//  1. splat: f_hat = M / sum(W) * sum_i W_i [X_i in pixel j] (each particle
+//     deposits into the pixel cell that contains it);
+//  2. h_n = H f_hat + b, r = w d / h_n, c = (H^T r) / s with s = H^T w, on
+//     the grid with the solver's Conv;
+//  3. reweight: W_i <- W_i c(X_i) (PotentialExact), or W_i <- W_i r(Y_i)/s(X_i)
+//     with Y_i drawn from the PSF around X_i (PotentialSampled); the mass
+//     follows the grid's, M <- M sum(W c)/sum(W);
+//  4. resample when ESS = (sum W)^2 / sum W^2 < ESSThreshold x N;
+//  5. mutate: each axis moves by an integer displacement drawn from the
+//     grid's smoothing kernel (SmoothingKernel: for eps <= 0.5 the
+//     variance-matched 3 taps, i.e. +-1 pixel with probability eps^2/2
+//     each), reflected half-sample symmetrically at the tile border.
+//
+// After BurnIn iterations the smoothed density S(f_hat * c) (the expected
+// density after reweighting, resampling and mutation given the cloud:
+// Rao-Blackwellised over steps 4 and 5) is averaged over the remaining
+// iterations: the output. The per-pixel Monte Carlo standard error written
+// to Problem.SE comes from Replicates independent clouds (their spread), or
+// with one cloud from batch means over the window (Batches batches), which
+// underestimate it when the window is short against the autocorrelation of
+// the iterations (measured in DEVELOPERS.md).
+//
+// With PotentialSampled the mass update uses the sampled potentials, so the
+// flux is kept in expectation only.
+//
+// Why cells and discrete moves rather than cloud-in-cell (bilinear) weights
+// and Gaussian moves: with cell deposits the splat and the gather of c are
+// exact adjoints with no smoothing of their own, and the displacement law
+// is exactly the grid's S, so the N -> infinity limit of the recursion is
+// exactly grid EMS (GridEMS with the same H, S, b, w). Bilinear weights would
+// add a tent kernel (variance 1/6 pixel^2 per axis) in the splat and again in
+// the gather, i.e. a different, smoother EMS. Sub-pixel offsets are kept
+// (multiples of 1/256 pixel, so integer moves are exact in float32) but do
+// not enter the dynamics.
+//
+// Where s <= sensitivityFloor (no valid observation within the PSF's reach)
+// the potential is 1: particles there keep their weight, as the grid keeps
+// f there. Invalid pixels give no data term (r = 0) and receive particles
+// only through the smoothing moves. The flat start covers the valid pixels
+// only (the grid's flat start covers the whole tile); the fixed point does
+// not depend on the start.
+//
+// Random numbers: a math/rand/v2 PCG seeded from (Seed, Problem.Key) only,
+// so results are identical for any worker count and tile order.
+type ParticleEMS struct {
+	H *Conv
+	// PSF is the kernel H was built from (needed by PotentialSampled).
+	PSF *psf.Kernel
+	// SmoothX, SmoothY are the 1-D smoothing kernels (odd length, from
+	// SmoothingKernel); nil means no move along that axis.
+	SmoothX, SmoothY []float64
+	Iterations       int
+	// PerPixel is K, the number of particles per valid pixel (>= 1).
+	PerPixel   int
+	Potential  Potential
+	Resampling Resampling
+	// ESSThreshold: resample when ESS < ESSThreshold x N (0 never, 1 always
+	// unless the weights are equal).
+	ESSThreshold float64
+	// BurnIn iterations are discarded before averaging (0 <= BurnIn <
+	// Iterations).
+	BurnIn int
+	Start  Start
+	// Replicates G >= 2 runs G independent clouds of PerPixel/G particles
+	// per pixel (PerPixel must be a multiple of G); the output is their mean
+	// and the standard error comes from their spread, sqrt(sum (f_g -
+	// mean)^2 / (G (G-1))). G <= 1 runs one cloud with batch means.
+	Replicates int
+	// Batches is the number of batch means for the standard error when
+	// Replicates <= 1 (>= 2, <= Iterations - BurnIn).
+	Batches int
+	Seed    uint64
+	// RawEstimate averages the splatted cloud after mutation instead of the
+	// Rao-Blackwellised S(f_hat * c) (same expectation; for measurements).
+	RawEstimate bool
+	// Timing, when set, accumulates the time per phase.
+	Timing *ParticleTiming
+
+	once       sync.Once
+	s          *Conv
+	mutX, mutY moveTable
+	jump       jumpTable
+	alias      aliasTable
+}
+
+// Name implements Solver.
+func (pe *ParticleEMS) Name() string { return "particle" }
+
+// moveTable samples an integer displacement from a 1-D kernel by inversion
+// of its CDF in 32-bit fixed point.
+type moveTable struct {
+	cum []uint64 // cum[t] = round(2^32 * sum_{u <= t} k[u]); last = 2^32
+	r   int
+}
+
+func newMoveTable(k []float64) moveTable {
+	if len(k) <= 1 {
+		return moveTable{}
+	}
+	m := moveTable{cum: make([]uint64, len(k)), r: (len(k) - 1) / 2}
+	var acc float64
+	for i, v := range k {
+		acc += v
+		m.cum[i] = uint64(math.Round(acc * (1 << 32)))
+	}
+	m.cum[len(k)-1] = 1 << 32
+	return m
+}
+
+// move maps a 32-bit uniform to a displacement in [-r, r].
+func (m *moveTable) move(u uint32) float32 {
+	t := 0
+	for uint64(u) >= m.cum[t] {
+		t++
+	}
+	return float32(t - m.r)
+}
+
+// aliasTable is Walker's alias method (Walker, ACM TOMS 3:253, 1977; Vose's
+// construction, IEEE TSE 17:972, 1991) over the PSF taps.
+type aliasTable struct {
+	prob   []uint32
+	alias  []int32
+	dx, dy []int32
+}
+
+func newAliasTable(k *psf.Kernel) aliasTable {
+	n := len(k.Data)
+	a := aliasTable{prob: make([]uint32, n), alias: make([]int32, n), dx: make([]int32, n), dy: make([]int32, n)}
+	var sum float64
+	for _, v := range k.Data {
+		sum += v
+	}
+	p := make([]float64, n)
+	var small, large []int
+	for i, v := range k.Data {
+		p[i] = v / sum * float64(n)
+		a.dx[i] = int32(i%k.W - k.Rx())
+		a.dy[i] = int32(i/k.W - k.Ry())
+		if p[i] < 1 {
+			small = append(small, i)
+		} else {
+			large = append(large, i)
+		}
+	}
+	for len(small) > 0 && len(large) > 0 {
+		s, l := small[len(small)-1], large[len(large)-1]
+		small = small[:len(small)-1]
+		a.prob[s] = uint32(math.Min(p[s]*(1<<32), math.MaxUint32))
+		a.alias[s] = int32(l)
+		p[l] -= 1 - p[s]
+		if p[l] < 1 {
+			large = large[:len(large)-1]
+			small = append(small, l)
+		}
+	}
+	for _, i := range append(small, large...) {
+		a.prob[i] = math.MaxUint32
+		a.alias[i] = int32(i)
+	}
+	return a
+}
+
+// draw returns a tap index from 64 random bits.
+func (a *aliasTable) draw(u uint64) int {
+	k := int((u >> 32) * uint64(len(a.prob)) >> 32)
+	if uint32(u) < a.prob[k] {
+		return k
+	}
+	return int(a.alias[k])
+}
+
+func (pe *ParticleEMS) init() {
+	sx, sy := pe.SmoothX, pe.SmoothY
+	if sx == nil {
+		sx = []float64{1}
+	}
+	if sy == nil {
+		sy = []float64{1}
+	}
+	if len(sx) > 1 || len(sy) > 1 {
+		pe.s = NewSeparableConv(sx, sy)
+	}
+	pe.mutX, pe.mutY = newMoveTable(pe.SmoothX), newMoveTable(pe.SmoothY)
+	pe.jump = newJumpTable(pe.SmoothX, pe.SmoothY)
+	if pe.Potential == PotentialSampled && pe.PSF != nil {
+		pe.alias = newAliasTable(pe.PSF)
+	}
+}
+
+// particleWork is one worker's particle state, reused across tiles.
+type particleWork struct {
+	x, y, w   []float32 // the cloud
+	x2, y2    []float32 // resampling destination; scratch
+	cnt       []uint32
+	fhat, c   []float32 // grid planes
+	est, prev []float32
+	sum, bsum []float64
+	bmean, m2 []float64
+	rmean     []float64 // replicates: Welford mean and M2 of the estimates
+	rm2       []float64
+	rng       rand.PCG
+}
+
+func grow64(b []float64, n int) []float64 {
+	if cap(b) < n {
+		return make([]float64, n)
+	}
+	return b[:n]
+}
+
+func growU32(b []uint32, n int) []uint32 {
+	if cap(b) < n {
+		return make([]uint32, n)
+	}
+	return b[:n]
+}
+
+func (pw *particleWork) reset(np, n int) {
+	pw.x, pw.y, pw.w = grow(pw.x, np), grow(pw.y, np), grow(pw.w, np)
+	pw.x2, pw.y2 = grow(pw.x2, max(np, n)), grow(pw.y2, np)
+	pw.cnt = growU32(pw.cnt, max(np, n))
+	pw.fhat, pw.c, pw.est, pw.prev = grow(pw.fhat, n), grow(pw.c, n), grow(pw.est, n), grow(pw.prev, n)
+	pw.sum, pw.bsum = grow64(pw.sum, n), grow64(pw.bsum, n)
+	pw.bmean, pw.m2 = grow64(pw.bmean, n), grow64(pw.m2, n)
+	for _, p := range [][]float64{pw.sum, pw.bsum, pw.bmean, pw.m2} {
+		clear(p)
+	}
+}
+
+// TileStream is the second PCG seed word of a tile: a mix of (band, column,
+// row) (SplitMix64 finaliser; Steele, Lea & Flood, OOPSLA 2014).
+func TileStream(k TileKey) uint64 {
+	x := uint64(k.Band+1)*0x9E3779B97F4A7C15 ^ uint64(k.Col+1)*0xC2B2AE3D27D4EB4F ^ uint64(k.Row+1)*0x165667B19E3779F9
+	x ^= x >> 30
+	x *= 0xBF58476D1CE4E5B9
+	x ^= x >> 27
+	x *= 0x94D049BB133111EB
+	x ^= x >> 31
+	return x
+}
+
+// subpixel returns a sub-pixel offset in (0, 1), an odd multiple of 1/256,
+// from 7 random bits: float32 coordinates below 2^16 (any tile with its
+// halo) stay exact under integer moves.
+func subpixel(u uint64) float32 { return (float32(u&0x7f) + 0.5) / 128 }
+
+// startCloud places K particles per valid pixel and returns their number.
+func (pe *ParticleEMS) startCloud(pw *particleWork, ws *Workspace, p *Problem, K int) int {
+	w, h := p.W, p.H
+	nValid := 0
+	for _, m := range p.Mask[:w*h] {
+		if m != 0 {
+			nValid++
+		}
+	}
+	j := 0
+	place := func(pix, copies int) {
+		px, py := float32(pix%w), float32(pix/w)
+		for c := 0; c < copies; c++ {
+			u := pw.rng.Uint64()
+			pw.x[j] = px + subpixel(u)
+			pw.y[j] = py + subpixel(u>>8)
+			pw.w[j] = 1
+			j++
+		}
+	}
+	np := K * nValid
+	switch pe.Start {
+	case StartObserved:
+		mass := ws.fn[:w*h]
+		var msum float64
+		for i, m := range p.Mask[:w*h] {
+			v := float32(0)
+			if m != 0 && p.D[i] > p.Background {
+				v = p.D[i] - p.Background
+			}
+			mass[i] = v
+			msum += float64(v)
+		}
+		Systematic.Counts(pw.cnt[:w*h], mass, msum, np, nil, &pw.rng)
+		for i, c := range pw.cnt[:w*h] {
+			place(i, int(c))
+		}
+	default:
+		for i, m := range p.Mask[:w*h] {
+			if m != 0 {
+				place(i, K)
+			}
+		}
+	}
+	return j
+}
+
+// splatCells sets f[j] = scale * sum of w over particles in pixel cell j.
+func splatCells(f, x, y, w []float32, width int, scale float32) {
+	clear(f)
+	y, w = y[:len(x)], w[:len(x)]
+	for i, xi := range x {
+		f[int(y[i])*width+int(xi)] += w[i] * scale
+	}
+}
+
+// reweightExact sets w_i <- alpha w_i c(X_i) and returns sum w and sum w^2.
+func reweightExact(x, y, w, c []float32, width int, alpha float32) (sum, sq float64) {
+	y, w = y[:len(x)], w[:len(x)]
+	// Partial sums in float32 over blocks of 256 keep float64 work low;
+	// 256 terms of similar size lose at most ~256 ulp of float32 (~1.5e-5
+	// relative) per block, and blocks are summed in float64.
+	for b := 0; b < len(x); b += 256 {
+		e := min(b+256, len(x))
+		var s, q float32
+		for i := b; i < e; i++ {
+			v := w[i] * alpha * c[int(y[i])*width+int(x[i])]
+			w[i] = v
+			s += v
+			q += v * v
+		}
+		sum += float64(s)
+		sq += float64(q)
+	}
+	return sum, sq
+}
+
+// reweightSampled draws Y_i = X_i + U (U from the PSF, mirrored at the tile
+// border) and sets w_i <- alpha w_i r(Y_i) / s(X_i) (1 where s is below the
+// floor).
+func (pe *ParticleEMS) reweightSampled(pw *particleWork, r, s []float32, width, height int, alpha float32) (sum, sq float64) {
+	x, y, w := pw.x, pw.y[:len(pw.x)], pw.w[:len(pw.x)]
+	a := &pe.alias
+	for i, xi := range x {
+		cx, cy := int(xi), int(y[i])
+		si := s[cy*width+cx]
+		v := w[i] * alpha
+		if si > sensitivityFloor {
+			t := a.draw(pw.rng.Uint64())
+			yx, yy := cx+int(a.dx[t]), cy+int(a.dy[t])
+			if yx < 0 || yx >= width {
+				yx = mirror(yx, width)
+			}
+			if yy < 0 || yy >= height {
+				yy = mirror(yy, height)
+			}
+			v *= r[yy*width+yx] / si
+		}
+		w[i] = v
+		sum += float64(v)
+		sq += float64(v) * float64(v)
+	}
+	return sum, sq
+}
+
+// mirror is half-sample symmetric reflection onto [0, n).
+func mirror(i, n int) int {
+	if n == 1 {
+		return 0
+	}
+	p := 2 * n
+	i %= p
+	if i < 0 {
+		i += p
+	}
+	if i >= n {
+		i = p - 1 - i
+	}
+	return i
+}
+
+// reflect maps a coordinate whose cell left [0, n) back by half-sample
+// symmetric reflection of the cell, keeping the sub-pixel offset (cell c < 0
+// goes to -1-c, cell c >= n to 2n-1-c).
+func reflect(v float32, n int) float32 {
+	for {
+		c := float32(math.Floor(float64(v)))
+		switch {
+		case v < 0:
+			v -= 2*c + 1
+		case v >= float32(n):
+			v += 2*float32(n) - 1 - 2*c
+		default:
+			return v
+		}
+	}
+}
+
+// jumpTable samples only the particles that move when most do not (small
+// eps: each axis stays with probability 1 - eps^2): the gap to the next
+// moving particle is geometric with parameter p = 1 - kx(0) ky(0), and the
+// moving particle's (dx, dy) is drawn from the product kernel conditioned on
+// (dx, dy) != (0, 0). The law of every particle's move is unchanged.
+type jumpTable struct {
+	on     bool
+	logq   float64  // log(1 - p)
+	cum    []uint64 // CDF over the non-zero moves, 32-bit fixed point
+	dx, dy []float32
+}
+
+// jumpMaxP: above this move probability the per-particle draw is cheaper.
+const jumpMaxP = 0.25
+
+func newJumpTable(kx, ky []float64) jumpTable {
+	if kx == nil {
+		kx = []float64{1}
+	}
+	if ky == nil {
+		ky = []float64{1}
+	}
+	rx, ry := (len(kx)-1)/2, (len(ky)-1)/2
+	p := 1 - kx[rx]*ky[ry]
+	if !(p > 0) || p > jumpMaxP {
+		return jumpTable{}
+	}
+	j := jumpTable{on: true, logq: math.Log1p(-p)}
+	var acc float64
+	for ty, vy := range ky {
+		for tx, vx := range kx {
+			if tx == rx && ty == ry {
+				continue
+			}
+			acc += vx * vy / p
+			j.cum = append(j.cum, uint64(math.Round(acc*(1<<32))))
+			j.dx = append(j.dx, float32(tx-rx))
+			j.dy = append(j.dy, float32(ty-ry))
+		}
+	}
+	j.cum[len(j.cum)-1] = 1 << 32
+	return j
+}
+
+// gap draws the number of particles that stay before the next one moves.
+func (j *jumpTable) gap(r *rand.PCG) int {
+	g := math.Log(1-uniform53(r)) / j.logq
+	if g > 1<<40 {
+		return 1 << 40
+	}
+	return int(g)
+}
+
+// mutate moves every particle by integer displacements drawn from the
+// smoothing kernel per axis, reflected at the tile border.
+func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
+	x, y := pw.x, pw.y[:len(pw.x)]
+	if j := &pe.jump; j.on {
+		fw, fh := float32(width), float32(height)
+		for i := j.gap(&pw.rng); i < len(x); i += 1 + j.gap(&pw.rng) {
+			u := uint64(uint32(pw.rng.Uint64()))
+			t := 0
+			for u >= j.cum[t] {
+				t++
+			}
+			if dx := j.dx[t]; dx != 0 {
+				v := x[i] + dx
+				if v < 0 || v >= fw {
+					v = reflect(v, width)
+				}
+				x[i] = v
+			}
+			if dy := j.dy[t]; dy != 0 {
+				v := y[i] + dy
+				if v < 0 || v >= fh {
+					v = reflect(v, height)
+				}
+				y[i] = v
+			}
+		}
+		return
+	}
+	mx, my := &pe.mutX, &pe.mutY
+	fw, fh := float32(width), float32(height)
+	switch {
+	case mx.cum != nil && my.cum != nil:
+		for i := range x {
+			u := pw.rng.Uint64()
+			if dx := mx.move(uint32(u)); dx != 0 {
+				v := x[i] + dx
+				if v < 0 || v >= fw {
+					v = reflect(v, width)
+				}
+				x[i] = v
+			}
+			if dy := my.move(uint32(u >> 32)); dy != 0 {
+				v := y[i] + dy
+				if v < 0 || v >= fh {
+					v = reflect(v, height)
+				}
+				y[i] = v
+			}
+		}
+	case mx.cum != nil:
+		for i := range x {
+			if dx := mx.move(uint32(pw.rng.Uint64())); dx != 0 {
+				v := x[i] + dx
+				if v < 0 || v >= fw {
+					v = reflect(v, width)
+				}
+				x[i] = v
+			}
+		}
+	case my.cum != nil:
+		for i := range y {
+			if dy := my.move(uint32(pw.rng.Uint64())); dy != 0 {
+				v := y[i] + dy
+				if v < 0 || v >= fh {
+					v = reflect(v, height)
+				}
+				y[i] = v
+			}
+		}
+	}
+}
+
+// resample replaces the cloud by N offspring in ancestor order (which keeps
+// the cloud roughly sorted by pixel, good for the cache) with unit weights.
+func (pe *ParticleEMS) resample(pw *particleWork, wsum float64) {
+	np := len(pw.x)
+	x2, y2 := pw.x2[:np], pw.y2[:np]
+	if pe.Resampling == Stratified || pe.Resampling == Systematic {
+		mergeResample(x2, y2, pw.x, pw.y, pw.w, wsum, pe.Resampling == Stratified, &pw.rng)
+	} else {
+		pe.Resampling.Counts(pw.cnt[:np], pw.w, wsum, np, pw.x2, &pw.rng)
+		j := 0
+		for i, c := range pw.cnt[:np] {
+			xi, yi := pw.x[i], pw.y[i]
+			for ; c > 0; c-- {
+				x2[j], y2[j] = xi, yi
+				j++
+			}
+		}
+	}
+	pw.x, pw.x2 = x2, pw.x[:cap(pw.x)]
+	pw.y, pw.y2 = y2, pw.y[:cap(pw.y)]
+	w := pw.w[:np]
+	for i := range w {
+		w[i] = 1
+	}
+}
+
+// Solve implements Solver.
+func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
+	if pe.PerPixel < 1 || pe.Iterations < 1 || pe.BurnIn < 0 || pe.BurnIn >= pe.Iterations {
+		return Result{}, fmt.Errorf("particle EMS: need PerPixel >= 1 and 0 <= BurnIn < Iterations (got %d, %d, %d)", pe.PerPixel, pe.BurnIn, pe.Iterations)
+	}
+	pe.once.Do(pe.init)
+	w, h := p.W, p.H
+	n := w * h
+	ws.reset(n)
+	nValid, flux := Prepare(p)
+	if nValid == 0 || !(flux > 0) {
+		clear(dst[:n])
+		if p.SE != nil {
+			clear(p.SE[:n])
+		}
+		return Result{Flat: true, HasSE: p.SE != nil}, nil
+	}
+	if ws.pw == nil {
+		ws.pw = &particleWork{}
+	}
+	pw := ws.pw
+	pe.H.Adjoint(&ws.conv, ws.s, p.Mask, w, h)
+	G := min(pe.Replicates, pe.PerPixel)
+	if G <= 1 {
+		res, err := pe.run(ctx, ws, p, nValid, flux, pe.PerPixel, TileStream(p.Key), dst, p.SE)
+		res.HasSE = err == nil && p.SE != nil
+		return res, err
+	}
+	// Independent replicate clouds: the spread of their estimates gives an
+	// unbiased variance of the mean whatever the autocorrelation of the
+	// iterations (DEVELOPERS.md: batch means underestimate it at small
+	// smoothing).
+	pw.rmean, pw.rm2 = grow64(pw.rmean, n), grow64(pw.rm2, n)
+	clear(pw.rmean)
+	clear(pw.rm2)
+	var res Result
+	for g := 0; g < G; g++ {
+		r, err := pe.run(ctx, ws, p, nValid, flux, pe.PerPixel/G, TileStream(p.Key)^(uint64(g)*0x9E3779B97F4A7C15), dst, nil)
+		if err != nil {
+			return r, err
+		}
+		res = r
+		for i, v := range dst[:n] {
+			d := float64(v) - pw.rmean[i]
+			pw.rmean[i] += d / float64(g+1)
+			pw.rm2[i] += d * (float64(v) - pw.rmean[i])
+		}
+	}
+	for i, m := range pw.rmean {
+		dst[i] = float32(m)
+	}
+	if p.SE != nil {
+		inv := 1 / float64(G*(G-1))
+		for i, v := range pw.rm2 {
+			p.SE[i] = float32(math.Sqrt(v * inv))
+		}
+		res.HasSE = true
+	}
+	return res, nil
+}
+
+// run is one particle system with K particles per valid pixel on the random
+// stream (Seed, stream): its window mean goes to dst, its batch-means
+// standard error to se when non-nil.
+func (pe *ParticleEMS) run(ctx context.Context, ws *Workspace, p *Problem, nValid int, flux float64, K int, stream uint64, dst, se []float32) (Result, error) {
+	w, h := p.W, p.H
+	n := w * h
+	pw := ws.pw
+	np := K * nValid
+	pw.reset(np, n)
+	pw.rng.Seed(pe.Seed, stream)
+	np = pe.startCloud(pw, ws, p, K)
+	pw.x, pw.y, pw.w = pw.x[:np], pw.y[:np], pw.w[:np]
+
+	tm := pe.Timing
+	var t0 time.Time
+	lap := func(d *time.Duration) {
+		if tm != nil {
+			t1 := time.Now()
+			*d += t1.Sub(t0)
+			t0 = t1
+		}
+	}
+	if tm != nil {
+		t0 = time.Now()
+	}
+	its, B := pe.Iterations, pe.BurnIn
+	T := its - B
+	nb := max(pe.Batches, 1)
+	batch, batchEnd, batchLen := 0, T/nb, T/nb
+	mass, wsum := flux, float64(np)
+	fN := float64(np)
+	bg := p.Background
+	var res Result
+	var change float64
+	window := 0
+	accumulate := func(est []float32) {
+		// Change between consecutive estimates (relative L1).
+		var num, den float64
+		for i, v := range est {
+			num += math.Abs(float64(v - pw.prev[i]))
+			den += math.Abs(float64(pw.prev[i]))
+			pw.sum[i] += float64(v)
+			pw.bsum[i] += float64(v)
+		}
+		if window > 0 && den > 0 {
+			change = num / den
+		}
+		copy(pw.prev, est)
+		window++
+		if window == batchEnd {
+			// Welford's update with the batch mean (Welford, Technometrics
+			// 4:419, 1962).
+			batch++
+			inv := 1 / float64(batchLen)
+			for i, s := range pw.bsum {
+				m := s * inv
+				d := m - pw.bmean[i]
+				pw.bmean[i] += d / float64(batch)
+				pw.m2[i] += d * (m - pw.bmean[i])
+				pw.bsum[i] = 0
+			}
+			if batch < nb {
+				next := (batch + 1) * T / nb
+				batchLen = next - batchEnd
+				batchEnd = next
+			}
+		}
+	}
+	for k := 0; k < its; k++ {
+		if err := ctx.Err(); err != nil {
+			return res, err
+		}
+		splatCells(pw.fhat, pw.x, pw.y, pw.w, w, float32(mass/wsum))
+		lap(&tm0(tm).Splat)
+		if pe.RawEstimate && k > B {
+			accumulate(pw.fhat)
+			lap(&tm0(tm).Estimate)
+		}
+		pe.H.Apply(&ws.conv, ws.p, pw.fhat, w, h)
+		q, hp, d, m := ws.q[:n], ws.p[:n], p.D[:n], p.Mask[:n]
+		for i := range q {
+			den := hp[i] + bg
+			if den > 0 && m[i] != 0 {
+				q[i] = d[i] / den
+			} else {
+				q[i] = 0
+			}
+		}
+		alpha := float32(fN / wsum)
+		var sum, sq float64
+		if pe.Potential == PotentialExact {
+			pe.H.Adjoint(&ws.conv, ws.t, q, w, h)
+			c, t, s := pw.c[:n], ws.t[:n], ws.s[:n]
+			for i := range c {
+				if s[i] > sensitivityFloor {
+					c[i] = t[i] / s[i]
+				} else {
+					c[i] = 1
+				}
+			}
+			lap(&tm0(tm).Convolution)
+			sum, sq = reweightExact(pw.x, pw.y, pw.w, pw.c, w, alpha)
+		} else {
+			lap(&tm0(tm).Convolution)
+			sum, sq = pe.reweightSampled(pw, q, ws.s, w, h, alpha)
+		}
+		lap(&tm0(tm).Reweight)
+		if !(sum > 0) {
+			return res, fmt.Errorf("particle EMS: all weights vanished at iteration %d", k+1)
+		}
+		mass *= sum / fN
+		wsum = sum
+		if !pe.RawEstimate && k >= B {
+			// The density after reweighting: f_hat * c exactly (cells), or
+			// the splat of the reweighted cloud for the sampled potential.
+			e := ws.fn[:n]
+			if pe.Potential == PotentialExact {
+				for i, v := range pw.fhat[:n] {
+					e[i] = v * pw.c[i]
+				}
+			} else {
+				splatCells(e, pw.x, pw.y, pw.w, w, float32(mass/wsum))
+			}
+			if pe.s != nil {
+				pe.s.Apply(&ws.conv, pw.est, e, w, h)
+				accumulate(pw.est)
+			} else {
+				accumulate(e)
+			}
+			lap(&tm0(tm).Estimate)
+		}
+		if sum*sum < pe.ESSThreshold*fN*sq {
+			pe.resample(pw, sum)
+			wsum = fN
+			if tm != nil {
+				tm.Resamplings++
+			}
+			lap(&tm0(tm).Resample)
+		}
+		pe.mutate(pw, w, h)
+		lap(&tm0(tm).Mutate)
+		res.Iterations = k + 1
+	}
+	if pe.RawEstimate {
+		splatCells(pw.fhat, pw.x, pw.y, pw.w, w, float32(mass/wsum))
+		accumulate(pw.fhat)
+	}
+	if tm != nil {
+		tm.ParticleIterations += int64(np) * int64(its)
+	}
+	res.Change = change
+	invT := 1 / float64(window)
+	for i, s := range pw.sum {
+		dst[i] = float32(s * invT)
+	}
+	if se != nil {
+		// Batch-means standard error of the window mean: sqrt(var(batch
+		// means) / nb) (e.g. Flegal & Jones, Ann. Statist. 38:1034, 2010).
+		inv := 1 / float64((nb-1)*nb)
+		for i, v := range pw.m2 {
+			se[i] = float32(math.Sqrt(v * inv))
+		}
+	}
+	return res, nil
+}
+
+// tm0 lets lap take the address of a field of a possibly nil timing record.
+var discardTiming ParticleTiming
+
+func tm0(t *ParticleTiming) *ParticleTiming {
+	if t == nil {
+		return &discardTiming
+	}
+	return t
+}
+
+// mergeResample writes the stratified (or systematic) offspring of (x, y, w)
+// into (x2, y2) in one pass: the same points, the same random numbers and
+// the same offspring as Counts followed by copying, without the counts.
+func mergeResample(x2, y2, x, y, w []float32, wsum float64, stratified bool, r *rand.PCG) {
+	n := len(x2)
+	step := wsum / float64(n)
+	u0 := uniform53(r)
+	j := 0
+	next := u0 * step
+	var cum float64
+	y, w = y[:len(x)], w[:len(x)]
+	for i, xi := range x {
+		cum += float64(w[i])
+		if next >= cum {
+			continue
+		}
+		yi := y[i]
+		for j < n && next < cum {
+			x2[j], y2[j] = xi, yi
+			j++
+			if stratified {
+				next = (float64(j) + uniform53(r)) * step
+			} else {
+				next = (float64(j) + u0) * step
+			}
+		}
+	}
+	if j < n {
+		for i := len(w) - 1; i >= 0; i-- {
+			if w[i] > 0 {
+				for ; j < n; j++ {
+					x2[j], y2[j] = x[i], y[i]
+				}
+				break
+			}
+		}
+	}
+}

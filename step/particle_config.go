@@ -1,0 +1,169 @@
+package step
+
+import (
+	"fmt"
+	"math"
+)
+
+// Defaults of the particle method (DEVELOPERS.md, "Particle EMS: cost and
+// accuracy" has the measurements behind them).
+const (
+	DefaultPerPixel     = 16
+	DefaultESSThreshold = 0.5 // common practice, no source (GUIDE section 2)
+	DefaultBatches      = 10
+	DefaultResampling   = "stratified"
+	DefaultPotential    = "exact"
+	DefaultStart        = "flat"
+	// maxParticlesPerTile bounds one tile's cloud (resampling counts are
+	// uint32; about 24 bytes per particle).
+	maxParticlesPerTile = 1 << 31
+)
+
+// ParticleConfig holds the particle method's parameters (Config.Method
+// "particle"). The zero value means every default; otherwise fields are taken
+// as given except where a field says so.
+type ParticleConfig struct {
+	// PerPixel is K, particles per valid pixel (>= 1).
+	PerPixel int
+	// Potential is "exact" or "sampled" ("" = DefaultPotential).
+	Potential string
+	// Resampling is "stratified", "systematic", "residual" or "multinomial"
+	// ("" = DefaultResampling).
+	Resampling string
+	// ESSThreshold in [0, 1]: resample when ESS < ESSThreshold x N.
+	ESSThreshold float64
+	// BurnIn iterations are discarded before averaging; < 0 means half the
+	// iterations.
+	BurnIn int
+	// Start is "flat" or "observed" ("" = DefaultStart).
+	Start string
+	// Batches for the batch-means standard error (0 = DefaultBatches),
+	// used when Replicates resolves to 1.
+	Batches int
+	// Replicates G: independent clouds whose spread gives the standard
+	// error (PerPixel must be a multiple of G; 1 = one cloud with batch
+	// means). 0 = auto: 4, else 2, else 1, the largest that divides
+	// PerPixel.
+	Replicates int
+}
+
+// AutoReplicates is the Replicates = 0 rule: the largest of 4, 2, 1 that
+// divides K.
+func AutoReplicates(k int) int {
+	for _, g := range []int{4, 2} {
+		if k%g == 0 {
+			return g
+		}
+	}
+	return 1
+}
+
+// DefaultParticle returns the default particle parameters.
+func DefaultParticle() ParticleConfig {
+	return ParticleConfig{PerPixel: DefaultPerPixel, Potential: DefaultPotential, Resampling: DefaultResampling,
+		ESSThreshold: DefaultESSThreshold, BurnIn: -1, Start: DefaultStart, Batches: DefaultBatches}
+}
+
+// resolveParticle fills defaults and validates the particle parameters
+// against the iteration count; errors wrap ErrConfig and name the flag.
+func (cfg *Config) resolveParticle() error {
+	pc := &cfg.Particle
+	if *pc == (ParticleConfig{}) {
+		*pc = DefaultParticle()
+	}
+	if pc.Potential == "" {
+		pc.Potential = DefaultPotential
+	}
+	if pc.Resampling == "" {
+		pc.Resampling = DefaultResampling
+	}
+	if pc.Start == "" {
+		pc.Start = DefaultStart
+	}
+	if pc.Batches == 0 {
+		pc.Batches = DefaultBatches
+	}
+	if pc.BurnIn < 0 {
+		pc.BurnIn = cfg.Iterations / 2
+	}
+	if pc.Replicates == 0 && pc.PerPixel > 0 {
+		pc.Replicates = AutoReplicates(pc.PerPixel)
+	}
+	if pc.PerPixel <= 0 || pc.PerPixel > 65536 {
+		return fmt.Errorf("%w: --particles-per-pixel %d must be between 1 and 65536", ErrConfig, pc.PerPixel)
+	}
+	if _, err := ParsePotential(pc.Potential); err != nil {
+		return fmt.Errorf("%w: --potential %v", ErrConfig, err)
+	}
+	if _, err := ParseResampling(pc.Resampling); err != nil {
+		return fmt.Errorf("%w: --resampling %v", ErrConfig, err)
+	}
+	if _, err := ParseStart(pc.Start); err != nil {
+		return fmt.Errorf("%w: --start %v", ErrConfig, err)
+	}
+	if math.IsNaN(pc.ESSThreshold) || pc.ESSThreshold < 0 || pc.ESSThreshold > 1 {
+		return fmt.Errorf("%w: --ess-threshold %g must be between 0 and 1", ErrConfig, pc.ESSThreshold)
+	}
+	if pc.BurnIn >= cfg.Iterations {
+		return fmt.Errorf("%w: --burn-in %d must be less than --iterations %d (the estimate averages the iterations after the burn-in)", ErrConfig, pc.BurnIn, cfg.Iterations)
+	}
+	if pc.Replicates < 1 || pc.Replicates > pc.PerPixel || pc.PerPixel%pc.Replicates != 0 {
+		return fmt.Errorf("%w: --replicates %d must divide --particles-per-pixel %d (each replicate cloud gets K/G particles per pixel)", ErrConfig, pc.Replicates, pc.PerPixel)
+	}
+	if pc.Replicates == 1 && (pc.Batches < 2 || pc.Batches > cfg.Iterations-pc.BurnIn) {
+		return fmt.Errorf("%w: --batches %d must be between 2 and iterations - burn-in (%d)", ErrConfig, pc.Batches, cfg.Iterations-pc.BurnIn)
+	}
+	side := int64(cfg.Tile) + 3*int64(max(cfg.Overlap, 0)) // core (a last one may be longer by 2 blend = overlap) plus halo
+	if int64(pc.PerPixel)*side*side >= maxParticlesPerTile {
+		return fmt.Errorf("%w: --particles-per-pixel %d x tile %d (with halo) is more than 2^31 particles per tile: lower either", ErrConfig, pc.PerPixel, cfg.Tile)
+	}
+	return nil
+}
+
+// newParticleSolver builds the ParticleEMS cfg describes (after Resolve).
+func (cfg *Config) newParticleSolver() *ParticleEMS {
+	pc := cfg.Particle
+	pot, _ := ParsePotential(pc.Potential)
+	rs, _ := ParseResampling(pc.Resampling)
+	st, _ := ParseStart(pc.Start)
+	k := SmoothingKernel(cfg.Smooth)
+	return &ParticleEMS{H: NewConv(cfg.PSF), PSF: cfg.PSF, SmoothX: k, SmoothY: k, Iterations: cfg.Iterations,
+		PerPixel: pc.PerPixel, Potential: pot, Resampling: rs, ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn,
+		Start: st, Batches: pc.Batches, Replicates: pc.Replicates, Seed: cfg.Seed}
+}
+
+// ParticleReport records the particle method's parameters and, per band,
+// the mean reported Monte Carlo standard error.
+type ParticleReport struct {
+	PerPixel     int                  `json:"particles_per_pixel"`
+	Potential    string               `json:"potential"`
+	Resampling   string               `json:"resampling"`
+	ESSThreshold float64              `json:"ess_threshold"`
+	BurnIn       int                  `json:"burn_in"`
+	Start        string               `json:"start"`
+	Batches      int                  `json:"batches"`
+	Replicates   int                  `json:"replicates"`
+	SEMethod     string               `json:"standard_error_method"`
+	SEBlend      string               `json:"standard_error_blend"`
+	Bands        []ParticleBandReport `json:"bands"`
+}
+
+// ParticleBandReport is one band's Monte Carlo error summary over its valid
+// pixels.
+type ParticleBandReport struct {
+	Band int `json:"band"`
+	// MeanSE is the mean per-pixel standard error (DN); RelativeSE is
+	// sum(SE) / sum(restored - background).
+	MeanSE     float64 `json:"mean_standard_error"`
+	RelativeSE float64 `json:"relative_standard_error"`
+}
+
+// SEBlendRule documents how tile standard errors are combined.
+const SEBlendRule = "sqrt(sum_t w_t^2 se_t^2): blend weights w_t of the image, tiles' Monte Carlo errors independent"
+
+func (pc ParticleConfig) seMethod() string {
+	if pc.Replicates > 1 {
+		return fmt.Sprintf("spread of %d independent replicate clouds", pc.Replicates)
+	}
+	return fmt.Sprintf("batch means (%d batches) over the averaging window", pc.Batches)
+}
