@@ -132,16 +132,18 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 		return err
 	}
 	k, _ := psf.Parse(demoPSF, psf.Env{})
-	cfg := step.Config{PSF: k, PSFSpec: demoPSF, Smooth: step.DefaultSmooth, Iterations: step.DefaultIterations,
-		Tolerance: step.DefaultTolerance, Tile: step.DefaultTile, Overlap: -1, Workers: workers, Seed: 1}
+	// The grid run uses restore's defaults: smoothing and stop chosen per
+	// band by the risk estimate.
+	cfg := step.Config{PSF: k, PSFSpec: demoPSF, Smooth: step.DefaultSmooth, SmoothAuto: true, Stop: step.StopAuto,
+		Iterations: step.AutoCap, Tolerance: step.DefaultTolerance, Tile: step.DefaultTile, Overlap: -1, Workers: workers, Seed: 1}
 	if err := cfg.Resolve(); err != nil {
 		return err
 	}
 	resPath := filepath.Join(dir, "restored.tif")
 	j := &restoreJob{in: obsPath, out: resPath, format: raster.GTiff, outType: "float32", cfg: cfg,
 		reportPath: filepath.Join(dir, "report.json")}
-	fmt.Fprintf(stderr, "limpid demo: Brannock Vale %dx%d, 4 bands, PSF %s, restoring with EMS (smooth %g, %d iterations)\n",
-		n, n, demoPSF, cfg.Smooth, cfg.Iterations)
+	fmt.Fprintf(stderr, "limpid demo: Brannock Vale %dx%d, 4 bands, PSF %s, restoring with grid EMS (smoothing and stop chosen per band)\n",
+		n, n, demoPSF)
 	rep, err := runRestore(c.Context, j, nil, stdout, stderr)
 	if err != nil {
 		return err
@@ -166,8 +168,14 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 	for i := range valid {
 		valid[i] = !math.IsNaN(float64(ref[0][i]))
 	}
-	fmt.Fprintf(stdout, "Brannock Vale demo (invented scene), PSF %s, EMS smooth %g, %d iterations, %.1f s\n",
-		demoPSF, rep.Smooth, rep.Iterations, rep.WallSeconds)
+	fmt.Fprintf(stdout, "Brannock Vale demo (invented scene), PSF %s, grid EMS with the automatic choice, %.1f s\n",
+		demoPSF, rep.WallSeconds)
+	for i, b := range rep.Bands {
+		if b.Choice != nil && b.Noise != nil {
+			fmt.Fprintf(stdout, "  %-5s noise var = %.3f DN + %.1f; chosen smooth %g, %d iterations\n",
+				step.ValleyBands[i], b.Noise.A, b.Noise.B, b.Choice.Smooth, b.Choice.Iterations)
+		}
+	}
 	if part != nil {
 		part.printSideBySide(stdout, ref, obs, res, valid, n)
 	} else {

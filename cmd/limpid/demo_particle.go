@@ -26,6 +26,9 @@ func demoParticle(c *cli.Context, dir, obsPath string, grid step.Config, K int, 
 		return nil, nil
 	}
 	cfg := grid
+	// The particle method runs a fixed number of iterations at the
+	// fixed default bandwidth (its cost and accuracy are measured there).
+	cfg.SmoothAuto, cfg.Smooth, cfg.Stop, cfg.Iterations = false, step.DefaultSmooth, step.StopChange, step.DefaultIterations
 	cfg.Method = "particle"
 	cfg.Particle = step.DefaultParticle()
 	cfg.Particle.PerPixel = K
