@@ -183,14 +183,7 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 			}
 		}
 	}
-	for i := range pp {
-		den := pp[i] + b
-		if den > 0 && m[i] != 0 {
-			q[i] = d[i] / den
-		} else {
-			q[i] = 0
-		}
-	}
+	dataRatio(q, pp, d, m, b)
 	g.H.Adjoint(&ws.conv, ws.t, q, w, h)
 	e := fn
 	if g.S != nil {
@@ -218,4 +211,17 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 		return 0, rss
 	}
 	return num / den, rss
+}
+
+// dataRatio sets q = w d / (Hf + b) where the mask is set and the
+// prediction positive, else 0 (no data term).
+func dataRatio(q, hf, d, m []float32, b float32) {
+	for i := range q {
+		den := hf[i] + b
+		if den > 0 && m[i] != 0 {
+			q[i] = d[i] / den
+		} else {
+			q[i] = 0
+		}
+	}
 }

@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"limpid/psf"
+	"limpid/raster"
 )
 
 // Potential selects how the particle method evaluates the EMS potential.
@@ -424,10 +425,10 @@ func (pe *ParticleEMS) reweightSampled(pw *particleWork, r, s []float32, width, 
 			t := a.draw(pw.rng.Uint64())
 			yx, yy := cx+int(a.dx[t]), cy+int(a.dy[t])
 			if yx < 0 || yx >= width {
-				yx = mirror(yx, width)
+				yx = raster.Mirror(yx, width)
 			}
 			if yy < 0 || yy >= height {
-				yy = mirror(yy, height)
+				yy = raster.Mirror(yy, height)
 			}
 			v *= r[yy*width+yx] / si
 		}
@@ -438,21 +439,6 @@ func (pe *ParticleEMS) reweightSampled(pw *particleWork, r, s []float32, width, 
 	return sum, sq
 }
 
-// mirror is half-sample symmetric reflection onto [0, n).
-func mirror(i, n int) int {
-	if n == 1 {
-		return 0
-	}
-	p := 2 * n
-	i %= p
-	if i < 0 {
-		i += p
-	}
-	if i >= n {
-		i = p - 1 - i
-	}
-	return i
-}
 
 // reflect maps a coordinate whose cell left [0, n) back by half-sample
 // symmetric reflection of the cell, keeping the sub-pixel offset (cell c < 0
@@ -763,15 +749,8 @@ func (pe *ParticleEMS) run(ctx context.Context, ws *Workspace, p *Problem, nVali
 			lap(&tm0(tm).Estimate)
 		}
 		pe.H.Apply(&ws.conv, ws.p, pw.fhat, w, h)
-		q, hp, d, m := ws.q[:n], ws.p[:n], p.D[:n], p.Mask[:n]
-		for i := range q {
-			den := hp[i] + bg
-			if den > 0 && m[i] != 0 {
-				q[i] = d[i] / den
-			} else {
-				q[i] = 0
-			}
-		}
+		q := ws.q[:n]
+		dataRatio(q, ws.p[:n], p.D[:n], p.Mask[:n], bg)
 		alpha := float32(fN / wsum)
 		var sum, sq float64
 		if pe.Potential == PotentialExact {
