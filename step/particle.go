@@ -439,7 +439,6 @@ func (pe *ParticleEMS) reweightSampled(pw *particleWork, r, s []float32, width, 
 	return sum, sq
 }
 
-
 // reflect maps a coordinate whose cell left [0, n) back by half-sample
 // symmetric reflection of the cell, keeping the sub-pixel offset (cell c < 0
 // goes to -1-c, cell c >= n to 2n-1-c).
