@@ -74,9 +74,14 @@ Examples:
    limpid restore --psf gaussian:sx=0.8,sy=0.6,angle=20 --bands 1,3,4 --format cog in.tif out.tif
    gdal_translate -of GTiff in.jp2 /vsistdout/ | limpid restore --psf kernel:psf.txt - - > out.tif
    LIMPID_PSF=gaussian:sigma=0.6 LIMPID_WORKERS=2 limpid restore in.tif out.tif
+   limpid restore --psf gaussian:sigma=0.7 --smooth 0.2 --stop change in.tif out.tif   (fixed, cheaper)
 
-Arrow IPC tile streams (README, "Arrow tile streams"):
-   limpid tiles pack scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 - - | limpid tiles unpack - out.tif
+By default the smoothing and the stop are chosen per band from the scene (noise
+model + risk estimate; see the report's "choice"); --smooth EPS --stop change
+gives the fixed behaviour.
+
+Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings only):
+   limpid tiles pack scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 --smooth 0.2 --stop change - - | limpid tiles unpack - out.tif
 
 Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
 
