@@ -50,7 +50,9 @@ type CandidateReport struct {
 	// candidate, so sums compare across candidates).
 	Risk float64 `json:"risk"`
 	// BestIterations is the valid-pixel-weighted median of the tiles'
-	// risk-minimising iteration.
+	// risk-minimising iteration (each tile runs to its own stop, so the
+	// summed curve is not known far enough to take its minimum: a
+	// departure from GUIDE 4.5's "sum the curves" for the stop).
 	BestIterations int `json:"best_iterations"`
 	// Curve is the summed risk at the iterations every tile evaluated:
 	// pairs [k, R_k].
@@ -149,8 +151,14 @@ func (s *noiseSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst 
 	for i, m := range p.Mask[:p.W*p.H] {
 		valid[i] = m != 0
 	}
+	// The tile's core, without the scene's outermost pixels: their 3x3
+	// window would reach into the mirrored halo, where the residual has a
+	// third of the variance (the estimate came out 0.72 of the truth on a
+	// 64x64 scene before).
+	x0, x1 := max(cx.Start, 1)-ix.Start, min(cx.End, pl.W-1)-ix.Start
+	y0, y1 := max(cy.Start, 1)-iy.Start, min(cy.End, pl.H-1)-iy.Start
 	ns := &NoiseSampler{Limit: s.limit}
-	ns.Add(p.D, valid, p.W, p.H, cx.Start-ix.Start, cy.Start-iy.Start, cx.End-ix.Start, cy.End-iy.Start)
+	ns.Add(p.D, valid, p.W, p.H, x0, y0, x1, y1)
 	s.mu.Lock()
 	s.samples[k] = ns
 	s.mu.Unlock()
@@ -192,6 +200,9 @@ func (r *runner) estimateNoise(ctx context.Context) ([]NoiseModel, error) {
 					s += math.Abs(float64(e))
 				}
 				sig := math.Sqrt(math.Pi/2) * s / float64(len(all.res))
+				if math.IsInf(sig, 0) || math.IsNaN(sig) {
+					sig = 0
+				}
 				m = NoiseModel{B: sig * sig, Floor: math.Max(1e-6, 0.1*sig*sig), Source: "immerkaer (too few pixels for the intensity fit)", Samples: len(all.res)}
 			}
 		}
@@ -256,6 +267,9 @@ type chooser struct {
 	// keep: the scene is one tile, so the best candidate's best iterate
 	// is the answer and no final pass is needed.
 	keep bool
+	// exhaustive: a global choice over several tiles; every candidate runs
+	// to its own stop on every tile (no pruning across candidates).
+	exhaustive bool
 	kept []*keptTile // per band
 
 	mu      sync.Mutex
@@ -311,7 +325,11 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 	beat := math.Inf(1)
 	var kept []float32
 	for i, g := range c.grids {
-		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, beat)
+		prune := beat
+		if c.exhaustive {
+			prune = math.Inf(1)
+		}
+		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, prune)
 		if err != nil {
 			return Result{}, err
 		}
@@ -329,7 +347,12 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		runs[i] = run
 		// Candidates go from the least to the most smoothing; the risk
 		// has been unimodal in the bandwidth on every scene measured
-		// (DEVELOPERS.md), so the first rise ends the search.
+		// (DEVELOPERS.md), so the first rise ends the search -- where
+		// the tile decides alone. A global choice over several tiles
+		// sums every candidate's risk, so there every candidate runs.
+		if c.exhaustive {
+			continue
+		}
 		if i > 0 && run.BestR > runs[i-1].BestR {
 			break
 		}
@@ -380,7 +403,7 @@ func (c *chooser) summarise(band int) Choice {
 	if c.cfg.Stop == StopAuto {
 		ch.Rule = fmt.Sprintf("risk minimum (stop %d iterations after it, cap %d)", RiskPatience, c.cfg.Iterations)
 	} else {
-		ch.Rule = fmt.Sprintf("risk at the stop (%s, cap %d)", c.cfg.Stop, c.cfg.Iterations)
+		ch.Rule = fmt.Sprintf("risk at the cap %d (the final pass stops by --stop %s)", c.cfg.Iterations, c.cfg.Stop)
 	}
 	if len(keys) == 0 {
 		ch.Smooth, ch.Iterations = c.cfg.Smooth, c.cfg.Iterations
@@ -413,7 +436,7 @@ func (c *chooser) summarise(band int) Choice {
 			ks = append(ks, weighted{float64(run.BestK), float64(c.valid[k])})
 			minLen = min(minLen, len(run.Risk))
 		}
-		if math.IsInf(cr.Risk, 1) {
+		if math.IsInf(cr.Risk, 0) || math.IsNaN(cr.Risk) {
 			// Skipped on some tile (its risk rose at a smaller
 			// bandwidth): not a candidate for the band.
 			cr.Skipped, cr.Risk, cr.BestIterations = true, 0, 0
@@ -426,7 +449,7 @@ func (c *chooser) summarise(band int) Choice {
 			for _, k := range keys {
 				sum += c.runs[k][i].Risk[it-1]
 			}
-			if !math.IsNaN(sum) {
+			if !math.IsNaN(sum) && !math.IsInf(sum, 0) {
 				cr.Curve = append(cr.Curve, [2]float64{float64(it), sum})
 			}
 		}
@@ -436,7 +459,8 @@ func (c *chooser) summarise(band int) Choice {
 		}
 	}
 	if best < 0 {
-		ch.Smooth, ch.Iterations = c.smooths[0], max(1, ch.Candidates[0].BestIterations)
+		ch.Smooth, ch.Iterations = c.cfg.Smooth, min(c.cfg.Iterations, DefaultIterations)
+		ch.Rule = "fallback: no finite risk (check --noise); the given smoothing and cap"
 		return ch
 	}
 	ch.Smooth = ch.Candidates[best].Smooth
@@ -605,6 +629,7 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		weights: map[[2]int]*riskWeights{}, noDCT: map[[2]int]bool{}, runs: map[TileKey][]riskRun{}, valid: map[TileKey]int{}}
 	if cfg.Choose != ChoosePerTile {
 		c.tiles = sampleTiles(r.plan)
+		c.exhaustive = len(c.tiles) > 1
 	}
 	c.keep = r.plan.NTiles() == 1 && cfg.Stop == StopAuto && !particle
 	c.kept = make([]*keptTile, nb)

@@ -57,14 +57,14 @@ func window3Valid(valid []bool, w, x, y int) bool {
 }
 
 func mask3(d []float32, w, x, y int) float32 {
-	var s float32
+	var s float64
 	k := 0
 	for dy := -1; dy <= 1; dy++ {
 		r := (y+dy)*w + x
-		s += immerkaer[k]*d[r-1] + immerkaer[k+1]*d[r] + immerkaer[k+2]*d[r+1]
+		s += float64(immerkaer[k])*float64(d[r-1]) + float64(immerkaer[k+1])*float64(d[r]) + float64(immerkaer[k+2])*float64(d[r+1])
 		k += 3
 	}
-	return s
+	return float32(s)
 }
 
 // NoiseModel is the variance of an observed value d: Var = A*d + B (a
@@ -193,14 +193,14 @@ func (s *NoiseSampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) 
 			if len(s.mean) >= limit && s.seen%2 == 0 {
 				continue
 			}
-			var box float32
+			var box float64
 			for dy := -1; dy <= 1; dy++ {
 				row := d[(y+dy)*w+x-1:]
-				box += row[0] + row[1] + row[2]
+				box += float64(row[0]) + float64(row[1]) + float64(row[2])
 			}
 			gx := 0.5 * (sm[y*w+x+1] - sm[y*w+x-1])
 			gy := 0.5 * (sm[(y+1)*w+x] - sm[(y-1)*w+x])
-			s.mean = append(s.mean, box/9)
+			s.mean = append(s.mean, float32(box/9))
 			s.res = append(s.res, mask3(d, w, x, y)/6)
 			s.grad = append(s.grad, float32(math.Hypot(float64(gx), float64(gy))))
 		}
@@ -290,6 +290,9 @@ func (s *NoiseSampler) Fit() (NoiseModel, error) {
 		return NoiseModel{}, ErrNoNoiseData
 	}
 	m := fitAffine(bins)
+	if bad := func(v float64) bool { return math.IsNaN(v) || math.IsInf(v, 0) }; bad(m.A) || bad(m.B) || bad(bins[len(bins)-1].Mean) {
+		return NoiseModel{}, ErrNoNoiseData
+	}
 	m.Source = "estimated"
 	m.Bins = bins
 	m.Samples = n
@@ -327,14 +330,16 @@ func fitAffine(bins []NoiseBin) NoiseModel {
 			if !bn.Used {
 				continue
 			}
-			v := bn.Variance
-			if pass > 0 && a*bn.Mean+b > 0 {
-				v = a*bn.Mean + b
+			// The first pass weights by pixel count only (weighting by a
+			// bin's own noisy variance favours the bins that came out low).
+			w := float64(bn.Pixels)
+			if pass > 0 {
+				v := a*bn.Mean + b
+				if !(v > 0) {
+					v = math.Max(bn.Variance, 1e-12)
+				}
+				w /= v * v
 			}
-			if !(v > 0) {
-				v = 1e-12
-			}
-			w := float64(bn.Pixels) / (v * v)
 			sw += w
 			sx += w * bn.Mean
 			sy += w * bn.Variance
@@ -358,6 +363,9 @@ func fitAffine(bins []NoiseBin) NoiseModel {
 			// A negative variance at zero signal is not physical (read
 			// noise and quantisation are >= 0): fit through the origin.
 			a, b = sxy/sxx, 0
+			if !(a >= 0) {
+				a, b = 0, math.Max(sy/sw, 0)
+			}
 		}
 	}
 	// Standard errors from the weighted residuals (n - 2 degrees of

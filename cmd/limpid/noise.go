@@ -48,8 +48,8 @@ or override them.`,
 				defer os.Remove(p)
 				path = p
 			}
-			if c.Int("tile") < 16 {
-				return usagef("--tile %d must be at least 16", c.Int("tile"))
+			if t := c.Int("tile"); t < 16 || t > 16384 {
+				return usagef("--tile %d must be between 16 and 16384", t)
 			}
 			src, err := raster.Open(path)
 			if err != nil {

@@ -53,7 +53,7 @@ func restoreFlags() []cli.Flag {
 		&cli.StringFlag{Name: "choose", Value: step.ChooseGlobal, EnvVars: env("choose"), Usage: "with auto: global (one choice per band from up to 16 tiles, uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
 		&cli.StringFlag{Name: "noise", Value: "auto", EnvVars: env("noise"), Usage: "noise model var = a*DN + b used by auto and discrepancy: auto (fitted per band from the scene) or a=GAIN,b=READVAR"},
 		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid) or particle (sequential Monte Carlo EMS with per-pixel error bars; see the particle flags)"},
-		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for stochastic methods (recorded; grid is deterministic)"},
+		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for the particle method and for the probe of the automatic choice (recorded); same seed, same output"},
 		&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs); output is identical for any value"},
 		&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels"},
 		&cli.StringFlag{Name: "overlap", Value: "auto", EnvVars: env("overlap"), Usage: "halo in pixels read around each tile; auto = 4 x (PSF radius + smoothing radius), rounded up to 8, at least 16, at most the tile"},
@@ -252,8 +252,11 @@ func parseNoise(s string) (*step.NoiseModel, error) {
 	for _, kv := range strings.Split(s, ",") {
 		k, v, ok := strings.Cut(strings.TrimSpace(kv), "=")
 		x, err := strconv.ParseFloat(v, 64)
-		if !ok || err != nil || math.IsNaN(x) || math.IsInf(x, 0) || x < 0 {
-			return nil, usagef("--noise %q: give auto or a=GAIN,b=READVAR with numbers >= 0 (var = a*DN + b)", s)
+		if !ok || err != nil || math.IsNaN(x) || math.IsInf(x, 0) || x < 0 || x > 1e30 {
+			return nil, usagef("--noise %q: give auto or a=GAIN,b=READVAR with numbers between 0 and 1e30 (var = a*DN + b)", s)
+		}
+		if seen[k] {
+			return nil, usagef("--noise %q: %s is given twice", s, k)
 		}
 		switch k {
 		case "a":
@@ -511,7 +514,7 @@ func outputNoData(meta raster.Meta, bands []int, j *restoreJob) (float64, bool) 
 func writeJSON(flag, path string, v any) error {
 	b, err := json.MarshalIndent(v, "", "  ")
 	if err != nil {
-		return err
+		return fmt.Errorf("%s %s: %v", flag, path, err)
 	}
 	tmp := path + ".tmp"
 	if err := os.WriteFile(tmp, append(b, '\n'), 0o644); err != nil {
