@@ -144,3 +144,28 @@ func TestAutoWorkersIdentical(t *testing.T) {
 		}
 	}
 }
+
+// A global choice over several tiles sums every candidate's risk, so no
+// candidate may be skipped by one tile's early exit (GUIDE section 4.5:
+// sum the tiles' curves). Source: the method's definition.
+func TestGlobalChoiceRunsEveryCandidate(t *testing.T) {
+	const n = 96
+	k, _ := psf.GaussianIso(1.2)
+	rng := rand.New(rand.NewPCG(27, 28))
+	bands, _ := ValleyReference(n, n)
+	valid := make([]bool, n*n)
+	for i := range valid {
+		valid[i] = true
+	}
+	obs := Degrade(bands[2], valid, n, n, NewConv(k), Noise{Gain: 0.4, Read: 3}, rng)
+	_, rep, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Tile: 48, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: 30})
+	ch := rep.Bands[0].Choice
+	if ch.TilesUsed < 2 {
+		t.Fatalf("%d tiles used, want several", ch.TilesUsed)
+	}
+	for _, c := range ch.Candidates {
+		if c.Skipped || len(c.Curve) == 0 {
+			t.Errorf("candidate %.1f skipped or without a curve in a global choice over %d tiles", c.Smooth, ch.TilesUsed)
+		}
+	}
+}
