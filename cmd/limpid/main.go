@@ -56,7 +56,8 @@ func exitCode(err error) int {
 const caution = `CAUTION: restoration can invent detail and amplify noise. Keep the original
 scene, label every product as restored, and defer to the product's specification
 and to licensed practice wherever decisions affect people (emergency mapping,
-legal evidence).`
+legal evidence). The automatic smoothing/stop choice and the particle method's
+error map assume the PSF and the noise model are right; they do not certify it.`
 
 // run is the whole program: it parses args (args[0] is the program name),
 // reads stdin when INPUT is "-", writes data (only) to stdout when OUTPUT is
