@@ -77,6 +77,7 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			restoreCommand(stdin, stdout, stderr),
 			noiseCommand(stdin, stdout, stderr),
 			demoCommand(stderr, stdout),
+			psfCommand(stdin, stdout, stderr),
 		},
 	}
 	err := app.RunContext(ctx, args)

@@ -35,6 +35,7 @@ func psfHelp() string {
 		}
 	}
 	b.WriteString("\n      e.g. gaussian:sigma=0.7 | gaussian:sx=0.8,sy=0.6,angle=20 | kernel:psf.txt")
+	b.WriteString(psfProductHelp)
 	return b.String()
 }
 
