@@ -3,8 +3,8 @@ package psf
 import (
 	"errors"
 	"math"
-	"strings"
 	"math/rand/v2"
+	"strings"
 	"testing"
 )
 
