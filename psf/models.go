@@ -1,9 +1,12 @@
 package psf
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"math"
+	"os"
 	"strings"
 
 	"gonum.org/v1/gonum/dsp/fourier"
@@ -496,6 +499,67 @@ func parseProduct(spec string) (*Kernel, error) {
 	return k, nil
 }
 
+// Measured is the part of a `limpid psf measure` JSON summary the
+// measured: spec reads: restoration sigmas in pixels (aperture removed).
+// SigmaX or SigmaY may be missing (one edge orientation only); Sigma then
+// stands for the missing axis.
+type Measured struct {
+	Sigma  *float64 `json:"sigma"`
+	SigmaX *float64 `json:"sigma_x"`
+	SigmaY *float64 `json:"sigma_y"`
+}
+
+// Spec is the gaussian spec equivalent to the summary.
+func (m Measured) Spec() (string, error) {
+	pick := func(v *float64) (float64, bool) {
+		if v != nil && *v > 0 && !math.IsInf(*v, 0) {
+			return *v, true
+		}
+		if m.Sigma != nil && *m.Sigma > 0 && !math.IsInf(*m.Sigma, 0) {
+			return *m.Sigma, true
+		}
+		return 0, false
+	}
+	sx, okx := pick(m.SigmaX)
+	sy, oky := pick(m.SigmaY)
+	if !okx || !oky {
+		return "", errors.New("has no positive sigma, sigma_x or sigma_y")
+	}
+	return fmt.Sprintf("gaussian:sx=%.6g,sy=%.6g", sx, sy), nil
+}
+
+// maxMeasuredBytes bounds the JSON summary read by measured: (security).
+const maxMeasuredBytes = 64 << 20
+
 func loadMeasured(path string, env Env) (*Kernel, error) {
-	return nil, fmt.Errorf("%w: measured:%s: not yet", ErrSpec, path)
+	if path == "" {
+		return nil, fmt.Errorf("%w: measured needs the JSON summary of limpid psf measure, e.g. measured:psf.json", ErrSpec)
+	}
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("%w: measured file %s: %v", ErrSpec, path, errors.Unwrap(err))
+	}
+	defer f.Close()
+	var m Measured
+	dec := json.NewDecoder(io.LimitReader(f, maxMeasuredBytes))
+	if err := dec.Decode(&m); err != nil {
+		return nil, fmt.Errorf("%w: measured file %s is not a limpid psf measure JSON summary: %v", ErrSpec, path, err)
+	}
+	spec, err := m.Spec()
+	if err != nil {
+		return nil, fmt.Errorf("%w: measured file %s %v", ErrSpec, path, err)
+	}
+	k, err := Parse(spec, env)
+	if err != nil {
+		return nil, fmt.Errorf("measured file %s: %w", path, err)
+	}
+	return k, nil
+}
+
+func init() {
+	register(&Model{
+		Name:    "measured",
+		Summary: "the Gaussian a limpid psf measure JSON summary reports (sigma_x, sigma_y, else sigma; restoration sigmas, pixel aperture removed)",
+		Params:  []Param{{"FILE", "file", "measured:FILE; everything after the colon is the path of the --json summary"}},
+	})
 }

@@ -68,8 +68,10 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 		Writer:          stderr,
 		ErrWriter:       stderr,
 		HideHelpCommand: true,
-		Description:     caution,
-		ExitErrHandler:  func(*cli.Context, error) {},
+		// psf measure --edge X0,Y0,X1,Y1 repeats; commas stay inside a value.
+		DisableSliceFlagSeparator: true,
+		Description:               caution,
+		ExitErrHandler:            func(*cli.Context, error) {},
 		OnUsageError: func(c *cli.Context, err error, isSub bool) error {
 			return usageError{err}
 		},
