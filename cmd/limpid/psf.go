@@ -394,7 +394,7 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 		edges = append(edges, found...)
 	}
 	sum := measureSummary{Input: in, Band: band, Edges: edges,
-		Convention: "mtf_nyquist, mtf50 and fwhm are the system e-SFR/LSF (ISO 12233, pixel aperture included); sigma, sigma_x and sigma_y are restoration sigmas in pixels (pixel aperture removed), for --psf gaussian:sx=SIGMA_X,sy=SIGMA_Y",
+		Convention:  "mtf_nyquist, mtf50 and fwhm are the system e-SFR/LSF (ISO 12233, pixel aperture included); sigma, sigma_x and sigma_y are restoration sigmas in pixels (pixel aperture removed), for --psf gaussian:sx=SIGMA_X,sy=SIGMA_Y",
 		CombineRule: combineRule}
 	if point != nil {
 		h := pw / 2

@@ -134,8 +134,8 @@ func TestPSFMeasureBadInputs(t *testing.T) {
 		{[]string{"--edge", "168,30,300,82", obs}, "outside the raster"},
 		{[]string{"--edge", "1,2,3", obs}, "give 4"},
 		{[]string{"--edge", "200,30,168,82", obs}, "must be larger"},
-		{[]string{"--edge", "60,100,92,140", obs}, "--edge 60,100,92,140"},   // fields, no clean edge
-		{[]string{"--edge", "172,40,182,70", obs}, "edge in the window"}, // dark tarp half: flat
+		{[]string{"--edge", "60,100,92,140", obs}, "--edge 60,100,92,140"}, // fields, no clean edge
+		{[]string{"--edge", "172,40,182,70", obs}, "edge in the window"},   // dark tarp half: flat
 		{[]string{"--point", "3,3", obs}, "outside the raster"},
 		{[]string{"--band", "9", "--edge", "168,30,200,82", obs}, "--band 9"},
 		{[]string{obs}, "needs --edge"},
