@@ -614,9 +614,29 @@ func writeEdgeMTFCSV(w io.Writer, r *psf.EdgeResult, sigma float64) error {
 	return nil
 }
 
-// autoEdges is the --auto search (psf.FindEdges on the whole band).
+// autoEdges is the --auto search: psf.FindEdges on the whole band (nodata
+// as NaN), then the slanted-edge measurement of every window it proposes;
+// windows the measurement refuses are left out.
 func autoEdges(src raster.Reader, band int) ([]edgeSummary, error) {
-	return nil, usagef("--auto is not implemented yet")
+	m := src.Meta()
+	plane := readWindow(src, band, 0, 0, m.Width, m.Height)
+	if plane == nil {
+		return nil, fmt.Errorf("--auto: reading band %d failed", band+1)
+	}
+	noise := psf.SceneNoise(plane, m.Width, m.Height)
+	if !(noise > 0) {
+		noise = 1e-6
+	}
+	var out []edgeSummary
+	for _, c := range psf.FindEdges(plane, m.Width, m.Height, noise) {
+		win := readWindow(src, band, c.X0, c.Y0, c.X1, c.Y1)
+		r, err := psf.MeasureEdge(win, c.X1-c.X0, c.Y1-c.Y0)
+		if err != nil || len(r.Warnings) > 0 && math.Abs(r.AngleDeg) > psf.EdgeSafeMaxDeg {
+			continue
+		}
+		out = append(out, summarizeEdge(r, [4]int{c.X0, c.Y0, c.X1, c.Y1}, "--auto"))
+	}
+	return out, nil
 }
 
 // psfProductHelp ends psfHelp: the product syntax and the kernel rule.
