@@ -644,4 +644,69 @@ const psfProductHelp = `
       Products: PART*PART*... of gaussian, gaussian-mtf, diffraction, detector and motion
         parts (system MTF = product of the parts' MTFs; kernel = their convolution), e.g.
         'diffraction:wavelength=0.65,fnumber=8,pitch=10*detector:fill=0.9*gaussian:sigma=0.4'
-      Kernels exclude the pixel aperture; model kernels hold >= 99.9 % of the weight.`
+      Kernels exclude the pixel aperture; model kernels hold >= 99.9 % of the weight.
+      auto[:band=N]: measured from INPUT itself (restore only): the edges limpid psf measure
+        --auto finds in band N (default: the first band restored), as gaussian:sx=..,sy=..`
+
+// restorePSF reads restore's --psf: a psf spec, or auto[:band=N], which
+// measures the PSF from INPUT's edges (psf measure --auto) before restoring.
+func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
+	spec := strings.TrimSpace(c.String("psf"))
+	name, rest, _ := strings.Cut(spec, ":")
+	if name != "auto" {
+		k, err := psf.Parse(spec, psfEnv())
+		if err != nil {
+			return nil, "", usageError{fmt.Errorf("--psf %w", err)}
+		}
+		return k, spec, nil
+	}
+	in := c.Args().Get(0)
+	if in == "-" {
+		return nil, "", usagef("--psf auto measures the PSF from INPUT, which must then be a file (stdin can be read only once)")
+	}
+	src, err := raster.Open(in)
+	if err != nil {
+		return nil, "", err
+	}
+	defer src.Close()
+	meta := src.Meta()
+	band := 0
+	if bs, err := parseBands(c.String("bands"), len(meta.Bands)); err == nil && len(bs) > 0 {
+		band = bs[0]
+	}
+	if rest != "" {
+		k, v, ok := strings.Cut(rest, "=")
+		n, err := strconv.Atoi(v)
+		if !ok || k != "band" || err != nil {
+			return nil, "", usagef("--psf %q: use auto or auto:band=N (1-based band to measure)", spec)
+		}
+		if n < 1 || n > len(meta.Bands) {
+			return nil, "", usagef("--psf %q: band %d does not exist (INPUT has %d bands)", spec, n, len(meta.Bands))
+		}
+		band = n - 1
+	}
+	edges, err := autoEdges(src, band)
+	if err != nil {
+		return nil, "", err
+	}
+	sum := measureSummary{Edges: edges}
+	combine(&sum)
+	if sum.Sigma == nil {
+		return nil, "", usagef("--psf auto: no usable edge in band %d of %s (straight, high-contrast, 2-10 degrees off the axes, uniform sides); measure the PSF elsewhere (limpid psf measure) and pass it as --psf", band+1, in)
+	}
+	gs, err := psf.Measured{Sigma: sum.Sigma, SigmaX: sum.SigmaX, SigmaY: sum.SigmaY}.Spec()
+	if err != nil {
+		return nil, "", usagef("--psf auto: %v", err)
+	}
+	k, err := psf.Parse(gs, psf.Env{})
+	if err != nil {
+		return nil, "", usageError{fmt.Errorf("--psf auto gave %s: %w", gs, err)}
+	}
+	used := 0
+	for _, e := range sum.Edges {
+		if e.Used {
+			used++
+		}
+	}
+	return k, fmt.Sprintf("%s (auto: %d edges in band %d, %s)", gs, used, band+1, sum.SigmaFrom), nil
+}

@@ -2,6 +2,7 @@ package main
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -194,19 +195,9 @@ func TestPSFMeasureAutoFindsTarp(t *testing.T) {
 	if !tarp {
 		t.Errorf("the tarp edge is not among the edges found:\n%s", out)
 	}
-	// A scene without edges: flat noise (invented). --auto fails with a
-	// clear message (the issue's requirement).
-	dir := t.TempDir()
-	flat := filepath.Join(dir, "flat.tif")
-	plane := make([]float32, 96*96)
-	for i := range plane {
-		plane[i] = float32(1000 + 10*math.Sin(float64(i)*0.37))
-	}
-	meta := raster.Meta{Width: 96, Height: 96, DataType: "Float32", Bands: []raster.BandInfo{{Description: "flat"}}}
-	if err := raster.WriteFloat32(flat, meta, [][]float32{plane}, raster.WriteOptions{Format: raster.GTiff, DataType: "Float32"}); err != nil {
-		t.Fatal(err)
-	}
-	code, _, errs = limpid(t, nil, "psf", "measure", "--auto", flat)
+	// A scene without edges: --auto fails with a clear message (the
+	// issue's requirement).
+	code, _, errs = limpid(t, nil, "psf", "measure", "--auto", flatScene(t, t.TempDir()))
 	if code != 2 || !strings.Contains(errs, "no usable edge") {
 		t.Errorf("flat scene: exit %d, %q", code, errs)
 	}
@@ -290,4 +281,58 @@ func TestPSFMeasureTwoAxes(t *testing.T) {
 			t.Errorf("%v: sigma_x %v sigma_y %v, want %g %g\n%s", args, m["sigma_x"], m["sigma_y"], sx, sy, out)
 		}
 	}
+}
+
+// restore --psf auto measures the demo PSF from the scene (the tarp edge)
+// and records it; a scene without edges fails with one clear line. Source:
+// the generator's PSF gaussian:sigma=1.4 (demo.go), the issue's 5 %.
+func TestRestorePSFAuto(t *testing.T) {
+	dir := t.TempDir()
+	out, rep := filepath.Join(dir, "r.tif"), filepath.Join(dir, "r.json")
+	code, _, errs := limpid(t, nil, "restore", "--psf", "auto", "--stop", "change", "--smooth", "0.2", "--iterations", "3", "--report", rep, fixture("observed.tif"), out)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	b, _ := os.ReadFile(rep)
+	var r struct {
+		Step struct {
+			PSF string `json:"psf"`
+		} `json:"restoration"`
+	}
+	if err := json.Unmarshal(b, &r); err != nil {
+		t.Fatal(err)
+	}
+	var sx, sy float64
+	if _, err := fmt.Sscanf(r.Step.PSF, "gaussian:sx=%g,sy=%g", &sx, &sy); err != nil || math.Abs(sx-1.4) > 0.05*1.4 {
+		t.Errorf("recorded PSF %q", r.Step.PSF)
+	}
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--psf", "auto:band=7", fixture("observed.tif"), filepath.Join(dir, "x.tif")}, "band 7 does not exist"},
+		{[]string{"--psf", "auto:foo", fixture("observed.tif"), filepath.Join(dir, "x.tif")}, "auto:band=N"},
+		{[]string{"--psf", "auto", "-", filepath.Join(dir, "x.tif")}, "stdin"},
+		{[]string{"--psf", "auto", flatScene(t, dir), filepath.Join(dir, "x.tif")}, "no usable edge"},
+	} {
+		code, _, errs := limpid(t, nil, append([]string{"restore"}, c.args...)...)
+		if code != 2 || !strings.Contains(errs, c.want) || strings.Count(strings.TrimSpace(errs), "\n") != 0 {
+			t.Errorf("%v: exit %d, %q", c.args, code, errs)
+		}
+	}
+}
+
+// flatScene writes a 96x96 Float32 scene of low-amplitude texture and no
+// edge (invented).
+func flatScene(t *testing.T, dir string) string {
+	flat := filepath.Join(dir, "flat.tif")
+	plane := make([]float32, 96*96)
+	for i := range plane {
+		plane[i] = float32(1000 + 10*math.Sin(float64(i)*0.37))
+	}
+	meta := raster.Meta{Width: 96, Height: 96, DataType: "Float32", Bands: []raster.BandInfo{{Description: "flat"}}}
+	if err := raster.WriteFloat32(flat, meta, [][]float32{plane}, raster.WriteOptions{Format: raster.GTiff, DataType: "Float32"}); err != nil {
+		t.Fatal(err)
+	}
+	return flat
 }

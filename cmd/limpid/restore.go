@@ -139,12 +139,12 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	if c.String("psf") == "" {
 		return nil, usagef("--psf is required, e.g. --psf gaussian:sigma=0.7")
 	}
-	k, err := psf.Parse(c.String("psf"), psf.Env{LoadRaster: raster.LoadKernel})
+	k, psfSpec, err := restorePSF(c) // psf.go: model specs, and auto (measured from INPUT)
 	if err != nil {
-		return nil, usageError{fmt.Errorf("--psf %w", err)}
+		return nil, err
 	}
 	cfg := step.Config{
-		Method: c.String("method"), PSF: k, PSFSpec: c.String("psf"),
+		Method: c.String("method"), PSF: k, PSFSpec: psfSpec,
 		Iterations: c.Int("iterations"), Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
 		Workers: c.Int("workers"), Seed: c.Uint64("seed"), Overlap: -1,
 		Stop: c.String("stop"), Choose: c.String("choose"),
