@@ -583,7 +583,7 @@ func printSummary(w io.Writer, s *measureSummary) {
 		if !e.Used {
 			used = "no (outlier)"
 		}
-		fmt.Fprintf(tw, "%d\t%d,%d,%d,%d\t%s\t%.2f\t%.3f\t%.4f\t%.3f\t%s\t%.2f\t%d\t%.0f\t%s\t\n", i+1, e.Window[0], e.Window[1], e.Window[2], e.Window[3],
+		fmt.Fprintf(tw, "%d\t%d,%d,%d,%d\t%s\t%.2f\t%.3f\t%.4f\t%.3f\t%s\t%.2f\t%d\t%.3g\t%s\t\n", i+1, e.Window[0], e.Window[1], e.Window[2], e.Window[3],
 			e.Axis, e.AngleDeg, e.Sigma, e.FitRMS, e.MTFNyquist, fmtPtr(e.MTF50, "%.3f"), e.FWHM, e.RowsUsed, e.SNR, used)
 	}
 	tw.Flush()
