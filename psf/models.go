@@ -53,16 +53,17 @@ const foldFactor = 4
 // transfer of the continuous PSF point-sampled at pixel centres. It is
 // cropped to the EnergyFraction support, negative ringing (at most MaxClipped
 // of the weight) is set to zero and it is normalised to sum 1. N starts at
-// 64 and doubles (to at most 1024) until the support radius is at most N/8.
+// 64 and doubles (to at most 1024) until the support radius is at most N/4
+// (the signed sums are then checked over at least [r, 2r)).
 func KernelFromTransfer(psf, inBand Transfer) (*Kernel, TransferInfo, error) {
 	for n := 64; ; n *= 2 {
 		h := foldedInverseDFT(psf, inBand, n)
 		r, held := energyRadius(h, n)
-		if r > n/8 && n < maxTransferGrid {
+		if r > n/4 && n < maxTransferGrid {
 			continue
 		}
-		if r > n/8 || 2*r+1 > MaxKernelSize {
-			return nil, TransferInfo{}, fmt.Errorf("%w: the kernel needs a support radius above %d pixels to hold %.1f %% of its weight", ErrKernel, n/8, 100*EnergyFraction)
+		if r > n/4 || 2*r+1 > MaxKernelSize {
+			return nil, TransferInfo{}, fmt.Errorf("%w: the kernel needs a support radius above %d pixels to hold %.1f %% of its weight", ErrKernel, n/4, 100*EnergyFraction)
 		}
 		w := 2*r + 1
 		data := make([]float64, w*w)
