@@ -199,7 +199,8 @@ measured.
 The summary table goes to stdout; --json writes it in full (read it back with
 --psf measured:FILE), --csv PREFIX writes PREFIX_edgeN_esf.csv (ESF and LSF)
 and PREFIX_edgeN_mtf.csv (e-SFR and the fitted model), --kernel FILE a kernel
-file (text, or GeoTIFF by extension) usable as --psf kernel:FILE.
+file (text, or GeoTIFF by extension) usable as --psf kernel:FILE, --png FILE a
+plot of the e-SFR curves with their fitted models and of the ESF/LSF.
 
 Examples:
    limpid psf measure --edge 540,120,600,220 --edge 300,400,400,460 --json psf.json scene.tif
@@ -213,6 +214,7 @@ Examples:
 			&cli.StringFlag{Name: "json", Usage: "write the summary to this JSON file"},
 			&cli.StringFlag{Name: "csv", Usage: "write ESF/LSF and MTF curves to PREFIX_edgeN_*.csv"},
 			&cli.StringFlag{Name: "kernel", Usage: "write the measured Gaussian kernel to this file (.tif/.tiff: GeoTIFF, else text)"},
+			&cli.StringFlag{Name: "png", Usage: "plot the edges' e-SFR with the fitted model, and their ESF/LSF, to this PNG file"},
 		},
 		Action: func(c *cli.Context) error { return psfMeasure(c, stdin, stdout, stderr) },
 	}
@@ -336,7 +338,7 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 	if pw < 7 || pw > 101 || pw%2 == 0 {
 		return usagef("--point-window %d must be odd, 7 to 101", pw)
 	}
-	for _, o := range []struct{ flag, path string }{{"--json", c.String("json")}, {"--kernel", c.String("kernel")}} {
+	for _, o := range []struct{ flag, path string }{{"--json", c.String("json")}, {"--kernel", c.String("kernel")}, {"--png", c.String("png")}} {
 		if o.path != "" {
 			if err := checkPaths(in, o.path); err != nil {
 				return usagef("%s: %v", o.flag, err)
@@ -455,6 +457,17 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 			return usagef("--kernel: the measured PSF gives no kernel: %v", err)
 		}
 		if err := writeKernel(p, k, spec+" (measured from "+in+")"); err != nil {
+			cleanup()
+			return err
+		}
+		written = append(written, p)
+	}
+	if p := c.String("png"); p != "" {
+		if len(sum.Edges) == 0 {
+			cleanup()
+			return usagef("--png %s: plots edge measurements; no edge was measured", p)
+		}
+		if err := writeAtomic("--png", p, func(w io.Writer) error { return writePlot(w, sum.Edges) }); err != nil {
 			cleanup()
 			return err
 		}
@@ -604,7 +617,7 @@ func writeESFCSV(w io.Writer, r *psf.EdgeResult) error {
 }
 
 func writeEdgeMTFCSV(w io.Writer, r *psf.EdgeResult, sigma float64) error {
-	fmt.Fprintln(w, "frequency_cycles_per_pixel,esfr,fitted_model")
+	fmt.Fprintln(w, "frequency_cycles_per_pixel,esfr,fitted_model_exp(-2pi^2s^2f^2)sinc(f)")
 	for k, f := range r.Freq {
 		if f > 1 {
 			break

@@ -3,6 +3,7 @@ package main
 import (
 	"encoding/json"
 	"fmt"
+	"image/png"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -84,7 +85,8 @@ func TestPSFMeasureDemoTarp(t *testing.T) {
 	const tolScene = 0.05
 	dir := t.TempDir()
 	js, kern := filepath.Join(dir, "m.json"), filepath.Join(dir, "m.txt")
-	code, out, errs := limpid(t, nil, "psf", "measure", "--edge", "168,30,200,82", "--json", js, "--csv", filepath.Join(dir, "c"), "--kernel", kern, fixture("observed.tif"))
+	pngPath := filepath.Join(dir, "p.png")
+	code, out, errs := limpid(t, nil, "psf", "measure", "--edge", "168,30,200,82", "--json", js, "--csv", filepath.Join(dir, "c"), "--kernel", kern, "--png", pngPath, fixture("observed.tif"))
 	if code != 0 {
 		t.Fatalf("exit %d: %s", code, errs)
 	}
@@ -121,6 +123,16 @@ func TestPSFMeasureDemoTarp(t *testing.T) {
 		if _, err := os.Stat(filepath.Join(dir, f)); err != nil {
 			t.Error(err)
 		}
+	}
+	// The plot is a PNG the standard decoder reads (900 x 380 points at
+	// gonum/plot's default 96 dpi: 1200 x 507 pixels).
+	f, err := os.Open(pngPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	if cfg, err := png.DecodeConfig(f); err != nil || cfg.Width < 900 || cfg.Height < 380 {
+		t.Errorf("plot: %v %+v", err, cfg)
 	}
 }
 
