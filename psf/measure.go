@@ -23,6 +23,9 @@ const (
 	// practice, no source).
 	EdgeMinDeg = 1.0
 	EdgeMaxDeg = 30.0
+	// MaxEdgeWindow bounds an edge window's side (the e-SFR's DFT costs
+	// the square of the width).
+	MaxEdgeWindow = 2048
 	// BinsPerPixel is ISO 12233's 4x oversampling of the ESF.
 	BinsPerPixel = 4
 	// HammingFWHM and HammingMinPixels size the LSF window (see edgeSFR).
@@ -83,6 +86,9 @@ type EdgeResult struct {
 func MeasureEdge(win []float32, w, h int) (*EdgeResult, error) {
 	if w*h != len(win) || w < 8 || h < 8 {
 		return nil, fmt.Errorf("%w: the window is %dx%d; it needs at least 8x8 pixels", ErrMeasure, w, h)
+	}
+	if w > MaxEdgeWindow || h > MaxEdgeWindow {
+		return nil, fmt.Errorf("%w: the window is %dx%d; at most %d pixels on a side (an edge window spans a few tens of pixels across the edge)", ErrMeasure, w, h, MaxEdgeWindow)
 	}
 	for i, v := range win {
 		if math.IsNaN(float64(v)) || math.IsInf(float64(v), 0) {
