@@ -85,7 +85,11 @@ func TestSlantedEdgeRecoversGaussian(t *testing.T) {
 					t.Errorf("tilt %v angle %g s %g: sigma %.4f (%.1f %%), e-SFR(Nyquist) %.4f want %.4f, angle %.3f, rows %d, fit rms %.3g, sigma_lsf %.3f",
 						tilt, ang, s, r.Sigma, 100*(r.Sigma-s)/s, r.MTFNyquist, want, r.AngleDeg, r.Rows, r.FitRMS, r.SigmaLSF)
 				}
-				if math.Abs(r.AngleDeg-ang) > 0.2 || !r.Vertical {
+				// The edge line's angle to 0.2 degree: over 400 lines
+				// that is 1.4 pixels of drift, far above the centroid
+				// scatter (common practice, no source).
+				const tolAngle = 0.2
+				if math.Abs(r.AngleDeg-ang) > tolAngle || !r.Vertical {
 					t.Errorf("angle %g: measured %.3f vertical %v", ang, r.AngleDeg, r.Vertical)
 				}
 				if testing.Verbose() {
@@ -124,7 +128,8 @@ func TestPointFitRecoversSigma(t *testing.T) {
 			t.Errorf("s %g: fitted (%.4f, %.4f)", c.s, r.SigmaX, r.SigmaY)
 		}
 		// Position to a tenth of a pixel (common practice, no source).
-		if math.Abs(r.X-c.x0) > 0.1 || math.Abs(r.Y-c.y0) > 0.1 {
+		const tolPos = 0.1
+		if math.Abs(r.X-c.x0) > tolPos || math.Abs(r.Y-c.y0) > tolPos {
 			t.Errorf("s %g: centre (%.3f, %.3f) want (%g, %g)", c.s, r.X, r.Y, c.x0, c.y0)
 		}
 		t.Logf("s %g: sigma (%.4f, %.4f), centre (%.3f, %.3f), rms %.3g noise %.3g", c.s, r.SigmaX, r.SigmaY, r.X, r.Y, r.RMS, r.Noise)
