@@ -152,7 +152,8 @@ func TestProductCascade(t *testing.T) {
 		if got := KernelTransfer(k, f[0], f[1]); math.Abs(got-want) > tolDFT {
 			t.Errorf("%s at %v: kernel %g, aliased product of parts %g", spec, f, got, want)
 		}
-		if got := sys.At(f[0], f[1]); math.Abs(got-parts(f[0], f[1])) > 1e-12 {
+		const exact = 1e-12 // the same products, float rounding only
+		if got := sys.At(f[0], f[1]); math.Abs(got-parts(f[0], f[1])) > exact {
 			t.Errorf("System.At %v: %g want %g", f, got, parts(f[0], f[1]))
 		}
 	}
@@ -184,6 +185,8 @@ func TestGaussianFromNyquist(t *testing.T) {
 	}
 }
 
+// Source: the requirement (malformed specs are refused with a
+// message naming the part that is wrong); parameter ranges as documented.
 func TestParseNewSpecsRefuses(t *testing.T) {
 	for _, c := range []struct{ spec, want string }{
 		{"gaussian-mtf:mtf=0.7", "must be in (0, 0.6366)"},

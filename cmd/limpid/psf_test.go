@@ -141,7 +141,9 @@ func TestPSFMeasureDemoTarp(t *testing.T) {
 	}
 }
 
-// Bad inputs exit 2 with one clear line naming the input (the list).
+// Bad inputs exit 2 with one clear line naming the input. Source: the
+// issue's list and the project rules (exit 2, one line, no half-written
+// output).
 func TestPSFMeasureBadInputs(t *testing.T) {
 	dir := t.TempDir()
 	js := filepath.Join(dir, "m.json")
