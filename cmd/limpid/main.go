@@ -68,10 +68,8 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 		Writer:          stderr,
 		ErrWriter:       stderr,
 		HideHelpCommand: true,
-		// psf measure --edge X0,Y0,X1,Y1 repeats; commas stay inside a value.
-		DisableSliceFlagSeparator: true,
-		Description:               caution,
-		ExitErrHandler:            func(*cli.Context, error) {},
+		Description:     caution,
+		ExitErrHandler:  func(*cli.Context, error) {},
 		OnUsageError: func(c *cli.Context, err error, isSub bool) error {
 			return usageError{err}
 		},
@@ -82,6 +80,8 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			psfCommand(stdin, stdout, stderr),
 		},
 	}
+	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.
+	app.DisableSliceFlagSeparator = true
 	err := app.RunContext(ctx, args)
 	if err != nil {
 		msg := strings.ReplaceAll(strings.TrimSpace(err.Error()), "\n", " ")
