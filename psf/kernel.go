@@ -171,3 +171,16 @@ func normalise(v []float64) {
 		v[i] /= s
 	}
 }
+
+// KernelTransfer returns the real part of the kernel's DTFT at (fx, fy)
+// cycles per pixel: sum h(dx, dy) cos(2 pi (fx dx + fy dy)) (for a symmetric
+// kernel the whole transfer function; its modulus is the kernel's MTF).
+func KernelTransfer(k *Kernel, fx, fy float64) float64 {
+	var s float64
+	for j := 0; j < k.H; j++ {
+		for i := 0; i < k.W; i++ {
+			s += k.Data[j*k.W+i] * math.Cos(2*math.Pi*(fx*float64(i-k.Rx())+fy*float64(j-k.Ry())))
+		}
+	}
+	return s
+}

@@ -33,6 +33,12 @@ type Model struct {
 	build func(p map[string]float64) (*Kernel, error)
 	// check validates the set of keys present (mutually exclusive forms).
 	check func(p map[string]float64) error
+	// otf is the model's transfer function, for products (nil when the
+	// model cannot be a part, e.g. kernel:).
+	otf func(p map[string]float64) (Transfer, error)
+	// inBand marks transfer functions relative to the full pixel (no point
+	// spread of their own), applied inside the pixel grid's band only.
+	inBand bool
 }
 
 // Param documents one model parameter.
@@ -86,6 +92,7 @@ func init() {
 			}
 			return GaussianAniso(p["sx"], p["sy"], p["angle"])
 		},
+		otf: gaussianOTF,
 	})
 	register(&Model{
 		Name:    "kernel",
@@ -94,23 +101,48 @@ func init() {
 	})
 }
 
-// Parse builds the kernel a specification names. The returned error wraps
-// ErrSpec or ErrKernel and names the part of the spec that is wrong.
+// Parse builds the kernel a specification names: NAME:KEY=VALUE,..., a
+// product of such parts joined by ProductSeparator, or kernel:PATH. The
+// returned error wraps ErrSpec or ErrKernel and names the part of the spec
+// that is wrong.
 func Parse(spec string, env Env) (*Kernel, error) {
 	spec = strings.TrimSpace(spec)
-	name, rest, ok := strings.Cut(spec, ":")
-	if !ok || name == "" {
-		return nil, fmt.Errorf("%w: %q: expected NAME:PARAMETERS, e.g. gaussian:sigma=0.7 (models: %s)", ErrSpec, spec, modelNames())
-	}
-	m, ok := models[name]
-	if !ok {
-		return nil, fmt.Errorf("%w: %q: unknown model %q (models: %s)", ErrSpec, spec, name, modelNames())
-	}
+	name, rest, _ := strings.Cut(spec, ":")
 	if name == "kernel" {
 		if rest == "" {
 			return nil, fmt.Errorf("%w: %q: kernel needs a path, e.g. kernel:psf.txt", ErrSpec, spec)
 		}
 		return loadKernel(rest, env)
+	}
+	if name == "measured" {
+		return loadMeasured(rest, env)
+	}
+	if strings.Contains(spec, ProductSeparator) {
+		return parseProduct(spec)
+	}
+	m, params, err := parseModel(spec)
+	if err != nil {
+		return nil, err
+	}
+	kern, err := m.build(params)
+	if err != nil {
+		return nil, fmt.Errorf("%q: %w", spec, err)
+	}
+	return kern, nil
+}
+
+// parseModel reads NAME:KEY=VALUE,... into its model and checked parameters.
+func parseModel(spec string) (*Model, map[string]float64, error) {
+	name, rest, ok := strings.Cut(spec, ":")
+	if !ok || name == "" {
+		return nil, nil, fmt.Errorf("%w: %q: expected NAME:PARAMETERS, e.g. gaussian:sigma=0.7 (models: %s)", ErrSpec, spec, modelNames())
+	}
+	m, ok := models[name]
+	if !ok {
+		return nil, nil, fmt.Errorf("%w: %q: unknown model %q (models: %s)", ErrSpec, spec, name, modelNames())
+	}
+	if m.build == nil {
+		return nil, nil, fmt.Errorf("%w: %q: %s:PATH cannot be combined with other parts", ErrSpec, spec, name)
 	}
 	params := map[string]float64{}
 	allowed := map[string]bool{}
@@ -124,31 +156,27 @@ func Parse(spec string, env Env) (*Kernel, error) {
 		}
 		k, v, ok := strings.Cut(kv, "=")
 		if !ok {
-			return nil, fmt.Errorf("%w: %q: parameter %q is not KEY=VALUE", ErrSpec, spec, kv)
+			return nil, nil, fmt.Errorf("%w: %q: parameter %q is not KEY=VALUE", ErrSpec, spec, kv)
 		}
 		k = strings.TrimSpace(k)
 		if !allowed[k] {
-			return nil, fmt.Errorf("%w: %q: %s has no parameter %q (accepted: %s)", ErrSpec, spec, name, k, paramNames(m))
+			return nil, nil, fmt.Errorf("%w: %q: %s has no parameter %q (accepted: %s)", ErrSpec, spec, name, k, paramNames(m))
 		}
 		if _, dup := params[k]; dup {
-			return nil, fmt.Errorf("%w: %q: parameter %q given twice", ErrSpec, spec, k)
+			return nil, nil, fmt.Errorf("%w: %q: parameter %q given twice", ErrSpec, spec, k)
 		}
 		f, err := strconv.ParseFloat(strings.TrimSpace(v), 64)
 		if err != nil || math.IsNaN(f) || math.IsInf(f, 0) {
-			return nil, fmt.Errorf("%w: %q: %s=%q is not a finite number", ErrSpec, spec, k, v)
+			return nil, nil, fmt.Errorf("%w: %q: %s=%q is not a finite number", ErrSpec, spec, k, v)
 		}
 		params[k] = f
 	}
 	if m.check != nil {
 		if err := m.check(params); err != nil {
-			return nil, fmt.Errorf("%w: %q: %s %v", ErrSpec, spec, name, err)
+			return nil, nil, fmt.Errorf("%w: %q: %s %v", ErrSpec, spec, name, err)
 		}
 	}
-	kern, err := m.build(params)
-	if err != nil {
-		return nil, fmt.Errorf("%q: %w", spec, err)
-	}
-	return kern, nil
+	return m, params, nil
 }
 
 func modelNames() string {

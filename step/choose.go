@@ -270,7 +270,7 @@ type chooser struct {
 	// exhaustive: a global choice over several tiles; every candidate runs
 	// to its own stop on every tile (no pruning across candidates).
 	exhaustive bool
-	kept []*keptTile // per band
+	kept       []*keptTile // per band
 
 	mu      sync.Mutex
 	weights map[[2]int]*riskWeights

@@ -80,8 +80,11 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			noiseCommand(stdin, stdout, stderr),
 			demoCommand(stderr, stdout),
 			tilesCommand(stdin, stdout, stderr),
+			psfCommand(stdin, stdout, stderr),
 		},
 	}
+	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.
+	app.DisableSliceFlagSeparator = true
 	err := app.RunContext(ctx, args)
 	if err != nil {
 		msg := strings.ReplaceAll(strings.TrimSpace(err.Error()), "\n", " ")

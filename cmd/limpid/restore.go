@@ -35,6 +35,7 @@ func psfHelp() string {
 		}
 	}
 	b.WriteString("\n      e.g. gaussian:sigma=0.7 | gaussian:sx=0.8,sy=0.6,angle=20 | kernel:psf.txt")
+	b.WriteString(psfProductHelp)
 	return b.String()
 }
 
@@ -148,12 +149,12 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	if c.String("psf") == "" {
 		return nil, usagef("--psf is required, e.g. --psf gaussian:sigma=0.7")
 	}
-	k, err := psf.Parse(c.String("psf"), psf.Env{LoadRaster: raster.LoadKernel})
+	k, psfSpec, err := restorePSF(c) // psf.go: model specs, and auto (measured from INPUT)
 	if err != nil {
-		return nil, usageError{fmt.Errorf("--psf %w", err)}
+		return nil, err
 	}
 	cfg := step.Config{
-		Method: c.String("method"), PSF: k, PSFSpec: c.String("psf"),
+		Method: c.String("method"), PSF: k, PSFSpec: psfSpec,
 		Iterations: c.Int("iterations"), Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
 		Workers: c.Int("workers"), Seed: c.Uint64("seed"), Overlap: -1,
 		Stop: c.String("stop"), Choose: c.String("choose"),
