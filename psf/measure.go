@@ -263,10 +263,22 @@ func removeTilt(img []float64, w, h int, a, b, margin float64) {
 	}
 }
 
-// solve4 solves a 4x4 augmented system by Gaussian elimination with
-// partial pivoting.
+// solve4 solves a 4x4 augmented system (see gaussSolve).
 func solve4(m [4][5]float64) ([4]float64, bool) {
-	const n = 4
+	rows := make([][]float64, 4)
+	for r := range rows {
+		rows[r] = m[r][:]
+	}
+	var x [4]float64
+	ok := gaussSolve(rows, x[:], 1e-12)
+	return x, ok
+}
+
+// gaussSolve solves the n x (n+1) augmented system m (modified in place) by
+// Gaussian elimination with partial pivoting into x; false when a pivot is
+// below tiny in magnitude.
+func gaussSolve(m [][]float64, x []float64, tiny float64) bool {
+	n := len(m)
 	for col := 0; col < n; col++ {
 		p := col
 		for r := col + 1; r < n; r++ {
@@ -274,8 +286,8 @@ func solve4(m [4][5]float64) ([4]float64, bool) {
 				p = r
 			}
 		}
-		if math.Abs(m[p][col]) < 1e-12 {
-			return [4]float64{}, false
+		if math.Abs(m[p][col]) < tiny {
+			return false
 		}
 		m[col], m[p] = m[p], m[col]
 		for r := col + 1; r < n; r++ {
@@ -285,7 +297,6 @@ func solve4(m [4][5]float64) ([4]float64, bool) {
 			}
 		}
 	}
-	var x [4]float64
 	for r := n - 1; r >= 0; r-- {
 		s := m[r][n]
 		for k := r + 1; k < n; k++ {
@@ -293,7 +304,7 @@ func solve4(m [4][5]float64) ([4]float64, bool) {
 		}
 		x[r] = s / m[r][r]
 	}
-	return x, true
+	return true
 }
 
 func edgeSFR(img []float64, w, h int) (*EdgeResult, error) {
@@ -881,35 +892,13 @@ func MeasurePoint(win []float32, w, h int) (*PointResult, error) {
 	return r, nil
 }
 
-// solveN solves a 6x6 augmented system by Gaussian elimination with partial
-// pivoting.
+// solveN solves a 6x6 augmented system (see gaussSolve).
 func solveN(m [6][7]float64) ([6]float64, bool) {
-	const n = 6
-	for col := 0; col < n; col++ {
-		p := col
-		for r := col + 1; r < n; r++ {
-			if math.Abs(m[r][col]) > math.Abs(m[p][col]) {
-				p = r
-			}
-		}
-		if math.Abs(m[p][col]) < 1e-300 {
-			return [6]float64{}, false
-		}
-		m[col], m[p] = m[p], m[col]
-		for r := col + 1; r < n; r++ {
-			f := m[r][col] / m[col][col]
-			for k := col; k <= n; k++ {
-				m[r][k] -= f * m[col][k]
-			}
-		}
+	rows := make([][]float64, 6)
+	for r := range rows {
+		rows[r] = m[r][:]
 	}
 	var x [6]float64
-	for r := n - 1; r >= 0; r-- {
-		s := m[r][n]
-		for k := r + 1; k < n; k++ {
-			s -= m[r][k] * x[k]
-		}
-		x[r] = s / m[r][r]
-	}
-	return x, true
+	ok := gaussSolve(rows, x[:], 1e-300)
+	return x, ok
 }

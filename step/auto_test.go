@@ -10,7 +10,7 @@ import (
 	"limpid/raster"
 )
 
-// ems64 is a float64 transcription of the EMS recursion and of its
+// ems64 is a float64 re-implementation of the EMS recursion and of its
 // forward-mode derivative (GUIDE section 4.2), written independently of
 // the production code (direct sums, explicit adjoint) so that finite
 // differences can be taken at float64 precision.
