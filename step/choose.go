@@ -267,9 +267,13 @@ type chooser struct {
 	// keep: the scene is one tile, so the best candidate's best iterate
 	// is the answer and no final pass is needed.
 	keep bool
-	// exhaustive: a global choice over several tiles; every candidate runs
-	// to its own stop on every tile (no pruning across candidates).
+	// exhaustive: a global choice over several tiles. One pass per
+	// candidate runs it on every sample tile; a band stops at the first
+	// candidate whose summed risk rises (one tile's rise must not veto a
+	// bandwidth the sum prefers). active is the pass's candidate.
 	exhaustive bool
+	active     int
+	bandDone   []bool
 	kept       []*keptTile // per band
 
 	mu      sync.Mutex
@@ -318,18 +322,45 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		return Result{Flat: true}, nil
 	}
 	auto := c.cfg.Stop == StopAuto
-	runs := make([]riskRun, len(c.grids))
-	for i := range runs {
-		runs[i] = riskRun{Smooth: c.smooths[i], BestR: math.Inf(1), Mode: "skipped"}
+	newRuns := func() []riskRun {
+		runs := make([]riskRun, len(c.grids))
+		for i := range runs {
+			runs[i] = riskRun{Smooth: c.smooths[i], BestR: math.Inf(1), Mode: "skipped"}
+		}
+		return runs
 	}
+	if c.exhaustive {
+		// One candidate per pass (regularise decides which, and when a
+		// band's summed risk has risen).
+		i := c.active
+		c.mu.Lock()
+		done := c.bandDone[k.Band]
+		c.mu.Unlock()
+		if done {
+			return Result{Flat: true}, nil
+		}
+		run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.cfg.Iterations, auto, false, math.Inf(1))
+		if err != nil {
+			return Result{}, err
+		}
+		if !auto {
+			run.BestK, run.BestR = c.cfg.Iterations, run.Risk[len(run.Risk)-1]
+		}
+		run.Smooth = c.smooths[i]
+		c.mu.Lock()
+		if c.runs[k] == nil {
+			c.runs[k] = newRuns()
+		}
+		c.runs[k][i] = run
+		c.valid[k] = rp.nValid
+		c.mu.Unlock()
+		return Result{Flat: true}, nil
+	}
+	runs := newRuns()
 	beat := math.Inf(1)
 	var kept []float32
 	for i, g := range c.grids {
-		prune := beat
-		if c.exhaustive {
-			prune = math.Inf(1)
-		}
-		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, prune)
+		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, beat)
 		if err != nil {
 			return Result{}, err
 		}
@@ -347,12 +378,7 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		runs[i] = run
 		// Candidates go from the least to the most smoothing; the risk
 		// has been unimodal in the bandwidth on every scene measured
-		// (DEVELOPERS.md), so the first rise ends the search -- where
-		// the tile decides alone. A global choice over several tiles
-		// sums every candidate's risk, so there every candidate runs.
-		if c.exhaustive {
-			continue
-		}
+		// (DEVELOPERS.md), so the first rise ends the search.
 		if i > 0 && run.BestR > runs[i-1].BestR {
 			break
 		}
@@ -636,7 +662,41 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 	for _, e := range smooths {
 		c.grids = append(c.grids, newGrid(cfg.PSF, H, e, ccfg.Iterations, 0))
 	}
-	if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(smooths), cfg.Choose)); err != nil {
+	if c.exhaustive {
+		c.bandDone = make([]bool, nb)
+		prev := make([]float64, nb)
+		for i := range smooths {
+			c.active = i
+			if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop: bandwidth %g on %d sample tiles", smooths[i], len(c.tiles))); err != nil {
+				return nil, err
+			}
+			all := true
+			for b := 0; b < nb; b++ {
+				if c.bandDone[b] {
+					continue
+				}
+				var keys []TileKey
+				for k := range c.runs {
+					if k.Band == b {
+						keys = append(keys, k)
+					}
+				}
+				sortKeys(keys)
+				var sum float64
+				for _, k := range keys {
+					sum += c.runs[k][i].BestR
+				}
+				if i > 0 && !(sum <= prev[b]) {
+					c.bandDone[b] = true
+				}
+				prev[b] = sum
+				all = all && c.bandDone[b]
+			}
+			if all {
+				break
+			}
+		}
+	} else if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(smooths), cfg.Choose)); err != nil {
 		return nil, err
 	}
 	tol := 0.0
