@@ -105,7 +105,7 @@ func sampleTiles(p Plan) map[[2]int]bool {
 
 // pass runs the tile loop over the whole scene with solver and discards the
 // output (the noise and choice passes).
-func (r *runner) pass(ctx context.Context, solver Solver, what string) error {
+func (r *runner) pass(ctx context.Context, solver Solver, what string, tiles map[[2]int]bool) error {
 	if r.cfg.Stage != nil {
 		r.cfg.Stage(what)
 	}
@@ -116,7 +116,8 @@ func (r *runner) pass(ctx context.Context, solver Solver, what string) error {
 	}
 	cfg := r.cfg
 	cfg.Progress = nil
-	sub := &runner{cfg: cfg, plan: r.plan, src: r.src, dst: discard{}, bands: r.bands, valid: r.valid, rep: &rep, solver: solver}
+	sub := &runner{cfg: cfg, plan: r.plan, src: r.src, dst: discard{}, bands: r.bands, valid: r.valid, rep: &rep, solver: solver,
+		need: func(col, row int) bool { return tiles == nil || tiles[[2]int{col, row}] }}
 	err := sub.run(ctx)
 	// The pass's strip buffers are garbage now; hand them back before the
 	// next pass allocates its own, so that passes do not stack up in the
@@ -175,7 +176,7 @@ func (s *noiseSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst 
 func (r *runner) estimateNoise(ctx context.Context) ([]NoiseModel, error) {
 	tiles := sampleTiles(r.plan)
 	ns := &noiseSolver{plan: r.plan, tiles: tiles, samples: map[TileKey]*NoiseSampler{}, limit: max(1, noiseSamplesPerBand/len(tiles))}
-	if err := r.pass(ctx, ns, "estimating the noise model"); err != nil {
+	if err := r.pass(ctx, ns, "estimating the noise model", tiles); err != nil {
 		return nil, err
 	}
 	out := make([]NoiseModel, len(r.bands))
@@ -673,7 +674,7 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		prev := make([]float64, nb)
 		for i := range smooths {
 			c.active = i
-			if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop: bandwidth %g on %d sample tiles", smooths[i], len(c.tiles))); err != nil {
+			if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop: bandwidth %g on %d sample tiles", smooths[i], len(c.tiles)), c.tiles); err != nil {
 				return nil, err
 			}
 			all := true
@@ -702,7 +703,7 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 				break
 			}
 		}
-	} else if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(smooths), cfg.Choose)); err != nil {
+	} else if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(smooths), cfg.Choose), c.tiles); err != nil {
 		return nil, err
 	}
 	tol := 0.0

@@ -386,6 +386,10 @@ func autoBackground(src raster.Reader, bands []int, valid []validFn) ([]float64,
 }
 
 type runner struct {
+	// need, when set, makes the run a pass: only the tiles it names are
+	// read and solved, and nothing is blended or written.
+	need func(col, row int) bool
+
 	cfg    Config
 	plan   Plan
 	src    raster.Reader
@@ -545,7 +549,23 @@ func (r *runner) run(ctx context.Context) error {
 	}()
 	total := nb * p.NTiles()
 	done := 0
+	// rowNeeded: a pass (r.need set) reads and computes only the tile rows
+	// holding a needed tile, and writes nothing.
+	rowNeeded := func(row int) bool {
+		if r.need == nil {
+			return true
+		}
+		for col := range p.Cols {
+			if r.need(col, row) {
+				return true
+			}
+		}
+		return false
+	}
 	readStrip := func(row, k int) error {
+		if !rowNeeded(row) {
+			return nil
+		}
 		in := sourceRange(p.InSpan(p.Rows, row), p.H)
 		r.stripYs[k] = in.Start
 		return r.src.ReadRows(in.Start, in.End, r.bands, r.strips[k])
@@ -567,6 +587,9 @@ func (r *runner) run(ctx context.Context) error {
 					s.key = TileKey{Band: b, Col: col, Row: row}
 					s.strip = cur
 					s.err = nil
+					if r.need != nil && !r.need(col, row) {
+						continue
+					}
 					rowWG.Add(1)
 					jobs <- s
 				}
@@ -581,6 +604,9 @@ func (r *runner) run(ctx context.Context) error {
 			}
 			if rerr != nil {
 				return rerr
+			}
+			if r.need != nil {
+				continue
 			}
 			if err := r.blendAndWrite(row, cur); err != nil {
 				return err
