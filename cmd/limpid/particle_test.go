@@ -36,6 +36,8 @@ func TestParticleBadParameters(t *testing.T) {
 		{"batches", append(p, "--iterations", "20", "--burn-in", "15", "--replicates", "1", "--batches", "6"), "--batches"},
 		{"replicates", append(p, "--particles-per-pixel", "6", "--replicates", "4"), "--replicates 4 must divide --particles-per-pixel 6"},
 		{"uncertainty with grid", []string{"--psf", "gaussian:sigma=1", "--uncertainty", unc}, "grid method has no Monte Carlo error"},
+		{"stop auto", append(p, "--stop", "auto"), "the particle method runs a fixed number of iterations"},
+		{"stop discrepancy", append(p, "--stop", "discrepancy", "--smooth", "0.3"), "the particle method runs a fixed number of iterations"},
 		{"uncertainty stdout", append(p, "--uncertainty", "-"), "--uncertainty"},
 		{"uncertainty no dir", append(p, "--uncertainty", filepath.Join(dir, "no", "u.tif")), "does not exist"},
 	}
