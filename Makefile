@@ -4,7 +4,7 @@
 # to run again.
 SHELL := /bin/bash
 GO ?= go
-APT_PKGS := libgdal-dev gdal-bin python3-gdal python3-skimage pkg-config
+APT_PKGS := libgdal-dev gdal-bin python3-gdal python3-skimage pkg-config chromium
 SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
 # The Node cross-check of the Arrow tile stream (npm apache-arrow, pinned).
 NODE_DIR := testdata/node

@@ -2,15 +2,11 @@ package main
 
 import (
 	"fmt"
-	"image"
-	"image/color"
-	"image/png"
 	"io"
 	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
-	"sort"
 
 	"github.com/urfave/cli/v2"
 
@@ -187,69 +183,27 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 		}
 	}
 	ql := filepath.Join(dir, "quicklook.png")
-	if err := quicklook(ql, obs, res, valid, n); err != nil {
+	if err := quicklook(ql, obsPath, resPath, len(obs)); err != nil {
 		return err
 	}
 	fmt.Fprintf(stdout, "wrote %s, %s, %s, %s (restored product: keep the observed original)\n", refPath, obsPath, resPath, ql)
 	return nil
 }
 
-// quicklook writes observed | restored crops (red, green, blue composite) of
-// the scene centre with one shared 2-98 percentile stretch per channel.
-func quicklook(path string, obs, res [][]float32, valid []bool, n int) error {
-	crop := min(n, 320)
-	x0, y0 := (n-crop)/2, (n-crop)/2
-	img := image.NewRGBA(image.Rect(0, 0, 2*crop+8, crop))
-	chans := []int{2, 1, 0}
-	var lo, hi [3]float64
-	for c, b := range chans {
-		var vals []float64
-		for y := y0; y < y0+crop; y++ {
-			for x := x0; x < x0+crop; x++ {
-				if valid[y*n+x] {
-					vals = append(vals, float64(obs[b][y*n+x]))
-				}
-			}
-		}
-		if len(vals) == 0 {
-			lo[c], hi[c] = 0, 1
-			continue
-		}
-		sort.Float64s(vals)
-		lo[c], hi[c] = vals[len(vals)*2/100], vals[len(vals)*98/100]
-		if hi[c] <= lo[c] {
-			hi[c] = lo[c] + 1
-		}
+// quicklook writes the demo's observed | restored quicklook (quicklook.go:
+// the same code as restore --quicklook).
+func quicklook(path, obsPath, resPath string, nBands int) error {
+	bands := make([]int, nBands)
+	for i := range bands {
+		bands[i] = i
 	}
-	for i, planes := range [][][]float32{obs, res} {
-		for y := 0; y < crop; y++ {
-			for x := 0; x < crop; x++ {
-				p := (y0+y)*n + x0 + x
-				var px [3]uint8
-				for c, b := range chans {
-					v := (float64(planes[b][p]) - lo[c]) / (hi[c] - lo[c])
-					if math.IsNaN(v) || !valid[p] {
-						v = 0
-					}
-					px[c] = uint8(255 * math.Min(1, math.Max(0, v)))
-				}
-				img.Set(i*(crop+8)+x, y, color.RGBA{px[0], px[1], px[2], 255})
-			}
-		}
-	}
-	tmp := path + ".tmp"
-	f, err := os.Create(tmp)
+	s, err := cropScene(obsPath, bands, resPath, "")
 	if err != nil {
 		return err
 	}
-	if err := png.Encode(f, img); err != nil {
-		f.Close()
-		os.Remove(tmp)
+	b, err := encodePNG(s.render())
+	if err != nil {
 		return err
 	}
-	if err := f.Close(); err != nil {
-		os.Remove(tmp)
-		return err
-	}
-	return os.Rename(tmp, path)
+	return writeFileAtomic("quicklook", path, b)
 }

@@ -81,6 +81,8 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			demoCommand(stderr, stdout),
 			tilesCommand(stdin, stdout, stderr),
 			psfCommand(stdin, stdout, stderr),
+			simulateCommand(stdin, stdout, stderr),
+			assessCommand(stdout, stderr),
 		},
 	}
 	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.

@@ -59,7 +59,7 @@ func restoreFlags() []cli.Flag {
 		&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels"},
 		&cli.StringFlag{Name: "overlap", Value: "auto", EnvVars: env("overlap"), Usage: "halo in pixels read around each tile; auto = 4 x (PSF radius + smoothing radius), rounded up to 8, at least 16, at most the tile"},
 		&cli.StringFlag{Name: "report", EnvVars: env("report"), Usage: "write a JSON report of the run to this file"},
-	}, particleFlags()...)
+	}, append(particleFlags(), viewFlags()...)...)
 }
 
 func restoreCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
@@ -102,6 +102,9 @@ type restoreJob struct {
 	reportPath string
 	// uncPath is --uncertainty (particle method): the standard-error raster.
 	uncPath string
+	// quicklookPath and htmlPath are --quicklook and --report-html
+	// (views.go).
+	quicklookPath, htmlPath string
 }
 
 func parseBands(s string, n int) ([]int, error) {
@@ -193,6 +196,9 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 		cfg.Saturated, cfg.HasSaturated = v, true
 	}
 	if err := parseParticle(c, &cfg, j); err != nil {
+		return nil, err
+	}
+	if err := parseViews(c, j); err != nil {
 		return nil, err
 	}
 	if err := cfg.Resolve(); err != nil {
@@ -459,6 +465,10 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 			os.Remove(j.uncPath)
 		}
 		return nil, err
+	}
+	// The product is finished; quicklook and HTML page are made from it.
+	if err := writeViews(j, inPath, bands, rep); err != nil {
+		return rep, err
 	}
 	return rep, nil
 }
