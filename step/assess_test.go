@@ -147,9 +147,9 @@ func TestAssessKnownAnswers(t *testing.T) {
 		t.Errorf("noise %g: RMSE %g, bias %g", s, a.RMSE, a.Bias)
 	}
 	// The noise estimate: restored (noisy) near s, observed (noiseless
-	// smooth scene) near 0. Tolerance 10 %: the MAD-based bin variances of
-	// the model fit have a few per cent of sampling error with ~1000
-	// pixels a bin, and edges leak a little structure into the residual.
+	// smooth scene) near 0. Tolerance 10 %: the MAD of a quarter of the
+	// pixels has about 2 % sampling error here, and the smooth scene leaks
+	// a little structure into the high-pass residual.
 	if math.Abs(a.NoiseRestored-s) > 0.1*s || a.NoiseObserved > 0.1*s {
 		t.Errorf("noise %g: estimated observed %g, restored %g (%s)", s, a.NoiseObserved, a.NoiseRestored, a.NoiseRule)
 	}
