@@ -20,6 +20,9 @@ type Problem struct {
 	// standard error of the result from solvers that estimate one; they set
 	// Result.HasSE. Deterministic solvers leave it untouched.
 	SE []float32
+	// Record asks the solver to keep the relative change of every
+	// iteration in Result.Changes (a few tiles per scene, for the report).
+	Record bool
 }
 
 // TileKey names a tile: 0-based band index in the output, tile column, row.
@@ -35,6 +38,9 @@ type Result struct {
 	Flat bool
 	// HasSE is true when the solver wrote Problem.SE.
 	HasSE bool
+	// Changes holds the relative change per iteration when
+	// Problem.Record was set and the solver keeps a history.
+	Changes []float64
 }
 
 // Solver restores one tile into dst (the object f, background excluded).
@@ -155,6 +161,9 @@ func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		f, ws.fn = ws.fn, f
 		res.Iterations = k + 1
 		res.Change = change
+		if p.Record {
+			res.Changes = append(res.Changes, change)
+		}
 		if g.Observe != nil {
 			g.Observe(k+1, f, change)
 		}

@@ -98,6 +98,9 @@ type TileReport struct {
 	Iterations int     `json:"iterations"`
 	Change     float64 `json:"final_relative_change"`
 	Flat       bool    `json:"flat,omitempty"`
+	// Changes is the relative change per iteration, kept for up to
+	// RecordedTiles tiles of the first band (the convergence plot).
+	Changes []float64 `json:"changes,omitempty"`
 }
 
 // BandReport records one output band.
@@ -675,7 +678,7 @@ func (r *runner) solveTile(ctx context.Context, wk *worker, s *slot) error {
 		}
 	}
 	bg := float32(r.rep.Bands[k.Band].Background)
-	prob := &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: k}
+	prob := &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: k, Record: r.recorded(k)}
 	if r.withSE {
 		wk.se = grow(wk.se, n)
 		prob.SE = wk.se
@@ -727,7 +730,7 @@ func (r *runner) blendAndWrite(row, cur int) error {
 			r.blendSE(s)
 		}
 		br := &r.rep.Bands[s.key.Band]
-		br.Tiles = append(br.Tiles, TileReport{Col: s.key.Col, Row: s.key.Row, Iterations: s.res.Iterations, Change: s.res.Change, Flat: s.res.Flat})
+		br.Tiles = append(br.Tiles, TileReport{Col: s.key.Col, Row: s.key.Row, Iterations: s.res.Iterations, Change: s.res.Change, Flat: s.res.Flat, Changes: s.res.Changes})
 	}
 	last := row == len(p.Rows)-1
 	end := p.Rows[row].End
@@ -784,4 +787,23 @@ func (r *runner) blendAndWrite(row, cur int) error {
 	}
 	r.accY = end
 	return nil
+}
+
+// RecordedTiles is how many tiles of the first band keep their per-iteration
+// change history in the report: the tiles nearest the quarter points of the
+// tile plan (all tiles of a plan with at most 4).
+const RecordedTiles = 4
+
+// recorded reports whether tile k keeps its change history.
+func (r *runner) recorded(k TileKey) bool {
+	if k.Band != 0 || r.need != nil {
+		return false
+	}
+	pick := func(i, n int) bool {
+		if n <= 2 {
+			return true
+		}
+		return i == n/4 || i == (3*n)/4
+	}
+	return pick(k.Col, len(r.plan.Cols)) && pick(k.Row, len(r.plan.Rows))
 }

@@ -303,7 +303,39 @@ func convergencePNG(rep *step.Report) ([]byte, bool, error) {
 	pt.Y.Tick.Marker = plot.LogTicks{Prec: -1}
 	pt.Legend.Top = true
 	any := false
+	// Per-iteration histories of the recorded tiles (first band), when the
+	// solver kept them.
+	if len(rep.Bands) > 0 {
+		pt.Title.Text = fmt.Sprintf("band %d: relative change per iteration (recorded tiles)", rep.Bands[0].Band)
+		pt.X.Label.Text = "iteration"
+		pt.Y.Label.Text = "relative L1 change"
+		n := 0
+		for _, t := range rep.Bands[0].Tiles {
+			var xy plotter.XYs
+			for k, c := range t.Changes {
+				if c > 0 && !math.IsInf(c, 0) {
+					xy = append(xy, plotter.XY{X: float64(k + 1), Y: c})
+				}
+			}
+			if len(xy) < 2 {
+				continue
+			}
+			if err := line(pt, xy, n, false, fmt.Sprintf("tile (%d,%d)", t.Col, t.Row)); err != nil {
+				return nil, false, err
+			}
+			n++
+			any = true
+		}
+		if !any {
+			pt.Title.Text = "tiles: iterations and final change"
+			pt.X.Label.Text = "iterations"
+			pt.Y.Label.Text = "final relative L1 change"
+		}
+	}
 	for i, b := range rep.Bands {
+		if any {
+			break
+		}
 		var xy plotter.XYs
 		for _, t := range b.Tiles {
 			if t.Change > 0 && !math.IsInf(t.Change, 0) {
