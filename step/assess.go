@@ -5,7 +5,6 @@ import (
 	"sort"
 
 	"limpid/psf"
-	"limpid/raster"
 )
 
 // Assessment of a restoration: fidelity to a reference when one exists
@@ -110,26 +109,15 @@ func Assess(obs, res, ref []float32, valid []bool, w, h int, L float64) BandAsse
 // image as less noisy. Falls back to Immerkaer (1996) when fewer than 64
 // pixels qualify ("immerkaer").
 func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
-	n := w * h
-	var mu float64
 	nv := 0
-	for i := 0; i < n; i++ {
-		if valid[i] {
-			mu += float64(p[i])
+	for _, ok := range valid[:w*h] {
+		if ok {
 			nv++
 		}
 	}
+	src, _ := meanFilled(p, valid, w*h)
 	if nv < 64 {
 		return ImmerkaerSigma(p, valid, w, h), "immerkaer"
-	}
-	mu /= float64(nv)
-	src := make([]float64, n)
-	for i := 0; i < n; i++ {
-		if valid[i] {
-			src[i] = float64(p[i])
-		} else {
-			src[i] = mu
-		}
 	}
 	g2, g4 := gaussianTaps(2), gaussianTaps(4)
 	lo, sm := blur64(src, w, h, g2), blur64(src, w, h, g4)
@@ -169,31 +157,6 @@ func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
 	c = g2[r] * g2[r]
 	gain := math.Sqrt(1 - 2*c + sq*sq)
 	return 1.4826 * median(res) / gain, "highpass"
-}
-
-// blur64 is a separable blur with half-sample symmetric borders.
-func blur64(src []float64, w, h int, g []float64) []float64 {
-	r := (len(g) - 1) / 2
-	tmp, out := make([]float64, w*h), make([]float64, w*h)
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * src[y*w+raster.Mirror(x+k, w)]
-			}
-			tmp[y*w+x] = a
-		}
-	}
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * tmp[raster.Mirror(y+k, h)*w+x]
-			}
-			out[y*w+x] = a
-		}
-	}
-	return out
 }
 
 // allValid reports whether the (2r+1)^2 window at (x, y) inside the plane

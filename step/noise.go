@@ -138,50 +138,13 @@ func (s *NoiseSampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) 
 	if limit <= 0 {
 		limit = 4 << 20
 	}
-	g := gaussianTaps(noiseSmoothSigma)
-	r := (len(g) - 1) / 2
-	sm := make([]float32, w*h)
-	tmp := make([]float32, w*h)
-	// Separable blur with half-sample symmetric borders; invalid pixels are
-	// replaced by the plane's valid mean first so they do not ring.
-	var mu float64
-	nv := 0
-	for i, v := range d[:w*h] {
-		if valid == nil || valid[i] {
-			mu += float64(v)
-			nv++
-		}
-	}
-	if nv == 0 {
+	// Invalid pixels take the plane's valid mean before the blur so they do
+	// not ring into the smoothness score.
+	src, ok := meanFilled(d, valid, w*h)
+	if !ok {
 		return
 	}
-	mu /= float64(nv)
-	src := make([]float32, w*h)
-	for i, v := range d[:w*h] {
-		if valid == nil || valid[i] {
-			src[i] = v
-		} else {
-			src[i] = float32(mu)
-		}
-	}
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * float64(src[y*w+raster.Mirror(x+k, w)])
-			}
-			tmp[y*w+x] = float32(a)
-		}
-	}
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * float64(tmp[raster.Mirror(y+k, h)*w+x])
-			}
-			sm[y*w+x] = float32(a)
-		}
-	}
+	sm := blur64(src, w, h, gaussianTaps(noiseSmoothSigma))
 	x0, y0 = max(x0, 1), max(y0, 1)
 	x1, y1 = min(x1, w-1), min(y1, h-1)
 	for y := y0; y < y1; y++ {
@@ -202,7 +165,7 @@ func (s *NoiseSampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) 
 			gy := 0.5 * (sm[(y+1)*w+x] - sm[(y-1)*w+x])
 			s.mean = append(s.mean, float32(box/9))
 			s.res = append(s.res, mask3(d, w, x, y)/6)
-			s.grad = append(s.grad, float32(math.Hypot(float64(gx), float64(gy))))
+			s.grad = append(s.grad, float32(math.Hypot(gx, gy)))
 		}
 	}
 	if len(s.mean) > 2*limit {
@@ -407,4 +370,56 @@ func median(v []float64) float64 {
 		return v[n/2]
 	}
 	return 0.5 * (v[n/2-1] + v[n/2])
+}
+
+// meanFilled returns d (n values) as float64 with invalid pixels replaced by
+// the mean of the valid ones (valid nil: all valid); false when none is
+// valid.
+func meanFilled(d []float32, valid []bool, n int) ([]float64, bool) {
+	var mu float64
+	nv := 0
+	for i, v := range d[:n] {
+		if valid == nil || valid[i] {
+			mu += float64(v)
+			nv++
+		}
+	}
+	if nv == 0 {
+		return nil, false
+	}
+	mu /= float64(nv)
+	out := make([]float64, n)
+	for i, v := range d[:n] {
+		if valid == nil || valid[i] {
+			out[i] = float64(v)
+		} else {
+			out[i] = mu
+		}
+	}
+	return out, true
+}
+
+// blur64 is a separable blur with half-sample symmetric borders.
+func blur64(src []float64, w, h int, g []float64) []float64 {
+	r := (len(g) - 1) / 2
+	tmp, out := make([]float64, w*h), make([]float64, w*h)
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var a float64
+			for k := -r; k <= r; k++ {
+				a += g[k+r] * src[y*w+raster.Mirror(x+k, w)]
+			}
+			tmp[y*w+x] = a
+		}
+	}
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			var a float64
+			for k := -r; k <= r; k++ {
+				a += g[k+r] * tmp[raster.Mirror(y+k, h)*w+x]
+			}
+			out[y*w+x] = a
+		}
+	}
+	return out
 }
