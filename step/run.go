@@ -15,7 +15,7 @@ import (
 )
 
 // Version is limpid's version, recorded in outputs and reports.
-const Version = "0.1.0"
+const Version = "0.2.0"
 
 // Defaults measured on the project's own scenes (DEVELOPERS.md, "Choosing
 // the defaults").
