@@ -269,6 +269,24 @@ func (b fb) field(t, vt, vtSize, i int) int {
 }
 
 // ref follows the uoffset stored at p.
+// header returns the offset of a Message's header table (Message.fbs:
+// the root table's field 2).
+func (b fb) header() (int, bool) {
+	root, ok := b.u32(0)
+	if !ok {
+		return 0, false
+	}
+	vt, vs, ok := b.table(root)
+	if !ok {
+		return 0, false
+	}
+	hp := b.field(root, vt, vs, 2)
+	if hp == 0 {
+		return 0, false
+	}
+	return b.ref(hp)
+}
+
 func (b fb) ref(p int) (int, bool) {
 	o, ok := b.u32(p)
 	if !ok || p+o > len(b) {
@@ -297,19 +315,7 @@ func (b fb) vector(p, elem int) (start, n int, ok bool) {
 func verifySchema(meta []byte) error {
 	bad := errors.New("the schema message is not a valid Arrow flatbuffer")
 	b := fb(meta)
-	root, ok := b.u32(0)
-	if !ok {
-		return bad
-	}
-	vt, vs, ok := b.table(root)
-	if !ok {
-		return bad
-	}
-	hp := b.field(root, vt, vs, 2)
-	if hp == 0 {
-		return bad
-	}
-	schema, ok := b.ref(hp)
+	schema, ok := b.header()
 	if !ok {
 		return bad
 	}
@@ -370,19 +376,7 @@ func verifySchema(meta []byte) error {
 func verifyBatch(meta []byte, bodyLen int64) error {
 	bad := errors.New("the record batch message is not a valid Arrow flatbuffer")
 	b := fb(meta)
-	root, ok := b.u32(0)
-	if !ok {
-		return bad
-	}
-	vt, vs, ok := b.table(root)
-	if !ok {
-		return bad
-	}
-	hp := b.field(root, vt, vs, 2)
-	if hp == 0 {
-		return bad
-	}
-	rb, ok := b.ref(hp)
+	rb, ok := b.header()
 	if !ok {
 		return bad
 	}
