@@ -115,18 +115,8 @@ func TestGaussianFixedPoint(t *testing.T) {
 	const tol = 1e-3
 	const z = 10.0
 	for _, c := range cases {
-		sa := math.Sqrt(c.sf*c.sf+c.sg*c.sg) * z
-		n := 2*int(math.Ceil(8*sa)) + 1
-		d := make([]float32, n)
-		for i := range d {
-			x := float64(i - n/2)
-			d[i] = float32(1e4 * math.Exp(-0.5*x*x/(sa*sa)))
-		}
-		hk := psf.Gaussian1D(c.sg*z, psf.GaussianRadius(c.sg*z))
-		H, err := psf.NewKernel(len(hk), 1, hk)
-		if err != nil {
-			t.Fatal(err)
-		}
+		d, H := fixedPointData(t, c.sf, c.sg, z)
+		n := len(d)
 		sk := SmoothingKernel(c.eps * z)
 		g := &GridEMS{H: NewConv(H), S: NewSeparableConv(sk, []float64{1}), Iterations: 20000, Tolerance: 1e-9}
 		f, res := solve(t, g, d, ones(n), n, 1, 0)
@@ -194,4 +184,24 @@ func TestGaussianFixedPoint2D(t *testing.T) {
 		}
 		t.Logf("2-D %dx%d: %d iterations, variances (%.6f, %.6f)", w, h, res.Iterations, vx, vy)
 	}
+}
+
+// fixedPointData is the 1-D data of the Gaussian EMS fixed-point check:
+// object N(0, sf^2) blurred by N(0, sg^2), sampled at z pixels per unit
+// over +-8 data standard deviations, and the point-sampled PSF kernel.
+func fixedPointData(t *testing.T, sf, sg, z float64) ([]float32, *psf.Kernel) {
+	t.Helper()
+	sa := math.Sqrt(sf*sf+sg*sg) * z
+	n := 2*int(math.Ceil(8*sa)) + 1
+	d := make([]float32, n)
+	for i := range d {
+		x := float64(i - n/2)
+		d[i] = float32(1e4 * math.Exp(-0.5*x*x/(sa*sa)))
+	}
+	hk := psf.Gaussian1D(sg*z, psf.GaussianRadius(sg*z))
+	H, err := psf.NewKernel(len(hk), 1, hk)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return d, H
 }

@@ -203,18 +203,8 @@ func TestParticleGaussianFixedPoint(t *testing.T) {
 	const z, discretisation = 4.0, 1e-3
 	const seeds = 6
 	for _, c := range cases {
-		sa := math.Sqrt(c.sf*c.sf+c.sg*c.sg) * z
-		n := 2*int(math.Ceil(8*sa)) + 1
-		d := make([]float32, n)
-		for i := range d {
-			x := float64(i - n/2)
-			d[i] = float32(1e4 * math.Exp(-0.5*x*x/(sa*sa)))
-		}
-		hk := psf.Gaussian1D(c.sg*z, psf.GaussianRadius(c.sg*z))
-		H, err := psf.NewKernel(len(hk), 1, hk)
-		if err != nil {
-			t.Fatal(err)
-		}
+		d, H := fixedPointData(t, c.sf, c.sg, z)
+		n := len(d)
 		var vs []float64
 		var ws Workspace
 		for s := 0; s < seeds; s++ {
