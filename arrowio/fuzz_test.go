@@ -58,6 +58,7 @@ func seedStreams(t testing.TB) [][]byte {
 
 // TestFuzzSeeds keeps the committed corpus in step with seedStreams;
 // `go test ./arrowio -run TestFuzzSeeds -update` rewrites it.
+// Source: common practice, no source (golden corpus kept in step).
 func TestFuzzSeeds(t *testing.T) {
 	dir := filepath.Join("testdata", "fuzz", "FuzzReader")
 	seeds := seedStreams(t)

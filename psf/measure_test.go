@@ -30,6 +30,7 @@ func renderEdge(w, h int, x0, thetaDeg, s float64) []float64 {
 
 // The closed form agrees with brute-force midpoint integration (a check of
 // the derivation; 200x200 sub-samples give errors ~1e-5, hence tolRender).
+// Source: the definition of the pixel integral (midpoint quadrature).
 func TestRenderEdgeMatchesQuadrature(t *testing.T) {
 	const tolRender = 1e-4
 	img := renderEdge(9, 3, 4.2, 5, 0.8)

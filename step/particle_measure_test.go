@@ -73,6 +73,7 @@ func (s measureScene) mem() *raster.Mem {
 // defaults and the README's advice (DEVELOPERS.md, "Particle EMS: cost and
 // accuracy"). It runs only with LIMPID_PARTICLE_MEASURE=1 (a few minutes on
 // one core); LIMPID_PARTICLE_OUT=FILE also writes the markdown tables.
+// Source: a measurement on scenes of our own (no outside reference).
 func TestParticleMeasure(t *testing.T) {
 	if os.Getenv("LIMPID_PARTICLE_MEASURE") == "" {
 		t.Skip("set LIMPID_PARTICLE_MEASURE=1 to run the particle measurements")

@@ -440,6 +440,7 @@ func TestMutationVariance(t *testing.T) {
 // Determinism (issue requirement; DEVELOPERS.md): random streams derive
 // from (seed, band, column, row) only, so the result of a tile does not
 // depend on which worker ran it or what the worker solved before.
+// Source: common practice, no source (determinism rule of the project).
 func TestParticleTileOrderIndependent(t *testing.T) {
 	d, n, k, sk := particleProblem(t)
 	d2 := make([]float32, len(d))
@@ -625,6 +626,8 @@ func TestParticleStartsAndPotentialsAgree(t *testing.T) {
 // The one-pass stratified and systematic resampling gives exactly the
 // offspring of Counts (whose unbiasedness TestResamplingUnbiased checks)
 // from the same random state.
+// Source: Kitagawa 1996 (stratified) and Douc, Cappe & Moulines 2005
+// (systematic): both are defined by the counts they produce.
 func TestMergeResampleMatchesCounts(t *testing.T) {
 	const n = 5000
 	var pcg rand.PCG
