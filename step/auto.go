@@ -71,6 +71,20 @@ var AutoSmooths = []float64{0, 0.3, 0.5, 0.7}
 // riskEvaluated says at which iterations the risk is computed: every one up
 // to 10, then every 2nd up to 30, then every 5th (the risk curve flattens
 // near its minimum at large k, and each evaluation costs a 2-D DCT).
+// RiskMode is where a tile's risk was estimated.
+type RiskMode string
+
+// Risk modes.
+const (
+	// RiskDCT: the DCT-domain estimate (the PSF is diagonal there).
+	RiskDCT RiskMode = "dct"
+	// RiskPrediction: the prediction-domain estimate over valid pixels
+	// (heavily masked tiles).
+	RiskPrediction RiskMode = "prediction"
+	// RiskSkipped: the candidate was not run on the tile.
+	RiskSkipped RiskMode = "skipped"
+)
+
 func riskEvaluated(k, cap int) bool {
 	return k <= 10 || (k <= 30 && k%2 == 0) || k%5 == 0 || k == cap
 }
@@ -167,8 +181,8 @@ type riskRun struct {
 	Risk  []float64
 	BestK int
 	BestR float64
-	// Mode is "dct" or "prediction".
-	Mode string
+	// Mode is the domain the risk was estimated in.
+	Mode RiskMode
 }
 
 // riskProblem is what a tile's candidates share: the probe, the noise
@@ -272,9 +286,9 @@ func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, 
 	p := rp.p
 	w, h := p.W, p.H
 	n := w * h
-	run := riskRun{Risk: make([]float64, 0, capK), BestR: math.Inf(1), Mode: "prediction"}
+	run := riskRun{Risk: make([]float64, 0, capK), BestR: math.Inf(1), Mode: RiskPrediction}
 	if rp.dctOK {
-		run.Mode = "dct"
+		run.Mode = RiskDCT
 	}
 	ws.reset(n)
 	c := float32(rp.flux / float64(rp.nValid))

@@ -12,17 +12,25 @@ import (
 	"limpid/raster"
 )
 
+// Stop is the rule that ends a tile's iterations; the zero value means
+// StopChange.
+type Stop string
+
 // Stop rules.
 const (
-	StopChange      = "change"      // relative L1 change below Tolerance, or the cap
-	StopAuto        = "auto"        // risk minimum (patience RiskPatience)
-	StopDiscrepancy = "discrepancy" // Morozov with the estimated noise
+	StopChange      Stop = "change"      // relative L1 change below Tolerance, or the cap
+	StopAuto        Stop = "auto"        // risk minimum (patience RiskPatience)
+	StopDiscrepancy Stop = "discrepancy" // Morozov with the estimated noise
 )
+
+// Choose is the scope of the automatic choice; the zero value means
+// ChooseGlobal.
+type Choose string
 
 // Choice scopes.
 const (
-	ChooseGlobal  = "global"
-	ChoosePerTile = "per-tile"
+	ChooseGlobal  Choose = "global"
+	ChoosePerTile Choose = "per-tile"
 )
 
 // Choice records how a band's smoothing and stop were chosen.
@@ -308,6 +316,9 @@ func (c *chooser) riskWeights(w, h int) *riskWeights {
 	return rw
 }
 
+// Solve runs the risk estimate on one tile: one candidate per pass
+// (exhaustive), or every candidate until the risk rises (per tile, or a
+// one-tile scene). It records the runs; the output stays zero.
 func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
 	n := p.W * p.H
 	for i := range dst[:n] {
@@ -328,48 +339,72 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 	if rp.nValid == 0 || !(rp.flux > 0) {
 		return Result{Flat: true}, nil
 	}
-	auto := c.cfg.Stop == StopAuto
-	newRuns := func() []riskRun {
-		runs := make([]riskRun, len(c.grids))
-		for i := range runs {
-			runs[i] = riskRun{Smooth: c.smooths[i], BestR: math.Inf(1), Mode: "skipped"}
-		}
-		return runs
-	}
+	var err error
 	if c.exhaustive {
-		// One candidate per pass (regularise decides which, and when a
-		// band's summed risk has risen).
-		i := c.active
-		c.mu.Lock()
-		done := c.bandDone[k.Band]
-		c.mu.Unlock()
-		if done {
-			return Result{Flat: true}, nil
-		}
-		run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.cfg.Iterations, auto, false, math.Inf(1))
-		if err != nil {
-			return Result{}, err
-		}
-		if !auto {
-			run.BestK, run.BestR = c.cfg.Iterations, run.Risk[len(run.Risk)-1]
-		}
-		run.Smooth = c.smooths[i]
-		c.mu.Lock()
-		if c.runs[k] == nil {
-			c.runs[k] = newRuns()
-		}
-		c.runs[k][i] = run
-		c.valid[k] = rp.nValid
-		c.mu.Unlock()
-		return Result{Flat: true}, nil
+		err = c.solveActive(ctx, ws, k, rp)
+	} else {
+		err = c.solveAll(ctx, ws, k, cp, rp)
 	}
-	runs := newRuns()
+	if err != nil {
+		return Result{}, err
+	}
+	return Result{Flat: true}, nil
+}
+
+// newRuns is a tile's run list before any candidate ran.
+func (c *chooser) newRuns() []riskRun {
+	runs := make([]riskRun, len(c.grids))
+	for i := range runs {
+		runs[i] = riskRun{Smooth: c.smooths[i], BestR: math.Inf(1), Mode: RiskSkipped}
+	}
+	return runs
+}
+
+// judge completes a candidate's run: with a fixed stop the candidate is
+// judged at the cap.
+func (c *chooser) judge(run *riskRun, i int) {
+	if c.cfg.Stop != StopAuto {
+		run.BestK, run.BestR = c.cfg.Iterations, run.Risk[len(run.Risk)-1]
+	}
+	run.Smooth = c.smooths[i]
+}
+
+// solveActive runs the pass's one candidate (regularise decides which, and
+// when a band's summed risk has risen).
+func (c *chooser) solveActive(ctx context.Context, ws *Workspace, k TileKey, rp *riskProblem) error {
+	i := c.active
+	c.mu.Lock()
+	done := c.bandDone[k.Band]
+	c.mu.Unlock()
+	if done {
+		return nil
+	}
+	run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.cfg.Iterations, c.cfg.Stop == StopAuto, false, math.Inf(1))
+	if err != nil {
+		return err
+	}
+	c.judge(&run, i)
+	c.mu.Lock()
+	if c.runs[k] == nil {
+		c.runs[k] = c.newRuns()
+	}
+	c.runs[k][i] = run
+	c.valid[k] = rp.nValid
+	c.mu.Unlock()
+	return nil
+}
+
+// solveAll runs the candidates from the least to the most smoothing until
+// the risk rises, keeping the best iterate of a one-tile scene.
+func (c *chooser) solveAll(ctx context.Context, ws *Workspace, k TileKey, cp *Problem, rp *riskProblem) error {
+	auto := c.cfg.Stop == StopAuto
+	runs := c.newRuns()
 	beat := math.Inf(1)
 	var kept []float32
 	for i, g := range c.grids {
 		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, beat)
 		if err != nil {
-			return Result{}, err
+			return err
 		}
 		if run.BestR < beat {
 			beat = run.BestR
@@ -377,15 +412,11 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 				kept = append(kept[:0], ws.auto.best[:cp.W*cp.H]...)
 			}
 		}
-		if !auto {
-			// Fixed stop: the candidate is judged at the cap.
-			run.BestK, run.BestR = c.cfg.Iterations, run.Risk[len(run.Risk)-1]
-		}
-		run.Smooth = c.smooths[i]
+		c.judge(&run, i)
 		runs[i] = run
-		// Candidates go from the least to the most smoothing; the risk
-		// has been unimodal in the bandwidth on every scene measured
-		// (DEVELOPERS.md), so the first rise ends the search.
+		// The risk has been unimodal in the bandwidth on every scene
+		// measured (DEVELOPERS.md, automatic regularisation), so the
+		// first rise ends the search.
 		if i > 0 && run.BestR > runs[i-1].BestR {
 			break
 		}
@@ -397,7 +428,7 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		c.kept[k.Band] = &keptTile{f: kept, w: cp.W, h: cp.H}
 	}
 	c.mu.Unlock()
-	return Result{Flat: true}, nil
+	return nil
 }
 
 // crop returns the part of the tile inside the scene. A halo mirrored at
@@ -448,7 +479,7 @@ func (c *chooser) summarise(band int) Choice {
 	// when there are any.
 	var dctKeys []TileKey
 	for _, k := range keys {
-		if c.runs[k][0].Mode == "prediction" {
+		if c.runs[k][0].Mode == RiskPrediction {
 			ch.PredictionTiles++
 		} else {
 			dctKeys = append(dctKeys, k)
@@ -598,14 +629,34 @@ func (b *bandSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst [
 }
 
 // regularise estimates the noise where needed and chooses the smoothing and
-// stop per band; it returns the solver for the final pass.
+// stop per band; it returns the solver for the final pass. Its steps: the
+// noise models (bandNoise), then either the discrepancy solvers (a fixed
+// bandwidth) or the choice passes over the sample tiles (choosePasses) and
+// the chosen solvers (chosen).
 func (r *runner) regularise(ctx context.Context) (Solver, error) {
-	cfg := &r.cfg
-	nb := len(r.bands)
-	noise := make([]NoiseModel, nb)
-	if cfg.Noise != nil {
+	noise, err := r.bandNoise(ctx)
+	if err != nil {
+		return nil, err
+	}
+	rg := &regulariser{runner: r, noise: noise, H: NewConv(r.cfg.PSF), bs: &bandSolver{byBand: make([]Solver, len(r.bands))},
+		particle: r.cfg.Method == MethodParticle, cache: map[[2]float64]Solver{}}
+	if !r.cfg.SmoothAuto && r.cfg.Stop != StopAuto {
+		return rg.discrepancy(), nil
+	}
+	c := rg.newChooser()
+	if err := rg.choosePasses(ctx, c); err != nil {
+		return nil, err
+	}
+	return rg.chosen(c), nil
+}
+
+// bandNoise is the noise model of every band: the given one, or estimated
+// from the scene; the report records it.
+func (r *runner) bandNoise(ctx context.Context) ([]NoiseModel, error) {
+	noise := make([]NoiseModel, len(r.bands))
+	if r.cfg.Noise != nil {
 		for i := range noise {
-			noise[i] = *cfg.Noise
+			noise[i] = *r.cfg.Noise
 			noise[i].Source = "given"
 		}
 	} else {
@@ -618,36 +669,57 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		m := noise[i]
 		r.rep.Bands[i].Noise = &m
 	}
-	H := NewConv(cfg.PSF)
-	bs := &bandSolver{byBand: make([]Solver, nb)}
-	usable := func(b int) bool { return noise[b].A+noise[b].B > 0 }
-	fixed := func(b int) {
-		bs.byBand[b] = newGrid(cfg.PSF, H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
-		r.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
-			Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", noise[b].Source, DefaultTolerance)}
-	}
-	if !cfg.SmoothAuto && cfg.Stop != StopAuto {
-		// Discrepancy stop with a fixed bandwidth.
-		for b := range bs.byBand {
-			if !usable(b) {
-				fixed(b)
-				continue
-			}
-			g := newGrid(cfg.PSF, H, cfg.Smooth, cfg.Iterations, 0)
-			g.Noise, g.Tau = &noise[b], DiscrepancyTau
-			bs.byBand[b] = g
-			r.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
-				Rule: fmt.Sprintf("discrepancy: per tile, the first iterate with residual <= %.2f^2 x summed noise variance (cap %d; tiles report their iterations)", DiscrepancyTau, cfg.Iterations)}
+	return noise, nil
+}
+
+// regulariser is regularise's state: the bands' noise models and the
+// solvers it builds.
+type regulariser struct {
+	*runner
+	noise    []NoiseModel
+	H        *Conv
+	bs       *bandSolver
+	particle bool
+	cache    map[[2]float64]Solver
+}
+
+func (rg *regulariser) usable(b int) bool { return rg.noise[b].A+rg.noise[b].B > 0 }
+
+// fixed gives band b the fixed fallback (no noise model).
+func (rg *regulariser) fixed(b int) {
+	cfg := &rg.cfg
+	rg.bs.byBand[b] = newGrid(cfg.PSF, rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
+	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
+		Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", rg.noise[b].Source, DefaultTolerance)}
+}
+
+// discrepancy: the discrepancy stop with a fixed bandwidth.
+func (rg *regulariser) discrepancy() Solver {
+	cfg := &rg.cfg
+	for b := range rg.bs.byBand {
+		if !rg.usable(b) {
+			rg.fixed(b)
+			continue
 		}
-		return bs, nil
+		g := newGrid(cfg.PSF, rg.H, cfg.Smooth, cfg.Iterations, 0)
+		g.Noise, g.Tau = &rg.noise[b], DiscrepancyTau
+		rg.bs.byBand[b] = g
+		rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
+			Rule: fmt.Sprintf("discrepancy: per tile, the first iterate with residual <= %.2f^2 x summed noise variance (cap %d; tiles report their iterations)", DiscrepancyTau, cfg.Iterations)}
 	}
+	return rg.bs
+}
+
+// newChooser sets up the choice over the candidate bandwidths.
+func (rg *regulariser) newChooser() *chooser {
+	cfg := &rg.cfg
+	nb := len(rg.bands)
 	smooths := []float64{cfg.Smooth}
 	if cfg.SmoothAuto {
 		smooths = AutoSmooths
 	}
-	particle := cfg.Method == "particle"
 	ccfg := cfg
-	if particle {
+	if rg.particle {
 		// The particle method's output is a Monte Carlo average whose
 		// derivative along a probe is not defined pathwise (resampling is
 		// discontinuous), so the risk is not computed on it. It
@@ -658,121 +730,152 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 		cc.Stop, cc.Iterations = StopAuto, AutoCap
 		ccfg = &cc
 	}
-	c := &chooser{cfg: ccfg, plan: r.plan, noise: noise, smooths: smooths, seed: cfg.Seed,
+	c := &chooser{cfg: ccfg, plan: rg.plan, noise: rg.noise, smooths: smooths, seed: cfg.Seed,
 		weights: map[[2]int]*riskWeights{}, noDCT: map[[2]int]bool{}, runs: map[TileKey][]riskRun{}, valid: map[TileKey]int{}}
 	if cfg.Choose != ChoosePerTile {
-		c.tiles = sampleTiles(r.plan)
+		c.tiles = sampleTiles(rg.plan)
 		c.exhaustive = len(c.tiles) > 1
 	}
-	c.keep = r.plan.NTiles() == 1 && cfg.Stop == StopAuto && !particle
+	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle
 	c.kept = make([]*keptTile, nb)
 	for _, e := range smooths {
-		c.grids = append(c.grids, newGrid(cfg.PSF, H, e, ccfg.Iterations, 0))
+		c.grids = append(c.grids, newGrid(cfg.PSF, rg.H, e, ccfg.Iterations, 0))
 	}
-	if c.exhaustive {
-		c.bandDone = make([]bool, nb)
-		prev := make([]float64, nb)
-		for i := range smooths {
-			c.active = i
-			if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop: bandwidth %g on %d sample tiles", smooths[i], len(c.tiles)), c.tiles); err != nil {
-				return nil, err
-			}
-			all := true
-			for b := 0; b < nb; b++ {
-				if c.bandDone[b] {
-					continue
-				}
-				var keys []TileKey
-				for k := range c.runs {
-					if k.Band == b {
-						keys = append(keys, k)
-					}
-				}
-				sortKeys(keys)
-				var sum float64
-				for _, k := range keys {
-					sum += c.runs[k][i].BestR
-				}
-				if i > 0 && !(sum <= prev[b]) {
-					c.bandDone[b] = true
-				}
-				prev[b] = sum
-				all = all && c.bandDone[b]
-			}
-			if all {
-				break
-			}
+	return c
+}
+
+// choosePasses runs the choice: one pass per candidate bandwidth over the
+// sample tiles, a band dropping out at the first rise of its summed risk;
+// or, per tile, one pass over the scene with every candidate.
+func (rg *regulariser) choosePasses(ctx context.Context, c *chooser) error {
+	if !c.exhaustive {
+		return rg.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(c.smooths), rg.cfg.Choose), c.tiles)
+	}
+	nb := len(rg.bands)
+	c.bandDone = make([]bool, nb)
+	prev := make([]float64, nb)
+	for i := range c.smooths {
+		c.active = i
+		if err := rg.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop: bandwidth %g on %d sample tiles", c.smooths[i], len(c.tiles)), c.tiles); err != nil {
+			return err
 		}
-	} else if err := r.pass(ctx, c, fmt.Sprintf("choosing smoothing and stop (%d candidate bandwidths, %s)", len(smooths), cfg.Choose), c.tiles); err != nil {
-		return nil, err
+		all := true
+		for b := 0; b < nb; b++ {
+			if c.bandDone[b] {
+				continue
+			}
+			sum := c.summedRisk(b, i)
+			if i > 0 && !(sum <= prev[b]) {
+				c.bandDone[b] = true
+			}
+			prev[b] = sum
+			all = all && c.bandDone[b]
+		}
+		if all {
+			break
+		}
+	}
+	return nil
+}
+
+// summedRisk is band b's best risk at candidate i summed over its tiles in
+// (row, column) order.
+func (c *chooser) summedRisk(b, i int) float64 {
+	var keys []TileKey
+	for k := range c.runs {
+		if k.Band == b {
+			keys = append(keys, k)
+		}
+	}
+	sortKeys(keys)
+	var sum float64
+	for _, k := range keys {
+		sum += c.runs[k][i].BestR
+	}
+	return sum
+}
+
+// solverFor is the (cached) final-pass solver for bandwidth eps stopped at
+// k iterations.
+func (rg *regulariser) solverFor(eps float64, k int) Solver {
+	cfg := &rg.cfg
+	key := [2]float64{eps, float64(k)}
+	if s, ok := rg.cache[key]; ok {
+		return s
+	}
+	it := k
+	if cfg.Stop != StopAuto {
+		it = cfg.Iterations
 	}
 	tol := 0.0
 	if cfg.Stop == StopChange {
 		tol = cfg.Tolerance
 	}
-	cache := map[[2]float64]Solver{}
-	solverFor := func(eps float64, k int) Solver {
-		key := [2]float64{eps, float64(k)}
-		if s, ok := cache[key]; ok {
-			return s
-		}
-		it := k
-		if cfg.Stop != StopAuto {
-			it = cfg.Iterations
-		}
-		var s Solver
-		if particle {
-			pc := *cfg
-			pc.Smooth = eps
-			s = pc.newParticleSolver()
-		} else {
-			s = newGrid(cfg.PSF, H, eps, it, tol)
-		}
-		cache[key] = s
-		return s
+	var s Solver
+	if rg.particle {
+		pc := *cfg
+		pc.Smooth = eps
+		s = pc.newParticleSolver()
+	} else {
+		s = newGrid(cfg.PSF, rg.H, eps, it, tol)
 	}
+	rg.cache[key] = s
+	return s
+}
+
+// chosen builds every band's final-pass solver from the choice and records
+// the choice in the report.
+func (rg *regulariser) chosen(c *chooser) Solver {
+	cfg := &rg.cfg
+	nb := len(rg.bands)
 	if cfg.Choose == ChoosePerTile {
-		bs.byTile = make([]map[[2]int]Solver, nb)
+		rg.bs.byTile = make([]map[[2]int]Solver, nb)
 	}
 	for b := 0; b < nb; b++ {
-		if !usable(b) {
-			fixed(b)
+		if !rg.usable(b) {
+			rg.fixed(b)
 			continue
 		}
 		ch := c.summarise(b)
-		bs.byBand[b] = solverFor(ch.Smooth, ch.Iterations)
+		rg.bs.byBand[b] = rg.solverFor(ch.Smooth, ch.Iterations)
 		if kt := c.kept[b]; kt != nil && cfg.Choose != ChoosePerTile {
 			kt.res = Result{Iterations: ch.Iterations}
-			kt.x0, kt.y0 = -r.plan.InSpan(r.plan.Cols, 0).Start, -r.plan.InSpan(r.plan.Rows, 0).Start
-			bs.byBand[b] = kt
+			kt.x0, kt.y0 = -rg.plan.InSpan(rg.plan.Cols, 0).Start, -rg.plan.InSpan(rg.plan.Rows, 0).Start
+			rg.bs.byBand[b] = kt
 		}
 		if cfg.Choose == ChoosePerTile {
-			m := c.tileMap(b, ch)
-			bs.byTile[b] = map[[2]int]Solver{}
-			var ks []weighted
-			var es []float64
-			for row := range r.plan.Rows {
-				for col := range r.plan.Cols {
-					tc := m[[2]int{col, row}]
-					ch.TileChoices = append(ch.TileChoices, tc)
-					bs.byTile[b][[2]int{col, row}] = solverFor(tc.Smooth, tc.Iterations)
-					ks = append(ks, weighted{float64(tc.Iterations), 1})
-					es = append(es, tc.Smooth)
-				}
-			}
-			ch.Smooth, ch.Iterations = lowMedian(es), int(weightedMedian(ks))
-			ch.Rule += ", per tile, 3x3 median-smoothed map"
+			rg.perTile(c, b, &ch)
 		}
 		if cfg.Stop != StopAuto {
 			ch.Iterations = cfg.Iterations
 		}
-		if particle {
+		if rg.particle {
 			ch.Rule = "bandwidth by the grid EMS risk estimate (" + ch.Rule + "); the particle method runs --iterations"
 		}
 		chc := ch
-		r.rep.Bands[b].Choice = &chc
+		rg.rep.Bands[b].Choice = &chc
 	}
-	return bs, nil
+	return rg.bs
+}
+
+// perTile gives every tile of band b its own solver from the smoothed
+// choice map; the band's recorded choice becomes the map's medians.
+func (rg *regulariser) perTile(c *chooser, b int, ch *Choice) {
+	m := c.tileMap(b, *ch)
+	rg.bs.byTile[b] = map[[2]int]Solver{}
+	var ks []weighted
+	var es []float64
+	for row := range rg.plan.Rows {
+		for col := range rg.plan.Cols {
+			tc := m[[2]int{col, row}]
+			ch.TileChoices = append(ch.TileChoices, tc)
+			rg.bs.byTile[b][[2]int{col, row}] = rg.solverFor(tc.Smooth, tc.Iterations)
+			ks = append(ks, weighted{float64(tc.Iterations), 1})
+			es = append(es, tc.Smooth)
+		}
+	}
+	ch.Smooth, ch.Iterations = lowMedian(es), int(weightedMedian(ks))
+	ch.Rule += ", per tile, 3x3 median-smoothed map"
 }
 
 // keptTile is a single-tile band's chosen iterate, computed on the scene

@@ -673,159 +673,215 @@ func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst
 // stream (Seed, stream): its window mean goes to dst, its batch-means
 // standard error to se when non-nil.
 func (pe *ParticleEMS) run(ctx context.Context, ws *Workspace, p *Problem, nValid int, flux float64, K int, stream uint64, dst, se []float32) (Result, error) {
-	w, h := p.W, p.H
-	n := w * h
-	pw := ws.pw
-	np := K * nValid
-	pw.reset(np, n)
-	pw.rng.Seed(pe.Seed, stream)
-	np = pe.startCloud(pw, ws, p, K)
-	pw.x, pw.y, pw.w = pw.x[:np], pw.y[:np], pw.w[:np]
-
-	tm := pe.Timing
-	var t0 time.Time
-	lap := func(d *time.Duration) {
-		if tm != nil {
-			t1 := time.Now()
-			*d += t1.Sub(t0)
-			t0 = t1
-		}
-	}
-	if tm != nil {
-		t0 = time.Now()
-	}
-	its, B := pe.Iterations, pe.BurnIn
-	T := its - B
-	nb := max(pe.Batches, 1)
-	batch, batchEnd, batchLen := 0, T/nb, T/nb
-	mass, wsum := flux, float64(np)
-	fN := float64(np)
-	bg := p.Background
+	pr := pe.newRun(ws, p, nValid, flux, K, stream)
 	var res Result
-	var change float64
-	window := 0
-	accumulate := func(est []float32) {
-		// Change between consecutive estimates (relative L1).
-		var num, den float64
-		for i, v := range est {
-			num += math.Abs(float64(v - pw.prev[i]))
-			den += math.Abs(float64(pw.prev[i]))
-			pw.sum[i] += float64(v)
-			pw.bsum[i] += float64(v)
-		}
-		if window > 0 && den > 0 {
-			change = num / den
-		}
-		copy(pw.prev, est)
-		window++
-		if window == batchEnd {
-			// Welford's update with the batch mean (Welford, Technometrics
-			// 4:419, 1962).
-			batch++
-			inv := 1 / float64(batchLen)
-			for i, s := range pw.bsum {
-				m := s * inv
-				d := m - pw.bmean[i]
-				pw.bmean[i] += d / float64(batch)
-				pw.m2[i] += d * (m - pw.bmean[i])
-				pw.bsum[i] = 0
-			}
-			if batch < nb {
-				next := (batch + 1) * T / nb
-				batchLen = next - batchEnd
-				batchEnd = next
-			}
-		}
-	}
-	for k := 0; k < its; k++ {
+	for k := 0; k < pe.Iterations; k++ {
 		if err := ctx.Err(); err != nil {
 			return res, err
 		}
-		splatCells(pw.fhat, pw.x, pw.y, pw.w, w, float32(mass/wsum))
-		lap(&tm0(tm).Splat)
-		if pe.RawEstimate && k > B {
-			accumulate(pw.fhat)
-			lap(&tm0(tm).Estimate)
+		if err := pr.iterate(k); err != nil {
+			return res, err
 		}
-		pe.H.Apply(&ws.conv, ws.p, pw.fhat, w, h)
-		q := ws.q[:n]
-		dataRatio(q, ws.p[:n], p.D[:n], p.Mask[:n], bg)
-		alpha := float32(fN / wsum)
-		var sum, sq float64
-		if pe.Potential == PotentialExact {
-			pe.H.Adjoint(&ws.conv, ws.t, q, w, h)
-			c, t, s := pw.c[:n], ws.t[:n], ws.s[:n]
-			for i := range c {
-				if s[i] > sensitivityFloor {
-					c[i] = t[i] / s[i]
-				} else {
-					c[i] = 1
-				}
-			}
-			lap(&tm0(tm).Convolution)
-			sum, sq = reweightExact(pw.x, pw.y, pw.w, pw.c, w, alpha)
-		} else {
-			lap(&tm0(tm).Convolution)
-			sum, sq = pe.reweightSampled(pw, q, ws.s, w, h, alpha)
-		}
-		lap(&tm0(tm).Reweight)
-		if !(sum > 0) {
-			return res, fmt.Errorf("particle EMS: all weights vanished at iteration %d", k+1)
-		}
-		mass *= sum / fN
-		wsum = sum
-		if !pe.RawEstimate && k >= B {
-			// The density after reweighting: f_hat * c exactly (cells), or
-			// the splat of the reweighted cloud for the sampled potential.
-			e := ws.fn[:n]
-			if pe.Potential == PotentialExact {
-				for i, v := range pw.fhat[:n] {
-					e[i] = v * pw.c[i]
-				}
-			} else {
-				splatCells(e, pw.x, pw.y, pw.w, w, float32(mass/wsum))
-			}
-			if pe.s != nil {
-				pe.s.Apply(&ws.conv, pw.est, e, w, h)
-				accumulate(pw.est)
-			} else {
-				accumulate(e)
-			}
-			lap(&tm0(tm).Estimate)
-		}
-		if sum*sum < pe.ESSThreshold*fN*sq {
-			pe.resample(pw, sum)
-			wsum = fN
-			if tm != nil {
-				tm.Resamplings++
-			}
-			lap(&tm0(tm).Resample)
-		}
-		pe.mutate(pw, w, h)
-		lap(&tm0(tm).Mutate)
 		res.Iterations = k + 1
 	}
+	pr.finish(dst, se)
+	res.Change = pr.change
+	return res, nil
+}
+
+// particleRun is one particle system's state between iterations.
+type particleRun struct {
+	pe         *ParticleEMS
+	ws         *Workspace
+	pw         *particleWork
+	p          *Problem
+	w, h, n    int
+	np         int
+	mass, wsum float64
+	fN         float64
+	clock      lapClock
+	// The averaging window (after burn-in) and its batches.
+	T, nb                     int
+	batch, batchEnd, batchLen int
+	window                    int
+	change                    float64
+}
+
+// lapClock adds the time since its last lap to a ParticleTiming field
+// (nothing without a timing record).
+type lapClock struct {
+	tm *ParticleTiming
+	t0 time.Time
+}
+
+func (c *lapClock) lap(d *time.Duration) {
+	if c.tm != nil {
+		t1 := time.Now()
+		*d += t1.Sub(c.t0)
+		c.t0 = t1
+	}
+}
+
+// newRun draws the starting cloud.
+func (pe *ParticleEMS) newRun(ws *Workspace, p *Problem, nValid int, flux float64, K int, stream uint64) *particleRun {
+	pr := &particleRun{pe: pe, ws: ws, pw: ws.pw, p: p, w: p.W, h: p.H, n: p.W * p.H, clock: lapClock{tm: pe.Timing}}
+	pw := pr.pw
+	np := K * nValid
+	pw.reset(np, pr.n)
+	pw.rng.Seed(pe.Seed, stream)
+	np = pe.startCloud(pw, ws, p, K)
+	pw.x, pw.y, pw.w = pw.x[:np], pw.y[:np], pw.w[:np]
+	pr.np = np
+	if pr.clock.tm != nil {
+		pr.clock.t0 = time.Now()
+	}
+	pr.T = pe.Iterations - pe.BurnIn
+	pr.nb = max(pe.Batches, 1)
+	pr.batchEnd, pr.batchLen = pr.T/pr.nb, pr.T/pr.nb
+	pr.mass, pr.wsum = flux, float64(np)
+	pr.fN = float64(np)
+	return pr
+}
+
+// accumulate adds an estimate to the window mean and the batch means.
+func (pr *particleRun) accumulate(est []float32) {
+	pw := pr.pw
+	// Change between consecutive estimates (relative L1).
+	var num, den float64
+	for i, v := range est {
+		num += math.Abs(float64(v - pw.prev[i]))
+		den += math.Abs(float64(pw.prev[i]))
+		pw.sum[i] += float64(v)
+		pw.bsum[i] += float64(v)
+	}
+	if pr.window > 0 && den > 0 {
+		pr.change = num / den
+	}
+	copy(pw.prev, est)
+	pr.window++
+	if pr.window == pr.batchEnd {
+		// Welford's update with the batch mean (Welford, Technometrics
+		// 4:419, 1962).
+		pr.batch++
+		inv := 1 / float64(pr.batchLen)
+		for i, s := range pw.bsum {
+			m := s * inv
+			d := m - pw.bmean[i]
+			pw.bmean[i] += d / float64(pr.batch)
+			pw.m2[i] += d * (m - pw.bmean[i])
+			pw.bsum[i] = 0
+		}
+		if pr.batch < pr.nb {
+			next := (pr.batch + 1) * pr.T / pr.nb
+			pr.batchLen = next - pr.batchEnd
+			pr.batchEnd = next
+		}
+	}
+}
+
+// iterate is iteration k: splat, reweight by the potential, estimate (after
+// burn-in), resample when the effective sample size is low, mutate.
+func (pr *particleRun) iterate(k int) error {
+	pe, pw, ws, tm := pr.pe, pr.pw, pr.ws, pr.clock.tm
+	w, h, n := pr.w, pr.h, pr.n
+	splatCells(pw.fhat, pw.x, pw.y, pw.w, w, float32(pr.mass/pr.wsum))
+	pr.clock.lap(&tm0(tm).Splat)
+	if pe.RawEstimate && k > pe.BurnIn {
+		pr.accumulate(pw.fhat)
+		pr.clock.lap(&tm0(tm).Estimate)
+	}
+	pe.H.Apply(&ws.conv, ws.p, pw.fhat, w, h)
+	q := ws.q[:n]
+	dataRatio(q, ws.p[:n], pr.p.D[:n], pr.p.Mask[:n], pr.p.Background)
+	sum, sq := pr.reweight(q)
+	pr.clock.lap(&tm0(tm).Reweight)
+	if !(sum > 0) {
+		return fmt.Errorf("particle EMS: all weights vanished at iteration %d", k+1)
+	}
+	pr.mass *= sum / pr.fN
+	pr.wsum = sum
+	if !pe.RawEstimate && k >= pe.BurnIn {
+		pr.estimate()
+		pr.clock.lap(&tm0(tm).Estimate)
+	}
+	if sum*sum < pe.ESSThreshold*pr.fN*sq {
+		pe.resample(pw, sum)
+		pr.wsum = pr.fN
+		if tm != nil {
+			tm.Resamplings++
+		}
+		pr.clock.lap(&tm0(tm).Resample)
+	}
+	pe.mutate(pw, w, h)
+	pr.clock.lap(&tm0(tm).Mutate)
+	return nil
+}
+
+// reweight multiplies the particle weights by the potential G given the
+// data ratio q and returns the sum and the sum of squares of the weights.
+func (pr *particleRun) reweight(q []float32) (sum, sq float64) {
+	pe, pw, ws := pr.pe, pr.pw, pr.ws
+	alpha := float32(pr.fN / pr.wsum)
+	if pe.Potential != PotentialExact {
+		pr.clock.lap(&tm0(pr.clock.tm).Convolution)
+		return pe.reweightSampled(pw, q, ws.s, pr.w, pr.h, alpha)
+	}
+	pe.H.Adjoint(&ws.conv, ws.t, q, pr.w, pr.h)
+	c, t, s := pw.c[:pr.n], ws.t[:pr.n], ws.s[:pr.n]
+	for i := range c {
+		if s[i] > sensitivityFloor {
+			c[i] = t[i] / s[i]
+		} else {
+			c[i] = 1
+		}
+	}
+	pr.clock.lap(&tm0(pr.clock.tm).Convolution)
+	return reweightExact(pw.x, pw.y, pw.w, pw.c, pr.w, alpha)
+}
+
+// estimate accumulates the density after reweighting: f_hat * c exactly
+// (cells), or the splat of the reweighted cloud for the sampled potential,
+// smoothed by S.
+func (pr *particleRun) estimate() {
+	pe, pw, ws := pr.pe, pr.pw, pr.ws
+	e := ws.fn[:pr.n]
+	if pe.Potential == PotentialExact {
+		for i, v := range pw.fhat[:pr.n] {
+			e[i] = v * pw.c[i]
+		}
+	} else {
+		splatCells(e, pw.x, pw.y, pw.w, pr.w, float32(pr.mass/pr.wsum))
+	}
+	if pe.s != nil {
+		pe.s.Apply(&ws.conv, pw.est, e, pr.w, pr.h)
+		pr.accumulate(pw.est)
+	} else {
+		pr.accumulate(e)
+	}
+}
+
+// finish writes the window mean to dst and, when se is non-nil, the
+// batch-means standard error of the window mean: sqrt(var(batch means) /
+// nb) (e.g. Flegal & Jones, Ann. Statist. 38:1034, 2010).
+func (pr *particleRun) finish(dst, se []float32) {
+	pe, pw := pr.pe, pr.pw
 	if pe.RawEstimate {
-		splatCells(pw.fhat, pw.x, pw.y, pw.w, w, float32(mass/wsum))
-		accumulate(pw.fhat)
+		splatCells(pw.fhat, pw.x, pw.y, pw.w, pr.w, float32(pr.mass/pr.wsum))
+		pr.accumulate(pw.fhat)
 	}
-	if tm != nil {
-		tm.ParticleIterations += int64(np) * int64(its)
+	if tm := pr.clock.tm; tm != nil {
+		tm.ParticleIterations += int64(pr.np) * int64(pe.Iterations)
 	}
-	res.Change = change
-	invT := 1 / float64(window)
+	invT := 1 / float64(pr.window)
 	for i, s := range pw.sum {
 		dst[i] = float32(s * invT)
 	}
 	if se != nil {
-		// Batch-means standard error of the window mean: sqrt(var(batch
-		// means) / nb) (e.g. Flegal & Jones, Ann. Statist. 38:1034, 2010).
-		inv := 1 / float64((nb-1)*nb)
+		inv := 1 / float64((pr.nb-1)*pr.nb)
 		for i, v := range pw.m2 {
 			se[i] = float32(math.Sqrt(v * inv))
 		}
 	}
-	return res, nil
 }
 
 // tm0 lets lap take the address of a field of a possibly nil timing record.

@@ -11,9 +11,9 @@ const (
 	DefaultPerPixel     = 16
 	DefaultESSThreshold = 0.5 // common practice, no source (GUIDE section 2)
 	DefaultBatches      = 10
-	DefaultResampling   = "stratified"
-	DefaultPotential    = "exact"
-	DefaultStart        = "flat"
+	DefaultResampling   = Stratified
+	DefaultPotential    = PotentialExact
+	DefaultStart        = StartFlat
 	// maxParticlesPerTile bounds one tile's cloud (resampling counts are
 	// uint32; about 24 bytes per particle).
 	maxParticlesPerTile = 1 << 31
@@ -25,18 +25,17 @@ const (
 type ParticleConfig struct {
 	// PerPixel is K, particles per valid pixel (>= 1).
 	PerPixel int
-	// Potential is "exact" or "sampled" ("" = DefaultPotential).
-	Potential string
-	// Resampling is "stratified", "systematic", "residual" or "multinomial"
-	// ("" = DefaultResampling).
-	Resampling string
+	// Potential is how the potential is evaluated (zero: PotentialExact).
+	Potential Potential
+	// Resampling is the resampling scheme (zero: Stratified).
+	Resampling Resampling
 	// ESSThreshold in [0, 1]: resample when ESS < ESSThreshold x N.
 	ESSThreshold float64
 	// BurnIn iterations are discarded before averaging; < 0 means half the
 	// iterations.
 	BurnIn int
-	// Start is "flat" or "observed" ("" = DefaultStart).
-	Start string
+	// Start is the initial cloud (zero: StartFlat).
+	Start Start
 	// Batches for the batch-means standard error (0 = DefaultBatches),
 	// used when Replicates resolves to 1.
 	Batches int
@@ -65,20 +64,11 @@ func DefaultParticle() ParticleConfig {
 }
 
 // resolveParticle fills defaults and validates the particle parameters
-// against the iteration count; errors wrap ErrConfig and name the flag.
+// against the iteration count; errors are FieldErrors.
 func (cfg *Config) resolveParticle() error {
 	pc := &cfg.Particle
 	if *pc == (ParticleConfig{}) {
 		*pc = DefaultParticle()
-	}
-	if pc.Potential == "" {
-		pc.Potential = DefaultPotential
-	}
-	if pc.Resampling == "" {
-		pc.Resampling = DefaultResampling
-	}
-	if pc.Start == "" {
-		pc.Start = DefaultStart
 	}
 	if pc.Batches == 0 {
 		pc.Batches = DefaultBatches
@@ -90,32 +80,32 @@ func (cfg *Config) resolveParticle() error {
 		pc.Replicates = AutoReplicates(pc.PerPixel)
 	}
 	if pc.PerPixel <= 0 || pc.PerPixel > 65536 {
-		return fmt.Errorf("%w: --particles-per-pixel %d must be between 1 and 65536", ErrConfig, pc.PerPixel)
+		return fieldErrorf("Particle.PerPixel", "{Particle.PerPixel} %d must be between 1 and 65536", pc.PerPixel)
 	}
-	if _, err := ParsePotential(pc.Potential); err != nil {
-		return fmt.Errorf("%w: --potential %v", ErrConfig, err)
+	if pc.Potential != PotentialExact && pc.Potential != PotentialSampled {
+		return fieldErrorf("Particle.Potential", "{Particle.Potential} %d is not a Potential", pc.Potential)
 	}
-	if _, err := ParseResampling(pc.Resampling); err != nil {
-		return fmt.Errorf("%w: --resampling %v", ErrConfig, err)
+	if pc.Resampling < 0 || int(pc.Resampling) >= len(resamplingNames) {
+		return fieldErrorf("Particle.Resampling", "{Particle.Resampling} %d is not a Resampling", pc.Resampling)
 	}
-	if _, err := ParseStart(pc.Start); err != nil {
-		return fmt.Errorf("%w: --start %v", ErrConfig, err)
+	if pc.Start != StartFlat && pc.Start != StartObserved {
+		return fieldErrorf("Particle.Start", "{Particle.Start} %d is not a Start", pc.Start)
 	}
 	if math.IsNaN(pc.ESSThreshold) || pc.ESSThreshold < 0 || pc.ESSThreshold > 1 {
-		return fmt.Errorf("%w: --ess-threshold %g must be between 0 and 1", ErrConfig, pc.ESSThreshold)
+		return fieldErrorf("Particle.ESSThreshold", "{Particle.ESSThreshold} %g must be between 0 and 1", pc.ESSThreshold)
 	}
 	if pc.BurnIn >= cfg.Iterations {
-		return fmt.Errorf("%w: --burn-in %d must be less than --iterations %d (the estimate averages the iterations after the burn-in)", ErrConfig, pc.BurnIn, cfg.Iterations)
+		return fieldErrorf("Particle.BurnIn", "{Particle.BurnIn} %d must be less than {Iterations} %d (the estimate averages the iterations after the burn-in)", pc.BurnIn, cfg.Iterations)
 	}
 	if pc.Replicates < 1 || pc.Replicates > pc.PerPixel || pc.PerPixel%pc.Replicates != 0 {
-		return fmt.Errorf("%w: --replicates %d must divide --particles-per-pixel %d (each replicate cloud gets K/G particles per pixel)", ErrConfig, pc.Replicates, pc.PerPixel)
+		return fieldErrorf("Particle.Replicates", "{Particle.Replicates} %d must divide {Particle.PerPixel} %d (each replicate cloud gets K/G particles per pixel)", pc.Replicates, pc.PerPixel)
 	}
 	if pc.Replicates == 1 && (pc.Batches < 2 || pc.Batches > cfg.Iterations-pc.BurnIn) {
-		return fmt.Errorf("%w: --batches %d must be between 2 and iterations - burn-in (%d)", ErrConfig, pc.Batches, cfg.Iterations-pc.BurnIn)
+		return fieldErrorf("Particle.Batches", "{Particle.Batches} %d must be between 2 and iterations - burn-in (%d)", pc.Batches, cfg.Iterations-pc.BurnIn)
 	}
 	side := int64(cfg.Tile) + 3*int64(max(cfg.Overlap, 0)) // core (a last one may be longer by 2 blend = overlap) plus halo
 	if int64(pc.PerPixel)*side*side >= maxParticlesPerTile {
-		return fmt.Errorf("%w: --particles-per-pixel %d x tile %d (with halo) is more than 2^31 particles per tile: lower either", ErrConfig, pc.PerPixel, cfg.Tile)
+		return fieldErrorf("Particle.PerPixel", "{Particle.PerPixel} %d x tile %d (with halo) is more than 2^31 particles per tile: lower either", pc.PerPixel, cfg.Tile)
 	}
 	return nil
 }
@@ -123,13 +113,10 @@ func (cfg *Config) resolveParticle() error {
 // newParticleSolver builds the ParticleEMS cfg describes (after Resolve).
 func (cfg *Config) newParticleSolver() *ParticleEMS {
 	pc := cfg.Particle
-	pot, _ := ParsePotential(pc.Potential)
-	rs, _ := ParseResampling(pc.Resampling)
-	st, _ := ParseStart(pc.Start)
 	k := SmoothingKernel(cfg.Smooth)
 	return &ParticleEMS{H: NewConv(cfg.PSF), PSF: cfg.PSF, SmoothX: k, SmoothY: k, Iterations: cfg.Iterations,
-		PerPixel: pc.PerPixel, Potential: pot, Resampling: rs, ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn,
-		Start: st, Batches: pc.Batches, Replicates: pc.Replicates, Seed: cfg.Seed}
+		PerPixel: pc.PerPixel, Potential: pc.Potential, Resampling: pc.Resampling, ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn,
+		Start: pc.Start, Batches: pc.Batches, Replicates: pc.Replicates, Seed: cfg.Seed}
 }
 
 // ParticleReport records the particle method's parameters and, per band,

@@ -7,6 +7,7 @@ import (
 	"math"
 	"runtime"
 	"sort"
+	"strings"
 	"sync"
 	"time"
 
@@ -16,6 +17,17 @@ import (
 
 // Version is limpid's version, recorded in outputs and reports.
 const Version = "0.2.0"
+
+// Method is the solver of a restoration.
+type Method string
+
+// Methods.
+const (
+	// MethodGrid is GridEMS, EMS on the pixel grid.
+	MethodGrid Method = "grid"
+	// MethodParticle is ParticleEMS, its particle approximation.
+	MethodParticle Method = "particle"
+)
 
 // Defaults measured on the project's own scenes (DEVELOPERS.md, "Choosing
 // the defaults").
@@ -32,7 +44,7 @@ const (
 // Config is one restoration job. Zero values mean the documented default
 // only where a field says so.
 type Config struct {
-	Method  string // "grid" or "particle"
+	Method  Method // zero: MethodGrid
 	PSF     *psf.Kernel
 	PSFSpec string
 	// Smooth is the EMS smoothing bandwidth in pixels (0 = Richardson-Lucy).
@@ -55,11 +67,11 @@ type Config struct {
 	// SmoothAuto chooses the bandwidth per band among AutoSmooths by the
 	// risk estimate (then Smooth is only the fallback).
 	SmoothAuto bool
-	// Stop is StopChange (default), StopAuto or StopDiscrepancy;
+	// Stop is StopChange (the zero value), StopAuto or StopDiscrepancy;
 	// Iterations is the cap for all three.
-	Stop string
-	// Choose is ChooseGlobal (default) or ChoosePerTile.
-	Choose string
+	Stop Stop
+	// Choose is ChooseGlobal (the zero value) or ChoosePerTile.
+	Choose Choose
 	// Noise, when set, replaces the estimated per-band noise model.
 	Noise *NoiseModel
 	// Progress, when set, is called after each strip with tiles done/total.
@@ -130,8 +142,8 @@ type Report struct {
 	ConvPath    string       `json:"convolution"`
 	Smooth      float64      `json:"smooth"`
 	SmoothRule  string       `json:"smooth_rule"`
-	Stop        string       `json:"stop"`
-	Choose      string       `json:"choose,omitempty"`
+	Stop        Stop         `json:"stop"`
+	Choose      Choose       `json:"choose,omitempty"`
 	Iterations  int          `json:"iterations"`
 	Tolerance   float64      `json:"tolerance"`
 	Tile        int          `json:"tile"`
@@ -163,57 +175,127 @@ func (e *TileError) Unwrap() error { return e.Err }
 // ErrConfig is wrapped by configuration errors (exit code 2).
 var ErrConfig = errors.New("bad parameter")
 
+// FieldError is a configuration error about fields of Config. It wraps
+// ErrConfig. Its Text names fields in braces as Go selectors from Config
+// ("{Iterations}", "{Particle.BurnIn}"); Error prints them bare, and a front
+// end that shows them under other names (command-line flags) uses Format.
+type FieldError struct {
+	Field string // the field at fault
+	Text  string // the message, field names in braces
+}
+
+func fieldErrorf(field, format string, a ...any) error {
+	return &FieldError{Field: field, Text: fmt.Sprintf(format, a...)}
+}
+
+func (e *FieldError) Error() string { return e.Format(func(f string) string { return f }) }
+
+func (e *FieldError) Unwrap() error { return ErrConfig }
+
+// Format is the message with every braced field name replaced by name(field).
+func (e *FieldError) Format(name func(field string) string) string {
+	var b strings.Builder
+	b.WriteString(ErrConfig.Error() + ": ")
+	t := e.Text
+	for {
+		i := strings.IndexByte(t, '{')
+		j := strings.IndexByte(t[max(i, 0):], '}')
+		if i < 0 || j < 0 {
+			b.WriteString(t)
+			return b.String()
+		}
+		b.WriteString(t[:i])
+		b.WriteString(name(t[i+1 : i+j]))
+		t = t[i+j+1:]
+	}
+}
+
+// DefaultStop is the stop rule a method gets when the caller asks for none
+// (a command line without a stop flag): the risk minimum for the grid
+// method; the change rule for the particle method, which runs a fixed
+// number of iterations (its Monte Carlo average has no pathwise derivative
+// for the risk estimate). Config's zero Stop is StopChange.
+func DefaultStop(m Method) Stop {
+	if m == MethodParticle {
+		return StopChange
+	}
+	return StopAuto
+}
+
+// IterationCap is the iteration cap a stop rule gets when Config.Iterations
+// is 0: AutoCap for the risk and discrepancy stops (they end a tile
+// themselves), DefaultIterations for the change rule.
+func IterationCap(s Stop) int {
+	if s == StopAuto || s == StopDiscrepancy {
+		return AutoCap
+	}
+	return DefaultIterations
+}
+
+// GivenNoiseFloor is the variance floor of a given noise model var = A DN +
+// B when Config.Noise has none: 1 % of B, at least 1e-6 (common practice,
+// no source: it only keeps the weights finite on dark pixels).
+func GivenNoiseFloor(b float64) float64 { return math.Max(1e-6, 0.01*b) }
+
 // Resolve fills defaults and validates cfg against the scene.
 func (cfg *Config) Resolve() error {
 	if cfg.PSF == nil {
 		return fmt.Errorf("%w: no PSF", ErrConfig)
 	}
 	if cfg.Method == "" {
-		cfg.Method = "grid"
+		cfg.Method = MethodGrid
 	}
-	if cfg.Method != "grid" && cfg.Method != "particle" {
-		return fmt.Errorf("%w: --method %q: use grid or particle", ErrConfig, cfg.Method)
-	}
-	if cfg.Iterations < 1 || cfg.Iterations > 100000 {
-		return fmt.Errorf("%w: --iterations %d must be between 1 and 100000", ErrConfig, cfg.Iterations)
-	}
-	if math.IsNaN(cfg.Smooth) || cfg.Smooth < 0 || cfg.Smooth > 10 {
-		return fmt.Errorf("%w: --smooth %g must be between 0 and 10 pixels", ErrConfig, cfg.Smooth)
+	if cfg.Method != MethodGrid && cfg.Method != MethodParticle {
+		return fieldErrorf("Method", "{Method} %q: use grid or particle", cfg.Method)
 	}
 	switch cfg.Stop {
 	case "":
 		cfg.Stop = StopChange
 	case StopChange, StopAuto, StopDiscrepancy:
 	default:
-		return fmt.Errorf("%w: --stop %q: use change, auto or discrepancy", ErrConfig, cfg.Stop)
+		return fieldErrorf("Stop", "{Stop} %q: use change, auto or discrepancy", cfg.Stop)
+	}
+	if cfg.Iterations == 0 {
+		cfg.Iterations = IterationCap(cfg.Stop)
+	}
+	if cfg.Iterations < 1 || cfg.Iterations > 100000 {
+		return fieldErrorf("Iterations", "{Iterations} %d must be between 1 and 100000", cfg.Iterations)
+	}
+	if math.IsNaN(cfg.Smooth) || cfg.Smooth < 0 || cfg.Smooth > 10 {
+		return fieldErrorf("Smooth", "{Smooth} %g must be between 0 and 10 pixels", cfg.Smooth)
 	}
 	switch cfg.Choose {
 	case "":
 		cfg.Choose = ChooseGlobal
 	case ChooseGlobal, ChoosePerTile:
 	default:
-		return fmt.Errorf("%w: --choose %q: use global or per-tile", ErrConfig, cfg.Choose)
+		return fieldErrorf("Choose", "{Choose} %q: use global or per-tile", cfg.Choose)
 	}
 	if cfg.SmoothAuto && cfg.Stop == StopDiscrepancy {
-		return fmt.Errorf("%w: --stop discrepancy needs a fixed --smooth (the risk estimate chooses both with --stop auto)", ErrConfig)
+		return fieldErrorf("Stop", "{Stop} discrepancy needs a fixed {Smooth} (the risk estimate chooses both with {Stop} auto)")
 	}
 	if n := cfg.Noise; n != nil && (!(n.A >= 0) || !(n.B >= 0) || math.IsInf(n.A, 0) || math.IsInf(n.B, 0) || n.A+n.B == 0) {
-		return fmt.Errorf("%w: --noise a=%g,b=%g: both must be finite, >= 0 and not both 0", ErrConfig, n.A, n.B)
+		return fieldErrorf("Noise", "{Noise} a=%g,b=%g: both must be finite, >= 0 and not both 0", n.A, n.B)
+	}
+	if n := cfg.Noise; n != nil && n.Floor == 0 {
+		m := *n
+		m.Floor = GivenNoiseFloor(m.B)
+		cfg.Noise = &m
 	}
 	if math.IsNaN(cfg.Tolerance) || cfg.Tolerance < 0 {
-		return fmt.Errorf("%w: --tolerance %g must be >= 0", ErrConfig, cfg.Tolerance)
+		return fieldErrorf("Tolerance", "{Tolerance} %g must be >= 0", cfg.Tolerance)
 	}
 	if math.IsNaN(cfg.Background) || math.IsInf(cfg.Background, 0) {
-		return fmt.Errorf("%w: --background must be a finite number or auto", ErrConfig)
+		return fieldErrorf("Background", "{Background} must be a finite number or auto")
 	}
 	if cfg.Tile == 0 {
 		cfg.Tile = DefaultTile
 	}
 	if cfg.Tile < 16 || cfg.Tile > 16384 {
-		return fmt.Errorf("%w: --tile %d must be between 16 and 16384", ErrConfig, cfg.Tile)
+		return fieldErrorf("Tile", "{Tile} %d must be between 16 and 16384", cfg.Tile)
 	}
 	if cfg.PSF.W > cfg.Tile || cfg.PSF.H > cfg.Tile {
-		return fmt.Errorf("%w: the PSF (%dx%d) is larger than a tile (%d): raise --tile", ErrConfig, cfg.PSF.W, cfg.PSF.H, cfg.Tile)
+		return fieldErrorf("Tile", "the PSF (%dx%d) is larger than a tile (%d): raise {Tile}", cfg.PSF.W, cfg.PSF.H, cfg.Tile)
 	}
 	if cfg.Overlap < 0 {
 		eps := cfg.Smooth
@@ -223,29 +305,29 @@ func (cfg *Config) Resolve() error {
 		cfg.Overlap = DefaultOverlap(cfg.PSF, eps, cfg.Tile)
 	}
 	if cfg.Overlap > cfg.Tile {
-		return fmt.Errorf("%w: --overlap %d is larger than the tile size %d", ErrConfig, cfg.Overlap, cfg.Tile)
+		return fieldErrorf("Overlap", "{Overlap} %d is larger than the tile size %d", cfg.Overlap, cfg.Tile)
 	}
 	if cfg.Workers <= 0 {
 		cfg.Workers = runtime.NumCPU()
 	}
 	if cfg.Workers > 1024 {
-		return fmt.Errorf("%w: --workers %d is more than 1024", ErrConfig, cfg.Workers)
+		return fieldErrorf("Workers", "{Workers} %d is more than 1024", cfg.Workers)
 	}
-	if cfg.Method == "particle" {
+	if cfg.Method == MethodParticle {
 		if cfg.Stop != StopChange {
-			return fmt.Errorf("%w: --stop %s: the particle method runs a fixed number of iterations (--iterations, --burn-in); --stop auto and discrepancy apply to the grid method", ErrConfig, cfg.Stop)
+			return fieldErrorf("Stop", "{Stop} %s: the particle method runs a fixed number of iterations ({Iterations}, {Particle.BurnIn}); {Stop} auto and discrepancy apply to the grid method", cfg.Stop)
 		}
 		return cfg.resolveParticle()
 	}
 	if cfg.Uncertainty != nil {
-		return fmt.Errorf("%w: --uncertainty: the grid method has no Monte Carlo error (use --method particle)", ErrConfig)
+		return fieldErrorf("Uncertainty", "{Uncertainty}: the grid method has no Monte Carlo error (use {Method} particle)")
 	}
 	return nil
 }
 
 // NewSolver builds the solver cfg names.
 func (cfg *Config) NewSolver() Solver {
-	if cfg.Method == "particle" {
+	if cfg.Method == MethodParticle {
 		return cfg.newParticleSolver()
 	}
 	g := &GridEMS{H: NewConv(cfg.PSF), Iterations: cfg.Iterations, Tolerance: cfg.Tolerance}
@@ -277,22 +359,8 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
 	}
 	solver := cfg.NewSolver()
-	rep := &Report{Version: Version, Method: solver.Name(), PSF: cfg.PSFSpec, PSFSize: [2]int{cfg.PSF.W, cfg.PSF.H},
-		ConvPath: NewConv(cfg.PSF).Kind(), Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
-		Tile: cfg.Tile, Overlap: plan.Overlap, Blend: plan.Blend, Workers: cfg.Workers, Seed: cfg.Seed,
-		Width: meta.Width, Height: meta.Height}
-	if cfg.HasSaturated {
-		s := cfg.Saturated
-		rep.Saturated = &s
-	}
-	if cfg.Method == "particle" {
-		pc := cfg.Particle
-		rep.Particle = &ParticleReport{PerPixel: pc.PerPixel, Potential: pc.Potential, Resampling: pc.Resampling,
-			ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn, Start: pc.Start, Batches: pc.Batches, SEBlend: SEBlendRule,
-			Replicates: pc.Replicates, SEMethod: pc.seMethod()}
-	}
-	nb := len(bands)
-	validity := make([]validFn, nb)
+	rep := newReport(&cfg, plan, solver)
+	validity := make([]validFn, len(bands))
 	for i, b := range bands {
 		if b < 0 || b >= len(meta.Bands) {
 			return nil, fmt.Errorf("%w: band %d does not exist (input has %d)", ErrConfig, b+1, len(meta.Bands))
@@ -312,10 +380,7 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 	}
 	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver,
-		withSE: cfg.Method == "particle"}
-	if cfg.SmoothAuto {
-		rep.SmoothRule = fmt.Sprintf("auto: risk estimate over %v", AutoSmooths)
-	}
+		withSE: cfg.Method == MethodParticle}
 	if cfg.SmoothAuto || cfg.Stop != StopChange {
 		if cfg.SmoothAuto || cfg.Stop == StopAuto {
 			rep.Choose = cfg.Choose
@@ -332,6 +397,36 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	if r.withSE {
 		r.finishSE()
 	}
+	finishReport(rep)
+	rep.WallSeconds = time.Since(start).Seconds()
+	return rep, nil
+}
+
+// newReport records the resolved job (bands are added by Restore).
+func newReport(cfg *Config, plan Plan, solver Solver) *Report {
+	rep := &Report{Version: Version, Method: solver.Name(), PSF: cfg.PSFSpec, PSFSize: [2]int{cfg.PSF.W, cfg.PSF.H},
+		ConvPath: NewConv(cfg.PSF).Kind(), Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
+		Tile: cfg.Tile, Overlap: plan.Overlap, Blend: plan.Blend, Workers: cfg.Workers, Seed: cfg.Seed,
+		Width: plan.W, Height: plan.H}
+	if cfg.HasSaturated {
+		s := cfg.Saturated
+		rep.Saturated = &s
+	}
+	if cfg.Method == MethodParticle {
+		pc := cfg.Particle
+		rep.Particle = &ParticleReport{PerPixel: pc.PerPixel, Potential: pc.Potential.String(), Resampling: pc.Resampling.String(),
+			ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn, Start: pc.Start.String(), Batches: pc.Batches, SEBlend: SEBlendRule,
+			Replicates: pc.Replicates, SEMethod: pc.seMethod()}
+	}
+	if cfg.SmoothAuto {
+		rep.SmoothRule = fmt.Sprintf("auto: risk estimate over %v", AutoSmooths)
+	}
+	return rep
+}
+
+// finishReport sorts each band's tiles by (row, column) and records the
+// band's largest iteration count.
+func finishReport(rep *Report) {
 	for i := range rep.Bands {
 		b := &rep.Bands[i]
 		sort.Slice(b.Tiles, func(x, y int) bool {
@@ -344,8 +439,6 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 			b.MaxIterations = max(b.MaxIterations, t.Iterations)
 		}
 	}
-	rep.WallSeconds = time.Since(start).Seconds()
-	return rep, nil
 }
 
 type validFn func(v float32) bool
@@ -402,33 +495,252 @@ type runner struct {
 	rep    *Report
 	solver Solver
 
-	// Two strips of source rows per band: workers read one while the next
-	// tile row is read into the other.
-	strips  [2][][]float32
-	stripYs [2]int
-	acc     [][]float32 // per band, output rows [accY, accY+accRows)
-	accY    int
-	slots   []*slot // per (band, col)
-
-	// withSE: the solver reports standard errors; accSE holds the blended
-	// sum of w^2 se^2 like acc, seSum/seFlux the report's per-band sums.
+	// withSE: the solver reports standard errors; seSum/seFlux hold the
+	// report's per-band sums (uncertainty.go).
 	withSE        bool
-	accSE         [][]float32
 	seSum, seFlux []float64
-	freeSE        chan [][]float32
-
-	// Finished rows go to a writer goroutine so that compression overlaps
-	// the next strip's computation.
-	writes chan writeJob
-	free   chan [][]float32
-	werrMu sync.Mutex
-	werr   error
 }
 
-func (r *runner) writeErr() error {
-	r.werrMu.Lock()
-	defer r.werrMu.Unlock()
-	return r.werr
+// strip is a block of source rows of every band: the rows a tile row's
+// input windows touch.
+type strip struct {
+	y    int
+	rows [][]float32 // per band, W x height
+}
+
+// rasterJob is one tile of the raster route and its weighted output window.
+type rasterJob struct {
+	key   TileKey
+	strip *strip
+	last  bool // the last tile of its tile row that the run produces
+	out   []float32
+	seOut []float32 // w^2 se^2 when the solver reports standard errors
+	ox    Span
+	oy    Span
+	res   Result
+}
+
+// scan is one run of the raster route over the scene (runner.run): it reads
+// strips of source rows, feeds their tiles through runOrdered and blends
+// and writes the finished rows.
+type scan struct {
+	*runner
+	strips  chan *strip // free strips: one is read while the other is solved
+	jobs    []rasterJob // two tile rows of job slots, reused
+	blend   *blender    // weighted outputs
+	blendSE *blender    // weighted standard errors (withSE)
+	out     *rowWriter  // finished rows, written on their own goroutine
+	row     int         // producer position: tile row, band, column
+	band    int
+	col     int
+	cur     *strip
+	done    int
+}
+
+func (r *runner) run(ctx context.Context) error {
+	p := r.plan
+	nb := len(r.bands)
+	sc := &scan{runner: r, strips: make(chan *strip, 2), jobs: make([]rasterJob, 2*nb*len(p.Cols))}
+	maxRows := 0
+	for i := range p.Rows {
+		maxRows = max(maxRows, sourceRange(p.InSpan(p.Rows, i), p.H).Len())
+	}
+	for k := 0; k < 2; k++ {
+		st := &strip{rows: make([][]float32, nb)}
+		for i := range st.rows {
+			st.rows[i] = make([]float32, p.W*maxRows)
+		}
+		sc.strips <- st
+	}
+	if r.need == nil {
+		sc.blend = newBlender(p, nb, false)
+		if r.withSE {
+			sc.blendSE = newBlender(p, nb, false)
+			r.seSum, r.seFlux = make([]float64, nb), make([]float64, nb)
+		}
+		sc.out = newRowWriter(r.dst, r.cfg.Uncertainty, nb, p.W*sc.blend.stripRows(), r.withSE)
+	}
+	nw := min(r.cfg.Workers, nb*len(p.Cols))
+	err := runOrdered(ctx, nw, len(sc.jobs), sc.produce, sc.solve, sc.finish)
+	if sc.out != nil {
+		if werr := sc.out.close(); err == nil {
+			err = werr
+		}
+	}
+	return err
+}
+
+// rowNeeded: a pass (need set) reads and computes only the tile rows holding
+// a needed tile.
+func (sc *scan) rowNeeded(row int) bool {
+	if sc.need == nil {
+		return true
+	}
+	for col := range sc.plan.Cols {
+		if sc.need(col, row) {
+			return true
+		}
+	}
+	return false
+}
+
+// produce returns the next tile in (tile row, band, column) order, reading
+// the tile row's strip when it starts a row.
+func (sc *scan) produce(ctx context.Context) (*rasterJob, bool, error) {
+	p := sc.plan
+	nb, nc := len(sc.bands), len(p.Cols)
+	for ; sc.row < len(p.Rows); sc.row, sc.band, sc.col, sc.cur = sc.row+1, 0, 0, nil {
+		if sc.cur == nil {
+			if !sc.rowNeeded(sc.row) {
+				continue
+			}
+			if err := sc.readStrip(ctx); err != nil {
+				return nil, false, err
+			}
+		}
+		for ; sc.band < nb; sc.band, sc.col = sc.band+1, 0 {
+			for ; sc.col < nc; sc.col++ {
+				if sc.need != nil && !sc.need(sc.col, sc.row) {
+					continue
+				}
+				j := &sc.jobs[(sc.row%2)*nb*nc+sc.band*nc+sc.col]
+				j.key, j.strip, j.last = TileKey{Band: sc.band, Col: sc.col, Row: sc.row}, sc.cur, sc.lastOfRow(sc.band, sc.col)
+				sc.col++
+				return j, true, nil
+			}
+		}
+	}
+	return nil, false, nil
+}
+
+// lastOfRow reports whether (band, col) is the last tile of the current
+// tile row that the run produces.
+func (sc *scan) lastOfRow(band, col int) bool {
+	nb, nc := len(sc.bands), len(sc.plan.Cols)
+	for b := band; b < nb; b++ {
+		for c := 0; c < nc; c++ {
+			if (b > band || c > col) && (sc.need == nil || sc.need(c, sc.row)) {
+				return false
+			}
+		}
+	}
+	return true
+}
+
+// readStrip takes a free strip and reads the current tile row's source rows
+// into it.
+func (sc *scan) readStrip(ctx context.Context) error {
+	select {
+	case sc.cur = <-sc.strips:
+	case <-ctx.Done():
+		return ctx.Err()
+	}
+	in := sourceRange(sc.plan.InSpan(sc.plan.Rows, sc.row), sc.plan.H)
+	sc.cur.y = in.Start
+	return sc.src.ReadRows(in.Start, in.End, sc.bands, sc.cur.rows)
+}
+
+// solve restores one tile and weights its output window (a pass keeps only
+// the solver's side effects).
+func (sc *scan) solve(ctx context.Context, wk *tileWork, j *rasterJob) error {
+	p := sc.plan
+	k := j.key
+	bg := float32(sc.rep.Bands[k.Band].Background)
+	prob := p.problem(wk, k, window{pix: j.strip.rows[k.Band], y: j.strip.y, w: p.W}, sc.valid[k.Band], bg)
+	prob.Record = sc.recorded(k)
+	if sc.withSE {
+		wk.se = grow(wk.se, prob.W*prob.H)
+		prob.SE = wk.se
+	}
+	res, err := sc.solver.Solve(ctx, &wk.ws, prob, wk.f)
+	if err != nil {
+		return &TileError{Band: k.Band, Col: k.Col, Row: k.Row, Err: err}
+	}
+	j.res = res
+	if sc.need != nil {
+		return nil
+	}
+	ix, iy := p.InSpan(p.Cols, k.Col), p.InSpan(p.Rows, k.Row)
+	j.out, j.ox, j.oy = p.weigh(j.out, wk, k, window{pix: wk.f, x: ix.Start, y: iy.Start, w: ix.Len()}, bg)
+	if sc.withSE {
+		j.seOut = weighSE(j.seOut, wk, res, j.ox.Len(), j.oy.Len(), window{pix: wk.se, x: ix.Start, y: iy.Start, w: ix.Len()}, j.ox, j.oy)
+	}
+	return nil
+}
+
+// finish blends a tile in production order; the last tile of a tile row
+// writes the finished rows and frees the row's strip.
+func (sc *scan) finish(j *rasterJob, failed bool) error {
+	var err error
+	if !failed && sc.need == nil {
+		sc.blend.add(j.key.Band, j.ox, j.oy, j.out)
+		if sc.withSE {
+			sc.blendSE.add(j.key.Band, j.ox, j.oy, j.seOut)
+		}
+		br := &sc.rep.Bands[j.key.Band]
+		br.Tiles = append(br.Tiles, TileReport{Col: j.key.Col, Row: j.key.Row, Iterations: j.res.Iterations, Change: j.res.Change, Flat: j.res.Flat, Changes: j.res.Changes})
+		if j.last {
+			err = sc.writeRow(j.key.Row, j.strip)
+		}
+	}
+	if j.last {
+		sc.strips <- j.strip
+	}
+	return err
+}
+
+// writeRow hands the rows finished by tile row `row` to the writer: NaN
+// where the input is invalid, with the flux bookkeeping over valid pixels.
+func (sc *scan) writeRow(row int, st *strip) error {
+	W := sc.plan.W
+	end := sc.blend.rowEnd(row)
+	n := end - sc.blend.y
+	bufs, err := sc.out.buffer()
+	if err != nil {
+		return err
+	}
+	for b := range bufs {
+		acc, out := sc.blend.acc[b][:n*W], bufs[b][:n*W]
+		br := &sc.rep.Bands[b]
+		for y := 0; y < n; y++ {
+			sy := sc.blend.y + y - st.y
+			srow := st.rows[b][sy*W : (sy+1)*W]
+			arow, orow := acc[y*W:(y+1)*W], out[y*W:(y+1)*W]
+			for x, v := range srow {
+				if sc.valid[b](v) {
+					br.FluxBefore += float64(v)
+					br.FluxAfter += float64(arow[x])
+					br.ValidPixels++
+					orow[x] = arow[x]
+				} else {
+					orow[x] = nan
+				}
+			}
+		}
+	}
+	var se [][]float32
+	if sc.withSE {
+		se = sc.outputSE(n, st)
+		sc.blendSE.shift(n)
+	}
+	sc.out.write(writeJob{y0: sc.blend.y, y1: end, bufs: bufs, se: se})
+	sc.blend.shift(n)
+	sc.done += len(sc.bands) * len(sc.plan.Cols)
+	if sc.cfg.Progress != nil {
+		sc.cfg.Progress(sc.done, len(sc.bands)*sc.plan.NTiles())
+	}
+	return nil
+}
+
+// rowWriter writes finished rows on its own goroutine, so that compression
+// overlaps the next rows' computation; two buffers circulate.
+type rowWriter struct {
+	dst, unc     raster.Writer
+	jobs         chan writeJob
+	free, freeSE chan [][]float32
+	done         chan struct{}
+	mu           sync.Mutex
+	err          error
 }
 
 type writeJob struct {
@@ -437,356 +749,68 @@ type writeJob struct {
 	se     [][]float32 // nil without standard errors
 }
 
-// slot holds one tile's blended output window.
-type slot struct {
-	key    TileKey
-	strip  int
-	out    []float32
-	seOut  []float32 // w^2 se^2 when the solver reports SE
-	ox, oy Span
-	res    Result
-	err    error
+func newRowWriter(dst, unc raster.Writer, nb, n int, withSE bool) *rowWriter {
+	w := &rowWriter{dst: dst, unc: unc, jobs: make(chan writeJob), free: make(chan [][]float32, 2), done: make(chan struct{})}
+	bufs := func() [][]float32 {
+		b := make([][]float32, nb)
+		for i := range b {
+			b[i] = make([]float32, n)
+		}
+		return b
+	}
+	w.free <- bufs()
+	w.free <- bufs()
+	if withSE {
+		w.freeSE = make(chan [][]float32, 2)
+		w.freeSE <- bufs()
+		w.freeSE <- bufs()
+	}
+	go w.loop()
+	return w
 }
 
-type worker struct {
-	ws      Workspace
-	d, mask []float32
-	f       []float32
-	se      []float32
-	wx, wy  []float32
+func (w *rowWriter) loop() {
+	defer close(w.done)
+	for j := range w.jobs {
+		if w.failed() == nil {
+			err := w.dst.WriteRows(j.y0, j.y1, j.bufs)
+			if err == nil && j.se != nil && w.unc != nil {
+				err = w.unc.WriteRows(j.y0, j.y1, j.se)
+			}
+			w.mu.Lock()
+			w.err = err
+			w.mu.Unlock()
+		}
+		w.free <- j.bufs
+		if j.se != nil {
+			w.freeSE <- j.se
+		}
+	}
 }
 
-func (r *runner) run(ctx context.Context) error {
-	p := r.plan
-	W := p.W
-	nb := len(r.bands)
-	maxRows := 0
-	for i := range p.Rows {
-		s := sourceRange(p.InSpan(p.Rows, i), p.H)
-		maxRows = max(maxRows, s.Len())
-	}
-	for k := range r.strips {
-		r.strips[k] = make([][]float32, nb)
-		for i := range r.strips[k] {
-			r.strips[k][i] = make([]float32, W*maxRows)
-		}
-	}
-	maxOut := 0
-	for i := range p.Rows {
-		maxOut = max(maxOut, p.OutSpan(p.Rows, i).Len())
-	}
-	r.acc = make([][]float32, nb)
-	for i := range r.acc {
-		r.acc[i] = make([]float32, W*maxOut)
-	}
-	r.writes = make(chan writeJob)
-	r.free = make(chan [][]float32, 2)
-	for k := 0; k < 2; k++ {
-		bufs := make([][]float32, nb)
-		for i := range bufs {
-			bufs[i] = make([]float32, W*maxOut)
-		}
-		r.free <- bufs
-	}
-	if r.withSE {
-		r.accSE = make([][]float32, nb)
-		for i := range r.accSE {
-			r.accSE[i] = make([]float32, W*maxOut)
-		}
-		r.seSum, r.seFlux = make([]float64, nb), make([]float64, nb)
-		r.freeSE = make(chan [][]float32, 2)
-		for k := 0; k < 2; k++ {
-			bufs := make([][]float32, nb)
-			for i := range bufs {
-				bufs[i] = make([]float32, W*maxOut)
-			}
-			r.freeSE <- bufs
-		}
-	}
-	writerDone := make(chan struct{})
-	go func() {
-		defer close(writerDone)
-		for j := range r.writes {
-			if r.writeErr() == nil {
-				err := r.dst.WriteRows(j.y0, j.y1, j.bufs)
-				if err == nil && j.se != nil && r.cfg.Uncertainty != nil {
-					err = r.cfg.Uncertainty.WriteRows(j.y0, j.y1, j.se)
-				}
-				r.werrMu.Lock()
-				r.werr = err
-				r.werrMu.Unlock()
-			}
-			r.free <- j.bufs
-			if j.se != nil {
-				r.freeSE <- j.se
-			}
-		}
-	}()
-	r.slots = make([]*slot, nb*len(p.Cols))
-	for i := range r.slots {
-		r.slots[i] = &slot{}
-	}
-	nw := min(r.cfg.Workers, len(r.slots))
-	jobs := make(chan *slot)
-	var wg sync.WaitGroup
-	ctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	var rowWG sync.WaitGroup
-	for k := 0; k < nw; k++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			wk := &worker{}
-			for s := range jobs {
-				s.err = r.solveTile(ctx, wk, s)
-				if s.err != nil {
-					cancel()
-				}
-				rowWG.Done()
-			}
-		}()
-	}
-	defer func() {
-		close(jobs)
-		wg.Wait()
-	}()
-	total := nb * p.NTiles()
-	done := 0
-	// rowNeeded: a pass (r.need set) reads and computes only the tile rows
-	// holding a needed tile, and writes nothing.
-	rowNeeded := func(row int) bool {
-		if r.need == nil {
-			return true
-		}
-		for col := range p.Cols {
-			if r.need(col, row) {
-				return true
-			}
-		}
-		return false
-	}
-	readStrip := func(row, k int) error {
-		if !rowNeeded(row) {
-			return nil
-		}
-		in := sourceRange(p.InSpan(p.Rows, row), p.H)
-		r.stripYs[k] = in.Start
-		return r.src.ReadRows(in.Start, in.End, r.bands, r.strips[k])
-	}
-	if err := readStrip(0, 0); err != nil {
-		close(r.writes)
-		<-writerDone
-		return err
-	}
-	err := func() error {
-		for row := range p.Rows {
-			if err := ctx.Err(); err != nil {
-				return err
-			}
-			cur := row % 2
-			for b := 0; b < nb; b++ {
-				for col := range p.Cols {
-					s := r.slots[b*len(p.Cols)+col]
-					s.key = TileKey{Band: b, Col: col, Row: row}
-					s.strip = cur
-					s.err = nil
-					if r.need != nil && !r.need(col, row) {
-						continue
-					}
-					rowWG.Add(1)
-					jobs <- s
-				}
-			}
-			var rerr error
-			if row+1 < len(p.Rows) {
-				rerr = readStrip(row+1, 1-cur)
-			}
-			rowWG.Wait()
-			if err := firstError(r.slots); err != nil {
-				return err
-			}
-			if rerr != nil {
-				return rerr
-			}
-			if r.need != nil {
-				continue
-			}
-			if err := r.blendAndWrite(row, cur); err != nil {
-				return err
-			}
-			done += nb * len(p.Cols)
-			if r.cfg.Progress != nil {
-				r.cfg.Progress(done, total)
-			}
-		}
-		return nil
-	}()
-	close(r.writes)
-	<-writerDone
-	if err != nil {
-		return err
-	}
-	return r.writeErr()
+func (w *rowWriter) failed() error {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	return w.err
 }
 
-// firstError returns the first tile failure in slot order, preferring a real
-// failure over the cancellations it caused.
-func firstError(slots []*slot) error {
-	var canceled error
-	for _, s := range slots {
-		if s.err == nil {
-			continue
-		}
-		te := &TileError{Band: s.key.Band, Col: s.key.Col, Row: s.key.Row, Err: s.err}
-		if !errors.Is(s.err, context.Canceled) && !errors.Is(s.err, context.DeadlineExceeded) {
-			return te
-		}
-		if canceled == nil {
-			canceled = s.err
-		}
+// buffer returns a free set of row buffers, or the writer's failure.
+func (w *rowWriter) buffer() ([][]float32, error) {
+	bufs := <-w.free
+	if err := w.failed(); err != nil {
+		w.free <- bufs
+		return nil, err
 	}
-	return canceled
+	return bufs, nil
 }
 
-// solveTile copies the tile (with mirrored halo) out of the strip, restores
-// it and stores the weighted output window in the slot.
-func (r *runner) solveTile(ctx context.Context, wk *worker, s *slot) error {
-	p := r.plan
-	k := s.key
-	ix, iy := p.InSpan(p.Cols, k.Col), p.InSpan(p.Rows, k.Row)
-	tw, th := ix.Len(), iy.Len()
-	n := tw * th
-	wk.d = grow(wk.d, n)
-	wk.mask = grow(wk.mask, n)
-	wk.f = grow(wk.f, n)
-	strip := r.strips[s.strip][k.Band]
-	stripY := r.stripYs[s.strip]
-	valid := r.valid[k.Band]
-	for y := 0; y < th; y++ {
-		sy := raster.Mirror(iy.Start+y, p.H) - stripY
-		srow := strip[sy*p.W : (sy+1)*p.W]
-		drow := wk.d[y*tw : (y+1)*tw]
-		mrow := wk.mask[y*tw : (y+1)*tw]
-		for x := 0; x < tw; x++ {
-			v := srow[raster.Mirror(ix.Start+x, p.W)]
-			drow[x] = v
-			if valid(v) {
-				mrow[x] = 1
-			} else {
-				mrow[x] = 0
-			}
-		}
-	}
-	bg := float32(r.rep.Bands[k.Band].Background)
-	prob := &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: k, Record: r.recorded(k)}
-	if r.withSE {
-		wk.se = grow(wk.se, n)
-		prob.SE = wk.se
-	}
-	res, err := r.solver.Solve(ctx, &wk.ws, prob, wk.f)
-	if err != nil {
-		return err
-	}
-	s.res = res
-	s.ox, s.oy = p.OutSpan(p.Cols, k.Col), p.OutSpan(p.Rows, k.Row)
-	ow, oh := s.ox.Len(), s.oy.Len()
-	s.out = grow(s.out, ow*oh)
-	wk.wx = grow(wk.wx, ow)
-	wk.wy = grow(wk.wy, oh)
-	p.Weights(wk.wx, p.Cols, k.Col)
-	p.Weights(wk.wy, p.Rows, k.Row)
-	x0, y0 := s.ox.Start-ix.Start, s.oy.Start-iy.Start
-	for y := 0; y < oh; y++ {
-		frow := wk.f[(y0+y)*tw+x0:]
-		orow := s.out[y*ow : (y+1)*ow]
-		wy := wk.wy[y]
-		for x := range orow {
-			orow[x] = wy * wk.wx[x] * (frow[x] + bg)
-		}
-	}
-	if r.withSE {
-		r.weightSE(wk, s, res, tw, x0, y0)
-	}
-	return nil
-}
+func (w *rowWriter) write(j writeJob) { w.jobs <- j }
 
-// blendAndWrite adds the strip's tiles into the accumulator in a fixed order
-// and writes the rows no later strip touches.
-func (r *runner) blendAndWrite(row, cur int) error {
-	p := r.plan
-	W := p.W
-	nb := len(r.bands)
-	for _, s := range r.slots {
-		acc := r.acc[s.key.Band]
-		ow := s.ox.Len()
-		for y := 0; y < s.oy.Len(); y++ {
-			arow := acc[(s.oy.Start+y-r.accY)*W+s.ox.Start:]
-			orow := s.out[y*ow : (y+1)*ow]
-			for x, v := range orow {
-				arow[x] += v
-			}
-		}
-		if r.withSE {
-			r.blendSE(s)
-		}
-		br := &r.rep.Bands[s.key.Band]
-		br.Tiles = append(br.Tiles, TileReport{Col: s.key.Col, Row: s.key.Row, Iterations: s.res.Iterations, Change: s.res.Change, Flat: s.res.Flat, Changes: s.res.Changes})
-	}
-	last := row == len(p.Rows)-1
-	end := p.Rows[row].End
-	if !last {
-		end -= p.Blend
-	}
-	n := end - r.accY
-	bufs := <-r.free
-	if err := r.writeErr(); err != nil {
-		r.free <- bufs
-		return err
-	}
-	// Invalid input pixels come out as NaN; flux bookkeeping over valid ones.
-	for b := 0; b < nb; b++ {
-		acc := r.acc[b][:n*W]
-		out := bufs[b][:n*W]
-		br := &r.rep.Bands[b]
-		for y := 0; y < n; y++ {
-			sy := r.accY + y - r.stripYs[cur]
-			srow := r.strips[cur][b][sy*W : (sy+1)*W]
-			arow := acc[y*W : (y+1)*W]
-			orow := out[y*W : (y+1)*W]
-			for x, v := range srow {
-				if r.valid[b](v) {
-					br.FluxBefore += float64(v)
-					br.FluxAfter += float64(arow[x])
-					br.ValidPixels++
-					orow[x] = arow[x]
-				} else {
-					orow[x] = float32(math.NaN())
-				}
-			}
-		}
-		bufs[b] = bufs[b][:cap(bufs[b])]
-	}
-	var se [][]float32
-	if r.withSE {
-		se = r.outputSE(n, cur)
-	}
-	r.writes <- writeJob{y0: r.accY, y1: end, bufs: bufs, se: se}
-	// Carry the rows still being blended to the top of the accumulator.
-	for b := 0; b < nb; b++ {
-		acc := r.acc[b]
-		rest := len(acc)/W - n
-		copy(acc[:rest*W], acc[n*W:])
-		for i := rest * W; i < len(acc); i++ {
-			acc[i] = 0
-		}
-		if r.withSE {
-			a := r.accSE[b]
-			copy(a[:rest*W], a[n*W:])
-			clear(a[rest*W:])
-		}
-	}
-	r.accY = end
-	return nil
+// close waits for the queued rows and returns the first write failure.
+func (w *rowWriter) close() error {
+	close(w.jobs)
+	<-w.done
+	return w.failed()
 }
 
 // RecordedTiles is how many tiles of the first band keep their per-iteration

@@ -6,7 +6,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"sync"
 
 	"limpid/arrowio"
 	"limpid/raster"
@@ -70,8 +69,8 @@ func clipSpan(s Span, n int) Span { return Span{max(0, s.Start), min(n, s.End)} 
 type streamParams struct {
 	Smooth     float64  `json:"smooth"`
 	SmoothRule string   `json:"smooth_rule"`
-	Stop       string   `json:"stop"`
-	Choose     string   `json:"choose"`
+	Stop       Stop     `json:"stop"`
+	Choose     Choose   `json:"choose"`
 	Iterations int      `json:"iterations"`
 	Tolerance  float64  `json:"tolerance"`
 	Tile       int      `json:"tile"`
@@ -263,11 +262,6 @@ func (s *SceneTiler) Next(t *arrowio.Tile) (bool, error) {
 }
 
 // streamWorker is one worker's memory, reused across tiles.
-type streamWorker struct {
-	ws             Workspace
-	d, mask, f, se []float32
-}
-
 // RestoreTiles restores every tile of src (an observed stream described by
 // in) and writes the restored tiles to dst in input order. Each tile is
 // independent (stateless); at most 2 x workers + 2 tiles are in memory; the
@@ -286,159 +280,81 @@ func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64
 	if err != nil {
 		return fmt.Errorf("%w: %v", ErrConfig, err)
 	}
-	solver := cfg.NewSolver()
-	valid := make([]validFn, len(in.Bands))
-	for i, b := range in.Bands {
-		valid[i] = makeValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated)
+	st := &streamRun{plan: plan, solver: cfg.NewSolver(), backgrounds: backgrounds, src: src, dst: dst, progress: cfg.Progress}
+	for _, b := range in.Bands {
+		st.valid = append(st.valid, makeValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated))
 	}
-	nw := cfg.Workers
-	nbuf := 2*nw + 2
-	type job struct {
-		seq int
-		t   *arrowio.Tile
-		err error
-	}
-	ctx, cancel := context.WithCancel(ctx)
-	defer cancel()
-	free := make(chan *arrowio.Tile, nbuf)
+	nbuf := 2*cfg.Workers + 2
+	st.free = make(chan *arrowio.Tile, nbuf)
 	for i := 0; i < nbuf; i++ {
-		free <- &arrowio.Tile{}
+		st.free <- &arrowio.Tile{}
 	}
-	jobs := make(chan job, nw)
-	results := make(chan job, nbuf)
-
-	var errMu sync.Mutex
-	errSeq, firstErr := math.MaxInt, error(nil)
-	setErr := func(seq int, err error) {
-		errMu.Lock()
-		// A real failure wins over the cancellations it caused; then the
-		// earliest tile in stream order.
-		if firstErr == nil || (isCancel(firstErr) && !isCancel(err)) || (isCancel(firstErr) == isCancel(err) && seq < errSeq) {
-			errSeq, firstErr = seq, err
-		}
-		errMu.Unlock()
-		cancel()
-	}
-	failed := func() bool {
-		errMu.Lock()
-		defer errMu.Unlock()
-		return firstErr != nil
-	}
-
-	var wg sync.WaitGroup
-	for k := 0; k < nw; k++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			wk := &streamWorker{}
-			for j := range jobs {
-				if ctx.Err() == nil {
-					j.err = restoreTile(ctx, solver, plan, wk, j.t, valid[j.t.Band], float32(backgrounds[j.t.Band]))
-				} else {
-					j.err = ctx.Err()
-				}
-				results <- j
-			}
-		}()
-	}
-	writerDone := make(chan struct{})
-	go func() {
-		defer close(writerDone)
-		pending := map[int]job{}
-		next := 0
-		for j := range results {
-			pending[j.seq] = j
-			for {
-				r, ok := pending[next]
-				if !ok {
-					break
-				}
-				delete(pending, next)
-				if r.err != nil {
-					setErr(r.seq, &TileError{Band: r.t.Band, Col: r.t.Col, Row: r.t.TileRow, Err: r.err})
-				} else if !failed() {
-					if err := dst.Write(r.t); err != nil {
-						setErr(r.seq, err)
-					}
-				}
-				free <- r.t
-				next++
-			}
-		}
-	}()
-
-	seq := 0
-	for ctx.Err() == nil {
-		var t *arrowio.Tile
-		select {
-		case t = <-free:
-		case <-ctx.Done():
-		}
-		if t == nil {
-			break
-		}
-		ok, err := src.Next(t)
-		if err == nil && ok {
-			err = CheckPlan(plan, t)
-		}
-		if err != nil {
-			setErr(seq, err)
-			break
-		}
-		if !ok {
-			break
-		}
-		jobs <- job{seq: seq, t: t}
-		seq++
-		if cfg.Progress != nil {
-			cfg.Progress(seq, 0)
-		}
-	}
-	close(jobs)
-	wg.Wait()
-	close(results)
-	<-writerDone
-	errMu.Lock()
-	defer errMu.Unlock()
-	return firstErr
+	return runOrdered(ctx, cfg.Workers, nbuf, st.produce, st.solve, st.finish)
 }
 
-func isCancel(err error) bool {
-	return errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded)
+// streamRun is RestoreTiles' side of the tile pipeline.
+type streamRun struct {
+	plan        Plan
+	solver      Solver
+	valid       []validFn
+	backgrounds []float64
+	src         TileSource
+	dst         TileSink
+	progress    func(done, total int)
+	free        chan *arrowio.Tile // tile buffers, at most in flight
+	n           int
+}
+
+// produce reads the next tile into a free buffer and checks it against the
+// tiling.
+func (st *streamRun) produce(ctx context.Context) (*arrowio.Tile, bool, error) {
+	t := <-st.free // runOrdered keeps fewer tiles in flight than buffers
+	ok, err := st.src.Next(t)
+	if err == nil && ok {
+		err = CheckPlan(st.plan, t)
+	}
+	if err != nil || !ok {
+		st.free <- t
+		return nil, false, err
+	}
+	st.n++
+	if st.progress != nil {
+		st.progress(st.n, 0)
+	}
+	return t, true, nil
+}
+
+func (st *streamRun) solve(ctx context.Context, wk *tileWork, t *arrowio.Tile) error {
+	if err := restoreTile(ctx, st.solver, st.plan, wk, t, st.valid[t.Band], float32(st.backgrounds[t.Band])); err != nil {
+		return &TileError{Band: t.Band, Col: t.Col, Row: t.TileRow, Err: err}
+	}
+	return nil
+}
+
+// finish writes a restored tile in stream order and frees its buffer.
+func (st *streamRun) finish(t *arrowio.Tile, failed bool) error {
+	var err error
+	if !failed {
+		err = st.dst.Write(t)
+	}
+	st.free <- t
+	return err
 }
 
 // restoreTile rebuilds the tile's Problem (its input window with the
 // mirrored positions outside the scene), solves it and overwrites t's pixels
 // with the restored object plus background (NaN where the input is invalid).
-func restoreTile(ctx context.Context, solver Solver, p Plan, wk *streamWorker, t *arrowio.Tile, valid validFn, bg float32) error {
-	ix, iy := p.InSpan(p.Cols, t.Col), p.InSpan(p.Rows, t.TileRow)
-	tw, th := ix.Len(), iy.Len()
-	n := tw * th
-	wk.d = grow(wk.d, n)
-	wk.mask = grow(wk.mask, n)
-	wk.f = grow(wk.f, n)
-	wk.se = grow(wk.se, n)
-	for y := 0; y < th; y++ {
-		sy := raster.Mirror(iy.Start+y, p.H) - t.Y
-		srow := t.Pix[sy*t.W : (sy+1)*t.W]
-		drow := wk.d[y*tw : (y+1)*tw]
-		mrow := wk.mask[y*tw : (y+1)*tw]
-		for x := 0; x < tw; x++ {
-			v := srow[raster.Mirror(ix.Start+x, p.W)-t.X]
-			drow[x] = v
-			if valid(v) {
-				mrow[x] = 1
-			} else {
-				mrow[x] = 0
-			}
-		}
-	}
-	prob := &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}, SE: wk.se}
+func restoreTile(ctx context.Context, solver Solver, p Plan, wk *tileWork, t *arrowio.Tile, valid validFn, bg float32) error {
+	key := TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}
+	prob := p.problem(wk, key, window{pix: t.Pix, x: t.X, y: t.Y, w: t.W}, valid, bg)
+	wk.se = grow(wk.se, prob.W*prob.H)
+	prob.SE = wk.se
 	res, err := solver.Solve(ctx, &wk.ws, prob, wk.f)
 	if err != nil {
 		return err
 	}
-	nan := float32(math.NaN())
+	ix, iy := p.InSpan(p.Cols, t.Col), p.InSpan(p.Rows, t.TileRow)
+	tw := ix.Len()
 	if res.HasSE {
 		t.Uncertainty = make([]float32, t.W*t.H)
 	} else {
@@ -471,11 +387,12 @@ func restoreTile(ctx context.Context, solver Solver, p Plan, wk *streamWorker, t
 }
 
 // Assembler writes the scene a stream describes to a raster.Writer. For a
-// restored stream it blends the tiles' output windows with Plan.Weights and
-// adds them in Restore's order (tile row, band, column), so the result equals
-// Restore's bit for bit; for an observed stream it copies the tile cores.
-// Tiles may arrive in any order; a tile row is written once all its tiles
-// are there (out-of-order rows wait in memory).
+// restored stream it weights the tiles' output windows (Plan.weigh) and
+// blends them with the tile pipeline's blender in Restore's order (tile row,
+// band, column), so the result equals Restore's bit for bit; for an observed
+// stream it copies the tile cores. Tiles may arrive in any order; a tile row
+// is written once all its tiles are there (out-of-order rows wait in
+// memory).
 type Assembler struct {
 	hdr      *arrowio.Header
 	plan     Plan
@@ -485,10 +402,9 @@ type Assembler struct {
 	rows     map[int][]*asmTile
 	counts   map[int]int
 	nextRow  int
-	acc      [][]float32
-	accY     int
+	blend    *blender
 	buf      [][]float32
-	wx, wy   []float32
+	wk       tileWork // blend weights
 	// Report, when set (restored streams), receives per-tile records and the
 	// per-band maximum iteration count.
 	Report *Report
@@ -513,31 +429,18 @@ func NewAssembler(h *arrowio.Header, dst raster.Writer) (*Assembler, error) {
 	}
 	a := &Assembler{hdr: h, plan: p, dst: dst, restored: h.Kind == arrowio.KindRestored, nb: len(h.Bands),
 		rows: map[int][]*asmTile{}, counts: map[int]int{}}
-	maxOut := 0
-	for i := range p.Rows {
-		maxOut = max(maxOut, a.outSpan(p.Rows, i).Len())
-	}
 	// Two strips (accumulator and write buffer) per band: refuse what a
 	// stream's header cannot honestly need on one machine.
+	maxOut := (&blender{plan: p, cores: !a.restored}).stripRows()
 	if need := 2 * int64(a.nb) * int64(p.W) * int64(maxOut) * 4; need > maxAssemblerBytes {
 		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("%d bands of a %d-pixel-wide scene in strips of %d rows need %d GiB: more than the %d GiB limit", a.nb, p.W, maxOut, need>>30, maxAssemblerBytes>>30)}
 	}
-	a.acc = make([][]float32, a.nb)
+	a.blend = newBlender(p, a.nb, !a.restored)
 	a.buf = make([][]float32, a.nb)
-	for i := range a.acc {
-		a.acc[i] = make([]float32, p.W*maxOut)
+	for i := range a.buf {
 		a.buf[i] = make([]float32, p.W*maxOut)
 	}
 	return a, nil
-}
-
-// outSpan: a restored tile contributes its blended output window, an
-// observed tile its core.
-func (a *Assembler) outSpan(spans []Span, i int) Span {
-	if a.restored {
-		return a.plan.OutSpan(spans, i)
-	}
-	return spans[i]
 }
 
 // Write implements TileSink.
@@ -554,27 +457,17 @@ func (a *Assembler) Write(t *arrowio.Tile) error {
 		slots = make([]*asmTile, a.nb*len(p.Cols))
 		a.rows[t.TileRow] = slots
 	}
-	at := &asmTile{ox: a.outSpan(p.Cols, t.Col), oy: a.outSpan(p.Rows, t.TileRow), iters: t.Iterations, change: t.Change}
-	ow, oh := at.ox.Len(), at.oy.Len()
-	at.out = make([]float32, ow*oh)
-	x0, y0 := at.ox.Start-t.X, at.oy.Start-t.Y
+	at := &asmTile{iters: t.Iterations, change: t.Change}
+	pix := window{pix: t.Pix, x: t.X, y: t.Y, w: t.W}
 	if a.restored {
-		a.wx = grow(a.wx, ow)
-		a.wy = grow(a.wy, oh)
-		p.Weights(a.wx, p.Cols, t.Col)
-		p.Weights(a.wy, p.Rows, t.TileRow)
-		for y := 0; y < oh; y++ {
-			frow := t.Pix[(y0+y)*t.W+x0:]
-			orow := at.out[y*ow : (y+1)*ow]
-			wy := a.wy[y]
-			for x := range orow {
-				// Same expression and rounding as Restore's solveTile.
-				orow[x] = float32(wy * a.wx[x] * frow[x])
-			}
-		}
+		// The stream carries f + bg: weigh it with a zero background.
+		at.out, at.ox, at.oy = p.weigh(nil, &a.wk, TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}, pix, 0)
 	} else {
+		at.ox, at.oy = p.Cols[t.Col], p.Rows[t.TileRow]
+		ow, oh := at.ox.Len(), at.oy.Len()
+		at.out = make([]float32, ow*oh)
 		for y := 0; y < oh; y++ {
-			copy(at.out[y*ow:(y+1)*ow], t.Pix[(y0+y)*t.W+x0:])
+			copy(at.out[y*ow:(y+1)*ow], t.Pix[(at.oy.Start+y-t.Y)*t.W+at.ox.Start-t.X:])
 		}
 	}
 	slots[t.Band*len(p.Cols)+t.Col] = at
@@ -590,54 +483,29 @@ func (a *Assembler) Write(t *arrowio.Tile) error {
 	return nil
 }
 
-// flushRow adds a complete tile row into the accumulator in (band, column)
-// order and writes the rows no later tile row touches (as Restore's
-// blendAndWrite does).
+// flushRow adds a complete tile row into the blender in (band, column)
+// order and writes the rows no later tile row touches.
 func (a *Assembler) flushRow(row int) error {
 	p := a.plan
 	W := p.W
 	for i, s := range a.rows[row] {
 		b, col := i/len(p.Cols), i%len(p.Cols)
-		acc := a.acc[b]
-		ow := s.ox.Len()
-		for y := 0; y < s.oy.Len(); y++ {
-			arow := acc[(s.oy.Start+y-a.accY)*W+s.ox.Start:]
-			orow := s.out[y*ow : (y+1)*ow]
-			if a.restored {
-				for x, v := range orow {
-					arow[x] += v
-				}
-			} else {
-				copy(arow[:ow], orow)
-			}
-		}
+		a.blend.add(b, s.ox, s.oy, s.out)
 		if a.Report != nil {
 			br := &a.Report.Bands[b]
 			br.Tiles = append(br.Tiles, TileReport{Col: col, Row: row, Iterations: s.iters, Change: s.change})
 			br.MaxIterations = max(br.MaxIterations, s.iters)
 		}
 	}
-	last := row == len(p.Rows)-1
-	end := p.Rows[row].End
-	if !last && a.restored {
-		end -= p.Blend
-	}
-	n := end - a.accY
+	end := a.blend.rowEnd(row)
+	n := end - a.blend.y
 	for b := 0; b < a.nb; b++ {
-		copy(a.buf[b][:n*W], a.acc[b][:n*W])
+		copy(a.buf[b][:n*W], a.blend.acc[b][:n*W])
 	}
-	if err := a.dst.WriteRows(a.accY, end, a.buf); err != nil {
+	if err := a.dst.WriteRows(a.blend.y, end, a.buf); err != nil {
 		return err
 	}
-	for b := 0; b < a.nb; b++ {
-		acc := a.acc[b]
-		rest := len(acc)/W - n
-		copy(acc[:rest*W], acc[n*W:])
-		for i := rest * W; i < len(acc); i++ {
-			acc[i] = 0
-		}
-	}
-	a.accY = end
+	a.blend.shift(n)
 	return nil
 }
 

@@ -215,7 +215,7 @@ func TestRestoreTileUncertainty(t *testing.T) {
 		tl.Pix[i] = 10
 	}
 	tl.Pix[7] = float32(math.NaN())
-	wk := &streamWorker{}
+	wk := &tileWork{}
 	valid := makeValid(0, false, 0, false)
 	if err := restoreTile(context.Background(), seSolver{}, p, wk, tl, valid, 2); err != nil {
 		t.Fatal(err)

@@ -10,64 +10,51 @@ import "math"
 // blending ramp it dips below either tile's SE, as averaging two independent
 // estimates does.
 
-// weightSE stores w^2 se^2 of the tile's output window in the slot.
-func (r *runner) weightSE(wk *worker, s *slot, res Result, tw, x0, y0 int) {
-	ow, oh := s.ox.Len(), s.oy.Len()
-	s.seOut = grow(s.seOut, ow*oh)
+// weighSE returns w^2 se^2 over a tile's output window ox x oy (ow x oh),
+// grown into out, with se read from the window it covers and the weights
+// Plan.weigh left in wk; zeros when the solver reported no standard error.
+func weighSE(out []float32, wk *tileWork, res Result, ow, oh int, se window, ox, oy Span) []float32 {
+	out = grow(out, ow*oh)
 	for y := 0; y < oh; y++ {
-		orow := s.seOut[y*ow : (y+1)*ow]
+		orow := out[y*ow : (y+1)*ow]
 		if !res.HasSE {
 			clear(orow)
 			continue
 		}
-		serow := wk.se[(y0+y)*tw+x0:]
+		serow := se.pix[(oy.Start+y-se.y)*se.w+ox.Start-se.x:]
 		wy := wk.wy[y]
 		for x := range orow {
 			w := wy * wk.wx[x]
 			orow[x] = w * w * serow[x] * serow[x]
 		}
 	}
-}
-
-// blendSE adds a slot's w^2 se^2 into the standard-error accumulator.
-func (r *runner) blendSE(s *slot) {
-	acc := r.accSE[s.key.Band]
-	W := r.plan.W
-	ow := s.ox.Len()
-	for y := 0; y < s.oy.Len(); y++ {
-		arow := acc[(s.oy.Start+y-r.accY)*W+s.ox.Start:]
-		orow := s.seOut[y*ow : (y+1)*ow]
-		for x, v := range orow {
-			arow[x] += v
-		}
-	}
+	return out
 }
 
 // outputSE turns the first n accumulated rows into standard errors (NaN on
-// invalid pixels) and adds them to the report's sums.
-func (r *runner) outputSE(n, cur int) [][]float32 {
-	W := r.plan.W
-	bufs := <-r.freeSE
+// invalid pixels of strip st) and adds them to the report's sums.
+func (sc *scan) outputSE(n int, st *strip) [][]float32 {
+	W := sc.plan.W
+	bufs := <-sc.out.freeSE
 	for b := range bufs {
-		acc, img := r.accSE[b][:n*W], r.acc[b][:n*W]
+		acc, img := sc.blendSE.acc[b][:n*W], sc.blend.acc[b][:n*W]
 		out := bufs[b][:n*W]
-		bg := r.rep.Bands[b].Background
+		bg := sc.rep.Bands[b].Background
 		for y := 0; y < n; y++ {
-			sy := r.accY + y - r.stripYs[cur]
-			srow := r.strips[cur][b][sy*W : (sy+1)*W]
+			sy := sc.blend.y + y - st.y
+			srow := st.rows[b][sy*W : (sy+1)*W]
 			for x, v := range srow {
 				i := y*W + x
-				if r.valid[b](v) {
+				if sc.valid[b](v) {
 					se := float32(math.Sqrt(float64(max(acc[i], 0))))
 					out[i] = se
-					r.seSum[b] += float64(se)
-					r.seFlux[b] += float64(img[i]) - bg
+					sc.seSum[b] += float64(se)
+					sc.seFlux[b] += float64(img[i]) - bg
 				} else {
-					out[i] = float32(math.NaN())
+					out[i] = nan
 				}
 			}
 		}
-		bufs[b] = bufs[b][:cap(bufs[b])]
 	}
 	return bufs
 }

@@ -1,0 +1,322 @@
+package step
+
+import (
+	"context"
+	"errors"
+	"math"
+	"sync"
+
+	"limpid/raster"
+)
+
+// The one tile pipeline. Both routes, the raster route (Restore and its
+// noise and choice passes) and the tile-stream route (RestoreTiles, then
+// Assembler), cut the same Problems with Plan.problem, run them through
+// runOrdered's worker pool under one first-error rule, and blend the
+// weighted output windows (Plan.weigh) with one blender in one order: tile
+// row, band, column. Their outputs are therefore equal bit for bit by
+// construction.
+
+// window is a block of one band's scene pixels: pix holds rows y, y+1, ...
+// of columns [x, x+w) (row stride w).
+type window struct {
+	pix     []float32
+	x, y, w int
+}
+
+// tileWork is one worker's reusable memory: the solver's workspace and the
+// tile buffers. It grows to the largest tile and is never shared.
+type tileWork struct {
+	ws             Workspace
+	d, mask, f, se []float32
+	wx, wy         []float32
+}
+
+// problem copies tile key's input window (Plan.InSpan, mirrored at the scene
+// edges) out of src into wk.d and wk.mask and returns the tile's Problem.
+// valid decides the mask; bg is the band's background.
+func (p Plan) problem(wk *tileWork, key TileKey, src window, valid validFn, bg float32) *Problem {
+	ix, iy := p.InSpan(p.Cols, key.Col), p.InSpan(p.Rows, key.Row)
+	tw, th := ix.Len(), iy.Len()
+	n := tw * th
+	wk.d = grow(wk.d, n)
+	wk.mask = grow(wk.mask, n)
+	wk.f = grow(wk.f, n)
+	for y := 0; y < th; y++ {
+		sy := raster.Mirror(iy.Start+y, p.H) - src.y
+		srow := src.pix[sy*src.w : (sy+1)*src.w]
+		drow := wk.d[y*tw : (y+1)*tw]
+		mrow := wk.mask[y*tw : (y+1)*tw]
+		for x := 0; x < tw; x++ {
+			v := srow[raster.Mirror(ix.Start+x, p.W)-src.x]
+			drow[x] = v
+			if valid(v) {
+				mrow[x] = 1
+			} else {
+				mrow[x] = 0
+			}
+		}
+	}
+	return &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: key}
+}
+
+// weigh writes tile key's blend-weighted output window (OutSpan x OutSpan,
+// row-major) into out, grown as needed: w_y w_x (f + bg), with f read from
+// the window f covers. wk holds the weights afterwards (weighSE reuses them).
+func (p Plan) weigh(out []float32, wk *tileWork, key TileKey, f window, bg float32) (_ []float32, ox, oy Span) {
+	ox, oy = p.OutSpan(p.Cols, key.Col), p.OutSpan(p.Rows, key.Row)
+	ow, oh := ox.Len(), oy.Len()
+	out = grow(out, ow*oh)
+	wk.wx = grow(wk.wx, ow)
+	wk.wy = grow(wk.wy, oh)
+	p.Weights(wk.wx, p.Cols, key.Col)
+	p.Weights(wk.wy, p.Rows, key.Row)
+	for y := 0; y < oh; y++ {
+		frow := f.pix[(oy.Start+y-f.y)*f.w+ox.Start-f.x:]
+		orow := out[y*ow : (y+1)*ow]
+		wy := wk.wy[y]
+		for x := range orow {
+			orow[x] = wy * wk.wx[x] * (frow[x] + bg)
+		}
+	}
+	return out, ox, oy
+}
+
+// blender adds the output windows of one tile row after another into
+// per-band accumulator strips and releases the scene rows that no later
+// tile row touches. Windows must be added in (tile row, band, column) order
+// for the sums to be the same bits on every route.
+type blender struct {
+	plan  Plan
+	cores bool        // observed streams: tiles give their cores, copied
+	acc   [][]float32 // per band, scene rows [y, y + len/W)
+	y     int
+}
+
+// newBlender allocates nb accumulator strips for plan. With cores, each
+// tile contributes its core (no blending).
+func newBlender(plan Plan, nb int, cores bool) *blender {
+	b := &blender{plan: plan, cores: cores, acc: make([][]float32, nb)}
+	rows := b.stripRows()
+	for i := range b.acc {
+		b.acc[i] = make([]float32, plan.W*rows)
+	}
+	return b
+}
+
+// stripRows is the height of the accumulator strips: the tallest output
+// window.
+func (b *blender) stripRows() int {
+	n := 0
+	for i := range b.plan.Rows {
+		n = max(n, b.span(b.plan.Rows, i).Len())
+	}
+	return n
+}
+
+// span is the window tile i contributes along one axis.
+func (b *blender) span(spans []Span, i int) Span {
+	if b.cores {
+		return spans[i]
+	}
+	return b.plan.OutSpan(spans, i)
+}
+
+// add adds (or, for cores, copies) a tile's window out (ox x oy) into band's
+// accumulator.
+func (b *blender) add(band int, ox, oy Span, out []float32) {
+	acc := b.acc[band]
+	W := b.plan.W
+	ow := ox.Len()
+	for y := 0; y < oy.Len(); y++ {
+		arow := acc[(oy.Start+y-b.y)*W+ox.Start:]
+		orow := out[y*ow : (y+1)*ow]
+		if b.cores {
+			copy(arow[:ow], orow)
+			continue
+		}
+		for x, v := range orow {
+			arow[x] += v
+		}
+	}
+}
+
+// rowEnd is the end of the scene rows complete once tile row `row` is
+// added: the row's core end, less the blend ramp that the next tile row
+// still adds to.
+func (b *blender) rowEnd(row int) int {
+	end := b.plan.Rows[row].End
+	if row < len(b.plan.Rows)-1 && !b.cores {
+		end -= b.plan.Blend
+	}
+	return end
+}
+
+// shift drops the first n accumulated rows (written by the caller) and
+// carries the rest to the top of the strips.
+func (b *blender) shift(n int) {
+	W := b.plan.W
+	for _, acc := range b.acc {
+		rest := len(acc)/W - n
+		copy(acc[:rest*W], acc[n*W:])
+		clear(acc[rest*W:])
+	}
+	b.y += n
+}
+
+// runOrdered is the tile pipeline's one worker pool. produce runs on the
+// calling goroutine and returns the next job (false at the end); solve runs
+// on one of workers goroutines, each with its own tileWork; finish receives
+// every produced job in production order on one goroutine, with failed set
+// once the run has failed (it must then only release the job's resources).
+// At most inflight jobs are between produce and finish.
+//
+// The error rule: the first failure in production order wins, a real
+// failure before the cancellations it caused; it cancels the rest. When only
+// cancellations remain and the caller's context is done, its error is
+// returned.
+func runOrdered[J any](ctx context.Context, workers, inflight int,
+	produce func(ctx context.Context) (J, bool, error),
+	solve func(ctx context.Context, wk *tileWork, j J) error,
+	finish func(j J, failed bool) error) error {
+	run, cancel := context.WithCancel(ctx)
+	defer cancel()
+	pl := &pipe[J]{run: run, cancel: cancel, jobs: make(chan item[J], workers), results: make(chan item[J], inflight),
+		sem: make(chan struct{}, inflight)}
+	var wg sync.WaitGroup
+	for k := 0; k < workers; k++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			pl.work(solve)
+		}()
+	}
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		pl.consume(finish)
+	}()
+	pl.feed(produce)
+	close(pl.jobs)
+	wg.Wait()
+	close(pl.results)
+	<-done
+	err := pl.fe.get()
+	if err == nil || !isCancel(err) {
+		return err
+	}
+	if ctx.Err() != nil {
+		return ctx.Err()
+	}
+	return err
+}
+
+// item is a job in the pipeline with its production number and outcome.
+type item[J any] struct {
+	seq int
+	j   J
+	err error
+}
+
+// pipe is runOrdered's state. sem holds a token per job between produce
+// and finish.
+type pipe[J any] struct {
+	run     context.Context
+	cancel  context.CancelFunc
+	jobs    chan item[J]
+	results chan item[J]
+	sem     chan struct{}
+	fe      firstErr
+}
+
+func (pl *pipe[J]) fail(seq int, err error) {
+	pl.fe.set(seq, err)
+	pl.cancel()
+}
+
+// feed produces jobs until the end, a failure or cancellation.
+func (pl *pipe[J]) feed(produce func(ctx context.Context) (J, bool, error)) {
+	for seq := 0; ; seq++ {
+		select {
+		case pl.sem <- struct{}{}:
+		case <-pl.run.Done():
+		}
+		if pl.run.Err() != nil {
+			return
+		}
+		j, ok, err := produce(pl.run)
+		if err != nil || !ok {
+			if err != nil {
+				pl.fail(seq, err)
+			}
+			<-pl.sem
+			return
+		}
+		pl.jobs <- item[J]{seq: seq, j: j}
+	}
+}
+
+// work solves jobs with one worker's memory.
+func (pl *pipe[J]) work(solve func(ctx context.Context, wk *tileWork, j J) error) {
+	wk := &tileWork{}
+	for it := range pl.jobs {
+		if it.err = pl.run.Err(); it.err == nil {
+			it.err = solve(pl.run, wk, it.j)
+		}
+		pl.results <- it
+	}
+}
+
+// consume hands solved jobs to finish in production order.
+func (pl *pipe[J]) consume(finish func(j J, failed bool) error) {
+	pending := map[int]item[J]{}
+	next := 0
+	for it := range pl.results {
+		pending[it.seq] = it
+		for r, ok := pending[next]; ok; r, ok = pending[next] {
+			delete(pending, next)
+			if r.err != nil {
+				pl.fail(r.seq, r.err)
+			}
+			if err := finish(r.j, pl.fe.failed()); err != nil {
+				pl.fail(r.seq, err)
+			}
+			<-pl.sem
+			next++
+		}
+	}
+}
+
+// firstErr keeps the pipeline's first failure (runOrdered's rule).
+type firstErr struct {
+	mu  sync.Mutex
+	seq int
+	err error
+}
+
+func (f *firstErr) set(seq int, err error) {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	if f.err == nil || (isCancel(f.err) && !isCancel(err)) || (isCancel(f.err) == isCancel(err) && seq < f.seq) {
+		f.seq, f.err = seq, err
+	}
+}
+
+func (f *firstErr) failed() bool {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return f.err != nil
+}
+
+func (f *firstErr) get() error {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return f.err
+}
+
+func isCancel(err error) bool {
+	return errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded)
+}
+
+// nan is the value invalid pixels take in restored outputs.
+var nan = float32(math.NaN())
