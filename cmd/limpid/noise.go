@@ -10,7 +10,7 @@ import (
 
 	"github.com/urfave/cli/v2"
 
-	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -51,7 +51,7 @@ or override them.`,
 			if t := c.Int("tile"); t < 16 || t > 16384 {
 				return usagef("--tile %d must be between 16 and 16384", t)
 			}
-			src, err := raster.Open(path)
+			src, err := gdal.Open(path)
 			if err != nil {
 				return err
 			}

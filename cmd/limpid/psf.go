@@ -16,6 +16,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 )
 
 // psfCommand groups the PSF toolkit: build kernels from sensor models and
@@ -87,7 +88,7 @@ func psfBuild(spec, out string, stderr io.Writer) error {
 	return nil
 }
 
-func psfEnv() psf.Env { return psf.Env{LoadRaster: raster.LoadKernel} }
+func psfEnv() psf.Env { return psf.Env{LoadRaster: gdal.LoadKernel} }
 
 // writeKernel writes a kernel as a Float32 GeoTIFF (.tif, .tiff) or a text
 // matrix, through a temporary name.
@@ -101,7 +102,7 @@ func writeKernel(path string, k *psf.Kernel, spec string) error {
 		meta := raster.Meta{Width: k.W, Height: k.H, DataType: "Float32",
 			Bands:    []raster.BandInfo{{Description: "PSF weights", ColorInterp: "Gray"}},
 			Metadata: map[string]string{"LIMPID_PSF": spec, "LIMPID_PSF_CONVENTION": "pixel aperture not included; weights sum to 1"}}
-		return raster.WriteFloat32(path, meta, [][]float32{plane}, raster.WriteOptions{Format: raster.GTiff, DataType: "Float32"})
+		return gdal.WriteFloat32(path, meta, [][]float32{plane}, gdal.WriteOptions{Format: gdal.GTiff, DataType: "Float32"})
 	}
 	return writeAtomic("OUTPUT", path, func(w io.Writer) error {
 		fmt.Fprintf(w, "# limpid PSF kernel %dx%d, weights sum to 1, pixel aperture not included\n# spec: %s\n", k.W, k.H, strings.ReplaceAll(spec, "\n", " "))
@@ -359,7 +360,7 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 		defer os.Remove(p)
 		path = p
 	}
-	src, err := raster.Open(path)
+	src, err := gdal.Open(path)
 	if err != nil {
 		return err
 	}
@@ -677,7 +678,7 @@ func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
 	if in == "-" {
 		return nil, "", usagef("--psf auto measures the PSF from INPUT, which must then be a file (stdin can be read only once)")
 	}
-	src, err := raster.Open(in)
+	src, err := gdal.Open(in)
 	if err != nil {
 		return nil, "", err
 	}

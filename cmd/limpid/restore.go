@@ -18,6 +18,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -95,7 +96,7 @@ Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
 // restoreJob is the parsed command line of restore.
 type restoreJob struct {
 	in, out    string
-	format     raster.Format
+	format     gdal.Format
 	outType    string
 	bandSpec   string
 	cfg        step.Config
@@ -139,7 +140,7 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	j := &restoreJob{in: c.Args().Get(0), out: c.Args().Get(1), reportPath: c.String("report"), bandSpec: c.String("bands")}
 	switch f := c.String("format"); f {
 	case "gtiff", "cog":
-		j.format = raster.Format(f)
+		j.format = gdal.Format(f)
 	default:
 		return nil, usagef("--format %q: use gtiff or cog", f)
 	}
@@ -384,7 +385,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 		defer os.Remove(p)
 		inPath = p
 	}
-	src, err := raster.Open(inPath)
+	src, err := gdal.Open(inPath)
 	if err != nil {
 		if j.in == "-" {
 			return nil, usagef("INPUT - (stdin) is not a raster GDAL can read")
@@ -398,12 +399,12 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 		return nil, err
 	}
 	om := outputMeta(meta, bands, j)
-	wopts := raster.WriteOptions{Format: j.format, DataType: om.DataType}
+	wopts := gdal.WriteOptions{Format: j.format, DataType: om.DataType}
 	wopts.NoData, wopts.HasNoData = outputNoData(meta, bands, j)
 	if j.out == "-" {
 		wopts.Stdout = stdout
 	}
-	dst, err := raster.Create(j.out, om, wopts)
+	dst, err := gdal.Create(j.out, om, wopts)
 	if err != nil {
 		return nil, err
 	}
@@ -535,7 +536,7 @@ func writeJSON(flag, path string, v any) error {
 }
 
 // recordProcessing adds limpid's processing metadata to the output.
-func recordProcessing(dst *raster.GDALWriter, rep *step.Report) error {
+func recordProcessing(dst *gdal.Writer, rep *step.Report) error {
 	pm := map[string]any{
 		"smooth": rep.Smooth, "smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
 		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,

@@ -11,6 +11,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -71,8 +72,8 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	if err != nil {
 		return err
 	}
-	format := raster.Format(c.String("format"))
-	if format != raster.GTiff && format != raster.COG {
+	format := gdal.Format(c.String("format"))
+	if format != gdal.GTiff && format != gdal.COG {
 		return usagef("--format %q: use gtiff or cog", c.String("format"))
 	}
 	q := c.String("quantize")
@@ -93,7 +94,7 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 		defer os.Remove(p)
 		inPath = p
 	}
-	src, err := raster.Open(inPath)
+	src, err := gdal.Open(inPath)
 	if err != nil {
 		return err
 	}
@@ -139,11 +140,11 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 			outND = hi
 		}
 	}
-	wopts := raster.WriteOptions{Format: format, DataType: q, NoData: outND, HasNoData: outHas}
+	wopts := gdal.WriteOptions{Format: format, DataType: q, NoData: outND, HasNoData: outHas}
 	if out == "-" {
 		wopts.Stdout = stdout
 	}
-	dst, err := raster.Create(out, om, wopts)
+	dst, err := gdal.Create(out, om, wopts)
 	if err != nil {
 		return err
 	}
