@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bufio"
 	"fmt"
 	"io"
 	"math"
@@ -117,38 +116,6 @@ func writeKernel(path string, k *psf.Kernel, spec string) error {
 		}
 		return nil
 	})
-}
-
-// writeAtomic writes a file under path+".tmp" and renames it into place.
-func writeAtomic(what, path string, fill func(io.Writer) error) error {
-	tmp := path + ".tmp"
-	f, err := os.Create(tmp)
-	if err != nil {
-		return usagef("%s %s: cannot create: %v", what, path, unwrapPath(err))
-	}
-	bw := bufio.NewWriter(f)
-	err = fill(bw)
-	if err == nil {
-		err = bw.Flush()
-	}
-	if cerr := f.Close(); err == nil {
-		err = cerr
-	}
-	if err == nil {
-		err = os.Rename(tmp, path)
-	}
-	if err != nil {
-		os.Remove(tmp)
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	return nil
-}
-
-func unwrapPath(err error) error {
-	if pe, ok := err.(*os.PathError); ok {
-		return pe.Err
-	}
-	return err
 }
 
 // mtfSamples is the number of frequencies of the CSV curves (0 to Nyquist).
@@ -351,15 +318,11 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 			return usagef("--csv %s: directory %s does not exist", p, filepath.Dir(p+"_x"))
 		}
 	}
-	path := in
-	if in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return err
-		}
-		defer os.Remove(p)
-		path = p
+	path, done, err := spoolInput(in, stdin)
+	if err != nil {
+		return err
 	}
+	defer done()
 	src, err := gdal.Open(path)
 	if err != nil {
 		return err

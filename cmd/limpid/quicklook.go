@@ -8,7 +8,6 @@ import (
 	"image/draw"
 	"image/png"
 	"math"
-	"os"
 	"sort"
 	"strings"
 
@@ -226,20 +225,6 @@ func encodePNG(img image.Image) ([]byte, error) {
 		return nil, err
 	}
 	return b.Bytes(), nil
-}
-
-// writeFileAtomic writes data under a temporary name in path's directory,
-// then renames it.
-func writeFileAtomic(flag, path string, data []byte) error {
-	tmp := path + ".tmp"
-	if err := os.WriteFile(tmp, data, 0o644); err != nil {
-		return fmt.Errorf("%s %s: %w", flag, path, err)
-	}
-	if err := os.Rename(tmp, path); err != nil {
-		os.Remove(tmp)
-		return fmt.Errorf("%s %s: %w", flag, path, err)
-	}
-	return nil
 }
 
 // cropScene reads the centre crop (at most qlCrop square) of the observed

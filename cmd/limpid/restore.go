@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"encoding/json"
-	"errors"
 	"fmt"
 	"io"
 	"math"
@@ -315,28 +314,6 @@ func checkPaths(in, out string) error {
 	return nil
 }
 
-// spoolStdin copies stdin to a temporary file (GDAL's stdin reader cannot
-// seek) and returns its path.
-func spoolStdin(stdin io.Reader) (string, error) {
-	f, err := os.CreateTemp("", "limpid-stdin-*")
-	if err != nil {
-		return "", err
-	}
-	n, err := io.Copy(f, stdin)
-	if cerr := f.Close(); err == nil {
-		err = cerr
-	}
-	if err != nil {
-		os.Remove(f.Name())
-		return "", fmt.Errorf("reading stdin: %w", err)
-	}
-	if n == 0 {
-		os.Remove(f.Name())
-		return "", usagef("INPUT -: stdin is empty")
-	}
-	return f.Name(), nil
-}
-
 func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
 	j, err := parseJob(c)
 	if err != nil {
@@ -376,23 +353,13 @@ type fullReport struct {
 }
 
 func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, stderr io.Writer) (*step.Report, error) {
-	inPath := j.in
-	if j.in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return nil, err
-		}
-		defer os.Remove(p)
-		inPath = p
-	}
-	src, err := gdal.Open(inPath)
+	src, done, err := openRaster(j.in, stdin)
 	if err != nil {
-		if j.in == "-" {
-			return nil, usagef("INPUT - (stdin) is not a raster GDAL can read")
-		}
 		return nil, err
 	}
+	defer done()
 	defer src.Close()
+	inPath := src.Path()
 	meta := src.Meta()
 	bands, err := parseBands(j.bandSpec, len(meta.Bands))
 	if err != nil {
@@ -521,18 +488,6 @@ func outputNoData(meta raster.Meta, bands []int, j *restoreJob) (float64, bool) 
 		return hi, true
 	}
 	return math.NaN(), true
-}
-
-func writeJSON(flag, path string, v any) error {
-	b, err := json.MarshalIndent(v, "", "  ")
-	if err != nil {
-		return fmt.Errorf("%s %s: %v", flag, path, err)
-	}
-	tmp := path + ".tmp"
-	if err := os.WriteFile(tmp, append(b, '\n'), 0o644); err != nil {
-		return usagef("%s %s: %v", flag, path, errors.Unwrap(err))
-	}
-	return os.Rename(tmp, path)
 }
 
 // recordProcessing adds limpid's processing metadata to the output.

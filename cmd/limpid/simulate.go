@@ -4,7 +4,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"strings"
 
 	"github.com/urfave/cli/v2"
@@ -85,15 +84,11 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	if err := checkPaths(in, out); err != nil {
 		return err
 	}
-	inPath := in
-	if in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return err
-		}
-		defer os.Remove(p)
-		inPath = p
+	inPath, done, err := spoolInput(in, stdin)
+	if err != nil {
+		return err
 	}
+	defer done()
 	src, err := gdal.Open(inPath)
 	if err != nil {
 		return err

@@ -104,30 +104,6 @@ func checkCompress(s string) error {
 	return usagef("--compress %q: use none, zstd or lz4", s)
 }
 
-// openRaster opens a raster INPUT (stdin is spooled to a temporary file);
-// cleanup removes the spool.
-func openRaster(in string, stdin io.Reader) (*gdal.Reader, func(), error) {
-	path := in
-	cleanup := func() {}
-	if in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return nil, cleanup, err
-		}
-		cleanup = func() { os.Remove(p) }
-		path = p
-	}
-	src, err := gdal.Open(path)
-	if err != nil {
-		cleanup()
-		if in == "-" {
-			return nil, func() {}, usagef("INPUT - (stdin) is not a raster GDAL can read")
-		}
-		return nil, func() {}, err
-	}
-	return src, cleanup, nil
-}
-
 // openStream opens a tile-stream INPUT and reads its schema.
 func openStream(in string, stdin io.Reader) (*arrowio.Reader, func(), error) {
 	var r io.Reader

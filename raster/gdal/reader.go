@@ -117,5 +117,9 @@ func (r *Reader) ReadRows(y0, y1 int, bands []int, dst [][]float32) error {
 	return nil
 }
 
+// Path returns the path the reader was opened with (a spooled stdin's
+// temporary file, for instance).
+func (r *Reader) Path() string { return r.name }
+
 // Close releases the dataset.
 func (r *Reader) Close() error { return r.ds.Close() }
