@@ -32,6 +32,7 @@ demo: build
 test: deps
 	@test -z "$$(gofmt -l $$(git ls-files '*.go' 2>/dev/null || find . -name '*.go'))" || { echo "gofmt needed:"; gofmt -l .; exit 1; }
 	$(GO) vet ./...
+	CGO_ENABLED=0 $(GO) vet ./step/... ./psf/... ./arrowio/... ./raster
 	$(GO) test -race -count=1 ./...
 	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s ./arrowio
 

@@ -253,9 +253,12 @@ func fillTile(b *array.RecordBuilder, t *Tile, pix []float32) {
 	}
 }
 
-// Source: the issue's list of bad streams; each must give one error that
-// matches ErrStream and names the batch (or the schema) and the column.
+// Source: the tile-stream contract (README.md "Arrow tile streams") and the
+// Apache Arrow IPC format (stream versus file format, encapsulated messages,
+// end-of-stream marker); each bad stream must give one error that matches
+// ErrStream and names the batch (or the schema) and the column.
 // Checked allocators: no buffer may leak on any error path.
+// Over 80 lines: one table row per bad stream, kept together on purpose.
 func TestBadStreams(t *testing.T) {
 	good := func(mem memory.Allocator) []byte {
 		h := testHeader(KindObserved)
@@ -355,8 +358,9 @@ func TestBadStreams(t *testing.T) {
 	}
 }
 
-// Source: the issue (a null in a non-nullable column is refused, naming the
-// batch and column); built with the reference library's builders.
+// Source: the tile-stream contract (README.md "Arrow tile streams": every
+// column is non-null unless said; a null is refused, naming the batch and
+// column); built with the reference library's builders.
 func TestNullColumn(t *testing.T) {
 	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
 	defer mem.AssertSize(t, 0)
@@ -391,8 +395,10 @@ func TestEmptyStream(t *testing.T) {
 	}
 }
 
-// Source: the issue (after a failure the writer adds nothing: no partial
-// batch, no end-of-stream marker; a strict reader reports truncation).
+// Source: the Writer contract (arrowio/doc.go: after a failure Abandon adds
+// nothing, no partial batch, no end-of-stream marker) and the Arrow IPC
+// streaming format (a stream without its end-of-stream marker is truncated,
+// so a strict reader reports it).
 func TestAbandon(t *testing.T) {
 	mem := memory.NewCheckedAllocator(memory.NewGoAllocator())
 	defer mem.AssertSize(t, 0)

@@ -92,9 +92,11 @@ const (
 var ErrStream = errors.New("bad tile stream")
 
 // StreamError locates a problem in a stream, like encoding/csv's ParseError.
-// Batch is 1-based (0 = the schema message or the stream as a whole); Row is
-// the 0-based row within the batch (-1 when not about a row); Column is ""
-// when the problem is not about one column.
+// Batch is 1-based; 0 means the schema message (or, before any message was
+// read, the input itself: empty, not Arrow) and -1 the stream as a whole
+// (its end: a missing end-of-stream marker, data after it). Row is the
+// 0-based row within the batch (-1 when not about a row); Column is "" when
+// the problem is not about one column.
 type StreamError struct {
 	Batch  int
 	Row    int
@@ -374,82 +376,135 @@ func (h *Header) check() error {
 
 var dataTypes = map[string]bool{"Byte": true, "Int8": true, "UInt16": true, "Int16": true, "UInt32": true, "Int32": true, "Float32": true, "Float64": true}
 
-// decodeMetadata reads a Header from schema metadata.
+// decodeMetadata reads a Header from schema metadata: the contract version
+// first, then the keys in a fixed order (so that a stream with several
+// problems always gets the same message), then the header's own checks.
 func decodeMetadata(md arrow.Metadata) (*Header, error) {
-	get := func(k string) (string, error) {
-		i := md.FindKey(k)
-		if i < 0 {
-			return "", schemaErrorf("", "metadata key %s is missing", k)
-		}
-		return md.Values()[i], nil
-	}
-	getInt := func(k string) (int, error) {
-		s, err := get(k)
-		if err != nil {
-			return 0, err
-		}
-		v, err := strconv.ParseInt(s, 10, 64)
-		if err != nil || v < math.MinInt32 || v > math.MaxInt32 {
-			return 0, schemaErrorf("", "metadata %s is %q, want an integer", k, clip(s))
-		}
-		return int(v), nil
-	}
-	v, err := get(KeyContract)
-	if err != nil {
-		return nil, schemaErrorf("", "metadata key %s is missing: not a limpid tile stream", KeyContract)
-	}
-	if v != ContractVersion {
-		return nil, schemaErrorf("", "metadata %s is %q; this limpid reads version %s", KeyContract, clip(v), ContractVersion)
+	m := metaReader{md}
+	if err := m.contract(); err != nil {
+		return nil, err
 	}
 	h := &Header{}
-	if h.Kind, err = get(KeyKind); err != nil {
+	if err := m.scene(h); err != nil {
 		return nil, err
 	}
-	if h.SceneID, err = get(KeySceneID); err != nil {
+	if err := m.georeferencing(h); err != nil {
 		return nil, err
 	}
-	if h.Width, err = getInt(KeySceneWidth); err != nil {
-		return nil, err
-	}
-	if h.Height, err = getInt(KeySceneHeight); err != nil {
-		return nil, err
-	}
-	if h.Tile, err = getInt(KeyTileSize); err != nil {
-		return nil, err
-	}
-	if h.Overlap, err = getInt(KeyOverlap); err != nil {
-		return nil, err
-	}
-	if h.DataType, err = get(KeyDataType); err != nil {
-		return nil, err
-	}
-	if h.Geo.WKT, err = get(KeyCRS); err != nil {
-		return nil, err
-	}
-	gt, err := get(KeyGeoTransform)
+	bands, err := m.bands(h)
 	if err != nil {
 		return nil, err
+	}
+	if err := m.datasetMetadata(h); err != nil {
+		return nil, err
+	}
+	if h.Kind == KindRestored {
+		if err := m.restoration(h, bands); err != nil {
+			return nil, err
+		}
+	}
+	if err := h.check(); err != nil {
+		return nil, err
+	}
+	return h, nil
+}
+
+// metaReader reads the values of schema metadata keys; its errors name the
+// key.
+type metaReader struct{ md arrow.Metadata }
+
+func (m metaReader) get(k string) (string, error) {
+	i := m.md.FindKey(k)
+	if i < 0 {
+		return "", schemaErrorf("", "metadata key %s is missing", k)
+	}
+	return m.md.Values()[i], nil
+}
+
+// getInt reads an integer that fits in an int32 (the contract's columns).
+func (m metaReader) getInt(k string) (int, error) {
+	s, err := m.get(k)
+	if err != nil {
+		return 0, err
+	}
+	v, err := strconv.ParseInt(s, 10, 64)
+	if err != nil || v < math.MinInt32 || v > math.MaxInt32 {
+		return 0, schemaErrorf("", "metadata %s is %q, want an integer", k, clip(s))
+	}
+	return int(v), nil
+}
+
+// contract checks that the stream is a limpid tile stream of the version
+// this package reads.
+func (m metaReader) contract() error {
+	v, err := m.get(KeyContract)
+	if err != nil {
+		return schemaErrorf("", "metadata key %s is missing: not a limpid tile stream", KeyContract)
+	}
+	if v != ContractVersion {
+		return schemaErrorf("", "metadata %s is %q; this limpid reads version %s", KeyContract, clip(v), ContractVersion)
+	}
+	return nil
+}
+
+// scene reads the stream kind, the scene's identity and size, the tiling
+// and the source data type.
+func (m metaReader) scene(h *Header) error {
+	var err error
+	if h.Kind, err = m.get(KeyKind); err != nil {
+		return err
+	}
+	if h.SceneID, err = m.get(KeySceneID); err != nil {
+		return err
+	}
+	for _, p := range []struct {
+		k string
+		v *int
+	}{{KeySceneWidth, &h.Width}, {KeySceneHeight, &h.Height}, {KeyTileSize, &h.Tile}, {KeyOverlap, &h.Overlap}} {
+		if *p.v, err = m.getInt(p.k); err != nil {
+			return err
+		}
+	}
+	h.DataType, err = m.get(KeyDataType)
+	return err
+}
+
+// georeferencing reads the CRS, the geotransform and the scene's nodata.
+func (m metaReader) georeferencing(h *Header) error {
+	var err error
+	if h.Geo.WKT, err = m.get(KeyCRS); err != nil {
+		return err
+	}
+	gt, err := m.get(KeyGeoTransform)
+	if err != nil {
+		return err
 	}
 	if gt != "" {
 		var t []float64
 		if err := json.Unmarshal([]byte(gt), &t); err != nil || len(t) != 6 {
-			return nil, schemaErrorf("", "metadata %s is %q, want a JSON array of 6 numbers or empty", KeyGeoTransform, clip(gt))
+			return schemaErrorf("", "metadata %s is %q, want a JSON array of 6 numbers or empty", KeyGeoTransform, clip(gt))
 		}
 		copy(h.Geo.Transform[:], t)
 		h.Geo.HasTransform = true
 	}
-	nd, err := get(KeyNoData)
+	nd, err := m.get(KeyNoData)
 	if err != nil {
-		return nil, err
+		return err
 	}
 	if nd != "none" {
 		f, err := strconv.ParseFloat(nd, 64)
 		if err != nil {
-			return nil, schemaErrorf("", "metadata %s is %q, want a number or none", KeyNoData, clip(nd))
+			return schemaErrorf("", "metadata %s is %q, want a number or none", KeyNoData, clip(nd))
 		}
 		h.NoData, h.HasNoData = f, true
 	}
-	bs, err := get(KeyBands)
+	return nil
+}
+
+// bands reads the band list into h.Bands and returns it as written, for the
+// restored streams' background check.
+func (m metaReader) bands(h *Header) ([]bandJSON, error) {
+	bs, err := m.get(KeyBands)
 	if err != nil {
 		return nil, err
 	}
@@ -474,37 +529,45 @@ func decodeMetadata(md arrow.Metadata) (*Header, error) {
 		}
 		h.Bands = append(h.Bands, b)
 	}
-	dm, err := get(KeyDatasetMetadata)
+	return bands, nil
+}
+
+// datasetMetadata reads the scene's dataset metadata (an empty map when the
+// JSON is null).
+func (m metaReader) datasetMetadata(h *Header) error {
+	dm, err := m.get(KeyDatasetMetadata)
 	if err != nil {
-		return nil, err
+		return err
 	}
 	if err := json.Unmarshal([]byte(dm), &h.Metadata); err != nil {
-		return nil, schemaErrorf("", "metadata %s is not a JSON object of strings: %v", KeyDatasetMetadata, err)
+		return schemaErrorf("", "metadata %s is not a JSON object of strings: %v", KeyDatasetMetadata, err)
 	}
 	if h.Metadata == nil {
 		h.Metadata = map[string]string{}
 	}
-	if h.Kind == KindRestored {
-		r := &Restoration{}
-		for _, p := range []struct {
-			k string
-			v *string
-		}{{KeySoftwareVersion, &r.SoftwareVersion}, {KeyMethod, &r.Method}, {KeyPSF, &r.PSF}, {KeyParameters, &r.Parameters}} {
-			if *p.v, err = get(p.k); err != nil {
-				return nil, err
-			}
-		}
-		h.Restored = r
-		for i, bj := range bands {
-			if bj.Background == nil {
-				return nil, schemaErrorf("", "metadata %s entry %d has no background (restored stream)", KeyBands, i+1)
-			}
+	return nil
+}
+
+// restoration reads a restored stream's record and checks that every band
+// has its background.
+func (m metaReader) restoration(h *Header, bands []bandJSON) error {
+	r := &Restoration{}
+	for _, p := range []struct {
+		k string
+		v *string
+	}{{KeySoftwareVersion, &r.SoftwareVersion}, {KeyMethod, &r.Method}, {KeyPSF, &r.PSF}, {KeyParameters, &r.Parameters}} {
+		var err error
+		if *p.v, err = m.get(p.k); err != nil {
+			return err
 		}
 	}
-	if err := h.check(); err != nil {
-		return nil, err
+	h.Restored = r
+	for i, bj := range bands {
+		if bj.Background == nil {
+			return schemaErrorf("", "metadata %s entry %d has no background (restored stream)", KeyBands, i+1)
+		}
 	}
-	return h, nil
+	return nil
 }
 
 // clip shortens a quoted value for an error line.

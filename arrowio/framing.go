@@ -68,7 +68,8 @@ func (m *msgReader) Release() {
 	}
 }
 
-// where names the message being read for errors: the schema, or the batch.
+// fail records and returns an error about the message being read: the
+// schema (Batch 0) while no message has been read, else the next record batch.
 func (m *msgReader) fail(format string, a ...any) error {
 	e := &StreamError{Batch: m.batches + 1, Row: -1, Err: fmt.Errorf(format, a...)}
 	if m.messages == 0 {
@@ -78,6 +79,11 @@ func (m *msgReader) fail(format string, a ...any) error {
 	return e
 }
 
+// Message implements ipc.MessageReader: it reads one encapsulated message
+// (continuation marker, metadata size, flatbuffer metadata, body; Apache
+// Arrow columnar format, "Encapsulated message format"), checking each part
+// before it sizes a buffer from it. It returns io.EOF at the end-of-stream
+// marker.
 func (m *msgReader) Message() (*ipc.Message, error) {
 	if m.err != nil {
 		return nil, m.err
@@ -86,45 +92,76 @@ func (m *msgReader) Message() (*ipc.Message, error) {
 		m.msg.Release()
 		m.msg = nil
 	}
+	size, err := m.readPrefix()
+	if err != nil {
+		return nil, err
+	}
+	meta, kind, bodyLen, err := m.readMetadata(size)
+	if err != nil {
+		return nil, err
+	}
+	body, err := m.readBody(bodyLen)
+	if err != nil {
+		return nil, err
+	}
+	m.msg = ipc.NewMessage(memory.NewBufferBytes(meta), body)
+	body.Release()
+	m.messages++
+	if kind == ipc.MessageRecordBatch {
+		m.batches++
+	}
+	return m.msg, nil
+}
+
+// readPrefix reads the continuation marker and the metadata size. At the
+// end-of-stream marker (size 0) it notes eos and returns io.EOF.
+func (m *msgReader) readPrefix() (int32, error) {
 	var pre [8]byte
 	n, err := io.ReadFull(m.r, pre[:4])
 	switch {
 	case n == 0 && errors.Is(err, io.EOF):
 		if m.messages == 0 {
-			return nil, m.fail("the input is empty (expected an Arrow IPC stream)")
+			return 0, m.fail("the input is empty (expected an Arrow IPC stream)")
 		}
-		return nil, m.fail("the stream ends without the end-of-stream marker (truncated)")
+		return 0, m.fail("the stream ends without the end-of-stream marker (truncated)")
 	case err != nil && (errors.Is(err, io.EOF) || errors.Is(err, io.ErrUnexpectedEOF)):
-		return nil, m.fail("the stream is truncated inside a message header")
+		return 0, m.fail("the stream is truncated inside a message header")
 	case err != nil:
-		return nil, m.fail("reading the input: %v", err)
+		return 0, m.fail("reading the input: %v", err)
 	}
 	if binary.LittleEndian.Uint32(pre[:4]) != continuation {
 		if m.messages == 0 {
 			if k, _ := io.ReadFull(m.r, pre[4:6]); k == 2 && bytes.Equal(pre[:6], []byte("ARROW1")) {
-				return nil, m.fail("the input is an Arrow IPC file (random-access format); limpid reads the IPC stream format")
+				return 0, m.fail("the input is an Arrow IPC file (random-access format); limpid reads the IPC stream format")
 			}
-			return nil, m.fail("the input is not an Arrow IPC stream (it does not start with the IPC continuation marker)")
+			return 0, m.fail("the input is not an Arrow IPC stream (it does not start with the IPC continuation marker)")
 		}
-		return nil, m.fail("message %d does not start with the IPC continuation marker (corrupt stream)", m.messages+1)
+		return 0, m.fail("message %d does not start with the IPC continuation marker (corrupt stream)", m.messages+1)
 	}
 	if _, err := io.ReadFull(m.r, pre[4:8]); err != nil {
-		return nil, m.fail("the stream is truncated inside a message header")
+		return 0, m.fail("the stream is truncated inside a message header")
 	}
 	size := int32(binary.LittleEndian.Uint32(pre[4:8]))
 	if size == 0 {
 		if m.messages == 0 {
-			return nil, m.fail("the stream ends before its schema")
+			return 0, m.fail("the stream ends before its schema")
 		}
 		m.eos = true
-		return nil, io.EOF
+		return 0, io.EOF
 	}
+	return size, nil
+}
+
+// readMetadata reads and checks the flatbuffer metadata of a message of the
+// given size: its structure, its kind (the schema first, then record
+// batches only) and its declared body length.
+func (m *msgReader) readMetadata(size int32) ([]byte, ipc.MessageType, int64, error) {
 	if size < 0 || size > MaxMetadataBytes {
-		return nil, m.fail("message metadata size %d is outside 1 to %d bytes", size, MaxMetadataBytes)
+		return nil, 0, 0, m.fail("message metadata size %d is outside 1 to %d bytes", size, MaxMetadataBytes)
 	}
 	meta := make([]byte, size)
 	if _, err := io.ReadFull(m.r, meta); err != nil {
-		return nil, m.fail("the stream is truncated inside message metadata (%d bytes declared)", size)
+		return nil, 0, 0, m.fail("the stream is truncated inside message metadata (%d bytes declared)", size)
 	}
 	kind, bodyLen, err := peekMessage(meta)
 	if err == nil && kind == ipc.MessageSchema {
@@ -134,23 +171,28 @@ func (m *msgReader) Message() (*ipc.Message, error) {
 		err = verifyBatch(meta, bodyLen)
 	}
 	if err != nil {
-		return nil, m.fail("%v", err)
+		return nil, 0, 0, m.fail("%v", err)
 	}
 	switch {
 	case m.messages == 0 && kind != ipc.MessageSchema:
-		return nil, m.fail("the first message is a %v, want the schema", kind)
+		return nil, 0, 0, m.fail("the first message is a %v, want the schema", kind)
 	case m.messages > 0 && kind == ipc.MessageSchema:
-		return nil, m.fail("a second schema message inside the stream (mixed schemas are not allowed)")
+		return nil, 0, 0, m.fail("a second schema message inside the stream (mixed schemas are not allowed)")
 	case kind == ipc.MessageDictionaryBatch:
-		return nil, m.fail("dictionary batches are not part of the tile-stream contract (use plain utf8 columns)")
+		return nil, 0, 0, m.fail("dictionary batches are not part of the tile-stream contract (use plain utf8 columns)")
 	case kind != ipc.MessageSchema && kind != ipc.MessageRecordBatch:
-		return nil, m.fail("unexpected %v message", kind)
+		return nil, 0, 0, m.fail("unexpected %v message", kind)
 	}
 	if bodyLen < 0 || bodyLen > MaxBatchBytes {
-		return nil, m.fail("message body size %d is outside 0 to %d bytes (one tile per batch, < 256 MiB)", bodyLen, MaxBatchBytes)
+		return nil, 0, 0, m.fail("message body size %d is outside 0 to %d bytes (one tile per batch, < 256 MiB)", bodyLen, MaxBatchBytes)
 	}
-	// Read the body in chunks before sizing a buffer from the declared
-	// length: a short or lying input costs only what it really holds.
+	return meta, kind, bodyLen, nil
+}
+
+// readBody reads a message body of bodyLen bytes in chunks before sizing a
+// buffer from the declared length: a short or lying input costs only what it
+// really holds. The caller releases the buffer.
+func (m *msgReader) readBody(bodyLen int64) (*memory.Buffer, error) {
 	m.scratch = m.scratch[:0]
 	for int64(len(m.scratch)) < bodyLen {
 		k := int(min(bodyLen-int64(len(m.scratch)), 1<<20))
@@ -167,13 +209,7 @@ func (m *msgReader) Message() (*ipc.Message, error) {
 	if cap(m.scratch) > 4<<20 {
 		m.scratch = nil // keep at most a few MiB between batches
 	}
-	m.msg = ipc.NewMessage(memory.NewBufferBytes(meta), body)
-	body.Release()
-	m.messages++
-	if kind == ipc.MessageRecordBatch {
-		m.batches++
-	}
-	return m.msg, nil
+	return body, nil
 }
 
 // peekMessage reads the header type and body length of a flatbuffer Message
@@ -268,7 +304,6 @@ func (b fb) field(t, vt, vtSize, i int) int {
 	return t + o
 }
 
-// ref follows the uoffset stored at p.
 // header returns the offset of a Message's header table (Message.fbs:
 // the root table's field 2).
 func (b fb) header() (int, bool) {
@@ -287,6 +322,7 @@ func (b fb) header() (int, bool) {
 	return b.ref(hp)
 }
 
+// ref follows the uoffset stored at p.
 func (b fb) ref(p int) (int, bool) {
 	o, ok := b.u32(p)
 	if !ok || p+o > len(b) {

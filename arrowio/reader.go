@@ -197,42 +197,78 @@ func (r *Reader) endError() error {
 
 // bindBatch types the record's columns and checks nulls and list offsets
 // once per batch. Corrupt buffers can make Arrow's accessors panic: that is
-// turned into an error naming the batch.
+// turned into an error naming the batch and the column being bound.
 func (r *Reader) bindBatch() (err error) {
-	col := ""
+	b := &binder{r: r, rec: r.rec}
 	defer func() {
 		if p := recover(); p != nil {
-			err = &StreamError{Batch: r.batch, Row: -1, Column: col, Err: fmt.Errorf("malformed column data: %v", p)}
+			err = &StreamError{Batch: r.batch, Row: -1, Column: b.col, Err: fmt.Errorf("malformed column data: %v", p)}
 		}
 	}()
-	fail := func(c, format string, a ...any) error {
-		return &StreamError{Batch: r.batch, Row: -1, Column: c, Err: fmt.Errorf(format, a...)}
+	b.n = int(b.rec.NumRows())
+	if err := b.strings(); err != nil {
+		return err
 	}
-	rec := r.rec
-	n := int(rec.NumRows())
-	get := func(name string) arrow.Array {
-		col = name
-		a := rec.Column(r.idx[name])
-		if a.Len() != n {
-			panic(fmt.Sprintf("%d values for %d rows", a.Len(), n))
+	if err := b.ints(); err != nil {
+		return err
+	}
+	if r.hdr.Kind == KindRestored {
+		a := b.get(ColFinalRelativeChange)
+		if err := b.nonNull(ColFinalRelativeChange, a); err != nil {
+			return err
 		}
-		return a
+		r.change = a.(*array.Float64)
 	}
-	nonNull := func(name string, a arrow.Array) error {
-		if a.NullN() != 0 {
-			return fail(name, "has %d null values (not allowed)", a.NullN())
-		}
-		return nil
+	if err := b.list(ColPixels, true); err != nil {
+		return err
 	}
-	var ok bool
+	if r.hdr.Kind == KindRestored {
+		return b.list(ColUncertainty, false)
+	}
+	return nil
+}
+
+// binder binds the columns of one record to a Reader's typed fields; col is
+// the column being bound, for bindBatch's panic message.
+type binder struct {
+	r   *Reader
+	rec arrow.Record
+	n   int
+	col string
+}
+
+func (b *binder) fail(c, format string, a ...any) error {
+	return &StreamError{Batch: b.r.batch, Row: -1, Column: c, Err: fmt.Errorf(format, a...)}
+}
+
+// get returns column name, which must hold one value per row.
+func (b *binder) get(name string) arrow.Array {
+	b.col = name
+	a := b.rec.Column(b.r.idx[name])
+	if a.Len() != b.n {
+		panic(fmt.Sprintf("%d values for %d rows", a.Len(), b.n))
+	}
+	return a
+}
+
+func (b *binder) nonNull(name string, a arrow.Array) error {
+	if a.NullN() != 0 {
+		return b.fail(name, "has %d null values (not allowed)", a.NullN())
+	}
+	return nil
+}
+
+// strings binds scene_id and band_name, checking their offsets against the
+// data buffer.
+func (b *binder) strings() error {
 	for _, name := range []string{ColSceneID, ColBandName} {
-		a := get(name)
-		if err := nonNull(name, a); err != nil {
+		a := b.get(name)
+		if err := b.nonNull(name, a); err != nil {
 			return err
 		}
 		s, ok := a.(*array.String)
 		if !ok {
-			return fail(name, "is not a utf8 array")
+			return b.fail(name, "is not a utf8 array")
 		}
 		off, nbytes := s.ValueOffsets(), 0
 		if bufs := s.Data().Buffers(); len(bufs) > 2 && bufs[2] != nil {
@@ -240,75 +276,78 @@ func (r *Reader) bindBatch() (err error) {
 		}
 		for i := 0; i+1 < len(off); i++ {
 			if off[i] < 0 || off[i+1] < off[i] || int(off[i+1]) > nbytes {
-				return &StreamError{Batch: r.batch, Row: i, Column: name, Err: fmt.Errorf("string offsets %d-%d are outside the %d bytes", off[i], off[i+1], nbytes)}
+				return &StreamError{Batch: b.r.batch, Row: i, Column: name, Err: fmt.Errorf("string offsets %d-%d are outside the %d bytes", off[i], off[i+1], nbytes)}
 			}
 		}
 		if name == ColSceneID {
-			r.sceneID = s
+			b.r.sceneID = s
 		} else {
-			r.bandName = s
+			b.r.bandName = s
 		}
 	}
+	return nil
+}
+
+// ints binds the int32 columns (iterations only in restored streams).
+func (b *binder) ints() error {
+	r := b.r
+	var ok bool
 	for i, name := range intCols {
 		if name == ColIterations && r.hdr.Kind != KindRestored {
 			r.ints[i] = nil
 			continue
 		}
-		a := get(name)
-		if err := nonNull(name, a); err != nil {
+		a := b.get(name)
+		if err := b.nonNull(name, a); err != nil {
 			return err
 		}
 		if r.ints[i], ok = a.(*array.Int32); !ok {
-			return fail(name, "is not an int32 array")
+			return b.fail(name, "is not an int32 array")
 		}
 	}
-	lists := []string{ColPixels}
-	if r.hdr.Kind == KindRestored {
-		lists = append(lists, ColUncertainty)
-		a := get(ColFinalRelativeChange)
-		if err := nonNull(ColFinalRelativeChange, a); err != nil {
+	return nil
+}
+
+// list binds a list<float32> column (pixels, or uncertainty whose rows may
+// be null), checking the list offsets of every row against the values.
+func (b *binder) list(name string, required bool) error {
+	n := b.n
+	a := b.get(name)
+	if required {
+		if err := b.nonNull(name, a); err != nil {
 			return err
 		}
-		r.change = a.(*array.Float64)
 	}
-	for _, name := range lists {
-		a := get(name)
-		if name == ColPixels {
-			if err := nonNull(name, a); err != nil {
-				return err
-			}
+	l, ok := a.(*array.List)
+	if !ok {
+		return b.fail(name, "is not a list array")
+	}
+	vals, ok := l.ListValues().(*array.Float32)
+	if !ok {
+		return b.fail(name, "list values are not float32")
+	}
+	if vals.NullN() != 0 {
+		return b.fail(name, "has %d null pixel values (invalid pixels travel as NaN)", vals.NullN())
+	}
+	v := vals.Float32Values()
+	off := l.Offsets() // the whole buffer: slice it at the array's offset
+	beg := l.Data().Offset()
+	if n == 0 {
+		off = []int32{0}
+	} else if len(off) < beg+n+1 {
+		return b.fail(name, "has %d list offsets for %d rows", len(off)-beg, n)
+	} else {
+		off = off[beg : beg+n+1]
+	}
+	for i := 0; i < n; i++ {
+		if off[i] < 0 || off[i+1] < off[i] || int(off[i+1]) > len(v) {
+			return &StreamError{Batch: b.r.batch, Row: i, Column: name, Err: fmt.Errorf("list offsets %d-%d are outside the %d values", off[i], off[i+1], len(v))}
 		}
-		l, ok := a.(*array.List)
-		if !ok {
-			return fail(name, "is not a list array")
-		}
-		vals, ok := l.ListValues().(*array.Float32)
-		if !ok {
-			return fail(name, "list values are not float32")
-		}
-		if vals.NullN() != 0 {
-			return fail(name, "has %d null pixel values (invalid pixels travel as NaN)", vals.NullN())
-		}
-		v := vals.Float32Values()
-		off := l.Offsets() // the whole buffer: slice it at the array's offset
-		beg := l.Data().Offset()
-		if n == 0 {
-			off = []int32{0}
-		} else if len(off) < beg+n+1 {
-			return fail(name, "has %d list offsets for %d rows", len(off)-beg, n)
-		} else {
-			off = off[beg : beg+n+1]
-		}
-		for i := 0; i < n; i++ {
-			if off[i] < 0 || off[i+1] < off[i] || int(off[i+1]) > len(v) {
-				return &StreamError{Batch: r.batch, Row: i, Column: name, Err: fmt.Errorf("list offsets %d-%d are outside the %d values", off[i], off[i+1], len(v))}
-			}
-		}
-		if name == ColPixels {
-			r.pix, r.pixV, r.pixOff = l, v, off
-		} else {
-			r.unc, r.uncV, r.uncOff = l, v, off
-		}
+	}
+	if name == ColPixels {
+		b.r.pix, b.r.pixV, b.r.pixOff = l, v, off
+	} else {
+		b.r.unc, b.r.uncV, b.r.uncOff = l, v, off
 	}
 	return nil
 }

@@ -1,5 +1,10 @@
 package raster
 
+import "errors"
+
+// ErrInput is wrapped by errors caused by the user's input (exit code 2).
+var ErrInput = errors.New("bad input")
+
 // Geo is a scene's georeferencing.
 type Geo struct {
 	// Transform is GDAL's affine geotransform; HasTransform is false for

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"limpid/raster"
+	"limpid/raster/gdal"
 )
 
 // BenchmarkScene8192 restores an 8192x8192 UInt16 band (PSF sigma 0.7, the
@@ -61,7 +62,7 @@ func benchScene(b *testing.B, dir string, n int) (bin, in string) {
 	}
 	in = filepath.Join(dir, "scene.tif")
 	meta := raster.Meta{Width: n, Height: n, DataType: "UInt16", Bands: []raster.BandInfo{{Description: "pan"}}}
-	w, err := raster.Create(in, meta, raster.WriteOptions{Format: raster.GTiff, DataType: "UInt16"})
+	w, err := gdal.Create(in, meta, gdal.WriteOptions{Format: gdal.GTiff, DataType: "UInt16"})
 	if err != nil {
 		b.Fatal(err)
 	}

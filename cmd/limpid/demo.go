@@ -12,6 +12,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -79,7 +80,7 @@ func DemoScene(dir string, n int) (refPath, obsPath string, err error) {
 			}
 		}
 	}
-	wkt, err := raster.EPSGToWKT(demoEPSG)
+	wkt, err := gdal.EPSGToWKT(demoEPSG)
 	if err != nil {
 		return "", "", err
 	}
@@ -94,17 +95,17 @@ func DemoScene(dir string, n int) (refPath, obsPath string, err error) {
 	refMeta.DataType = "Float32"
 	refPath = filepath.Join(dir, "reference.tif")
 	obsPath = filepath.Join(dir, "observed.tif")
-	if err := raster.WriteFloat32(refPath, refMeta, ref, raster.WriteOptions{Format: raster.GTiff, DataType: "Float32", NoData: math.NaN(), HasNoData: true}); err != nil {
+	if err := gdal.WriteFloat32(refPath, refMeta, ref, gdal.WriteOptions{Format: gdal.GTiff, DataType: "Float32", NoData: math.NaN(), HasNoData: true}); err != nil {
 		return "", "", err
 	}
-	if err := raster.WriteFloat32(obsPath, meta, obs, raster.WriteOptions{Format: raster.GTiff, DataType: "UInt16", NoData: 0, HasNoData: true}); err != nil {
+	if err := gdal.WriteFloat32(obsPath, meta, obs, gdal.WriteOptions{Format: gdal.GTiff, DataType: "UInt16", NoData: 0, HasNoData: true}); err != nil {
 		return "", "", err
 	}
 	return refPath, obsPath, nil
 }
 
 func readAll(path string) (raster.Meta, [][]float32, error) {
-	r, err := raster.Open(path)
+	r, err := gdal.Open(path)
 	if err != nil {
 		return raster.Meta{}, nil, err
 	}
@@ -136,7 +137,7 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 		return err
 	}
 	resPath := filepath.Join(dir, "restored.tif")
-	j := &restoreJob{in: obsPath, out: resPath, format: raster.GTiff, outType: "float32", cfg: cfg,
+	j := &restoreJob{in: obsPath, out: resPath, format: gdal.GTiff, outType: "float32", cfg: cfg,
 		reportPath: filepath.Join(dir, "report.json")}
 	fmt.Fprintf(stderr, "limpid demo: Brannock Vale %dx%d, 4 bands, PSF %s, restoring with grid EMS (smoothing and stop chosen per band)\n",
 		n, n, demoPSF)

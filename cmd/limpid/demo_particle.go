@@ -7,7 +7,7 @@ import (
 
 	"github.com/urfave/cli/v2"
 
-	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -39,7 +39,7 @@ func demoParticle(c *cli.Context, dir, obsPath string, grid step.Config, K int, 
 	resPath := filepath.Join(dir, "restored_particle.tif")
 	uncPath := filepath.Join(dir, "uncertainty_particle.tif")
 	repPath := filepath.Join(dir, "report_particle.json")
-	j := &restoreJob{in: obsPath, out: resPath, format: raster.GTiff, outType: "float32", cfg: cfg, reportPath: repPath, uncPath: uncPath}
+	j := &restoreJob{in: obsPath, out: resPath, format: gdal.GTiff, outType: "float32", cfg: cfg, reportPath: repPath, uncPath: uncPath}
 	fmt.Fprintf(stderr, "limpid demo: restoring with particle EMS (%d particles per pixel, %d iterations, burn-in %d)\n",
 		K, cfg.Iterations, cfg.Particle.BurnIn)
 	rep, err := runRestore(c.Context, j, nil, stdout, stderr)

@@ -4,13 +4,12 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"strconv"
 	"text/tabwriter"
 
 	"github.com/urfave/cli/v2"
 
-	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -39,19 +38,15 @@ or override them.`,
 				return usagef("noise takes one INPUT after the flags (got %d arguments)", c.NArg())
 			}
 			in := c.Args().Get(0)
-			path := in
-			if in == "-" {
-				p, err := spoolStdin(stdin)
-				if err != nil {
-					return err
-				}
-				defer os.Remove(p)
-				path = p
+			path, done, err := spoolInput(in, stdin)
+			if err != nil {
+				return err
 			}
+			defer done()
 			if t := c.Int("tile"); t < 16 || t > 16384 {
 				return usagef("--tile %d must be between 16 and 16384", t)
 			}
-			src, err := raster.Open(path)
+			src, err := gdal.Open(path)
 			if err != nil {
 				return err
 			}

@@ -10,6 +10,7 @@ import (
 	"github.com/urfave/cli/v2"
 
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -84,7 +85,7 @@ func checkUncertaintyPath(j *restoreJob) error {
 
 // createUncertainty prepares the standard-error raster: the output's grid
 // and bands, float32, NaN nodata.
-func createUncertainty(j *restoreJob, om raster.Meta) (*raster.GDALWriter, error) {
+func createUncertainty(j *restoreJob, om raster.Meta) (*gdal.Writer, error) {
 	if j.uncPath == "" {
 		return nil, nil
 	}
@@ -98,7 +99,7 @@ func createUncertainty(j *restoreJob, om raster.Meta) (*raster.GDALWriter, error
 	for i := range um.Bands {
 		um.Bands[i].NoData, um.Bands[i].HasNoData = math.NaN(), true
 	}
-	return raster.Create(j.uncPath, um, raster.WriteOptions{Format: j.format, DataType: "Float32", NoData: math.NaN(), HasNoData: true})
+	return gdal.Create(j.uncPath, um, gdal.WriteOptions{Format: j.format, DataType: "Float32", NoData: math.NaN(), HasNoData: true})
 }
 
 func particleParams(p *step.ParticleReport) map[string]any {
@@ -107,7 +108,7 @@ func particleParams(p *step.ParticleReport) map[string]any {
 }
 
 // recordUncertainty labels the standard-error raster.
-func recordUncertainty(dst *raster.GDALWriter, rep *step.Report) error {
+func recordUncertainty(dst *gdal.Writer, rep *step.Report) error {
 	params, _ := json.Marshal(particleParams(rep.Particle))
 	items := [][2]string{
 		{"LIMPID_PRODUCT", "Monte Carlo standard error (DN) of a restored (deconvolved) image"},

@@ -1,7 +1,6 @@
 package main
 
 import (
-	"bufio"
 	"fmt"
 	"io"
 	"math"
@@ -16,6 +15,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 )
 
 // psfCommand groups the PSF toolkit: build kernels from sensor models and
@@ -87,7 +87,7 @@ func psfBuild(spec, out string, stderr io.Writer) error {
 	return nil
 }
 
-func psfEnv() psf.Env { return psf.Env{LoadRaster: raster.LoadKernel} }
+func psfEnv() psf.Env { return psf.Env{LoadRaster: gdal.LoadKernel} }
 
 // writeKernel writes a kernel as a Float32 GeoTIFF (.tif, .tiff) or a text
 // matrix, through a temporary name.
@@ -101,7 +101,7 @@ func writeKernel(path string, k *psf.Kernel, spec string) error {
 		meta := raster.Meta{Width: k.W, Height: k.H, DataType: "Float32",
 			Bands:    []raster.BandInfo{{Description: "PSF weights", ColorInterp: "Gray"}},
 			Metadata: map[string]string{"LIMPID_PSF": spec, "LIMPID_PSF_CONVENTION": "pixel aperture not included; weights sum to 1"}}
-		return raster.WriteFloat32(path, meta, [][]float32{plane}, raster.WriteOptions{Format: raster.GTiff, DataType: "Float32"})
+		return gdal.WriteFloat32(path, meta, [][]float32{plane}, gdal.WriteOptions{Format: gdal.GTiff, DataType: "Float32"})
 	}
 	return writeAtomic("OUTPUT", path, func(w io.Writer) error {
 		fmt.Fprintf(w, "# limpid PSF kernel %dx%d, weights sum to 1, pixel aperture not included\n# spec: %s\n", k.W, k.H, strings.ReplaceAll(spec, "\n", " "))
@@ -116,38 +116,6 @@ func writeKernel(path string, k *psf.Kernel, spec string) error {
 		}
 		return nil
 	})
-}
-
-// writeAtomic writes a file under path+".tmp" and renames it into place.
-func writeAtomic(what, path string, fill func(io.Writer) error) error {
-	tmp := path + ".tmp"
-	f, err := os.Create(tmp)
-	if err != nil {
-		return usagef("%s %s: cannot create: %v", what, path, unwrapPath(err))
-	}
-	bw := bufio.NewWriter(f)
-	err = fill(bw)
-	if err == nil {
-		err = bw.Flush()
-	}
-	if cerr := f.Close(); err == nil {
-		err = cerr
-	}
-	if err == nil {
-		err = os.Rename(tmp, path)
-	}
-	if err != nil {
-		os.Remove(tmp)
-		return fmt.Errorf("writing %s: %w", path, err)
-	}
-	return nil
-}
-
-func unwrapPath(err error) error {
-	if pe, ok := err.(*os.PathError); ok {
-		return pe.Err
-	}
-	return err
 }
 
 // mtfSamples is the number of frequencies of the CSV curves (0 to Nyquist).
@@ -350,16 +318,12 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 			return usagef("--csv %s: directory %s does not exist", p, filepath.Dir(p+"_x"))
 		}
 	}
-	path := in
-	if in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return err
-		}
-		defer os.Remove(p)
-		path = p
+	path, done, err := spoolInput(in, stdin)
+	if err != nil {
+		return err
 	}
-	src, err := raster.Open(path)
+	defer done()
+	src, err := gdal.Open(path)
 	if err != nil {
 		return err
 	}
@@ -677,7 +641,7 @@ func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
 	if in == "-" {
 		return nil, "", usagef("--psf auto measures the PSF from INPUT, which must then be a file (stdin can be read only once)")
 	}
-	src, err := raster.Open(in)
+	src, err := gdal.Open(in)
 	if err != nil {
 		return nil, "", err
 	}

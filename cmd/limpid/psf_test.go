@@ -13,6 +13,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 )
 
 // psf build writes a kernel readable by --psf kernel:PATH (text and
@@ -29,7 +30,7 @@ func TestPSFBuild(t *testing.T) {
 		if code != 0 {
 			t.Fatalf("%s: exit %d: %s", name, code, errs)
 		}
-		k, err := psf.Parse("kernel:"+out, psf.Env{LoadRaster: raster.LoadKernel})
+		k, err := psf.Parse("kernel:"+out, psf.Env{LoadRaster: gdal.LoadKernel})
 		if err != nil {
 			t.Fatalf("%s: kernel:PATH does not read it back: %v", name, err)
 		}
@@ -276,7 +277,7 @@ func TestPSFMeasureTwoAxes(t *testing.T) {
 	dir := t.TempDir()
 	in := filepath.Join(dir, "panels.tif")
 	meta := raster.Meta{Width: W, Height: H, DataType: "Float32", Bands: []raster.BandInfo{{Description: "panels"}}}
-	if err := raster.WriteFloat32(in, meta, [][]float32{plane}, raster.WriteOptions{Format: raster.GTiff, DataType: "Float32"}); err != nil {
+	if err := gdal.WriteFloat32(in, meta, [][]float32{plane}, gdal.WriteOptions{Format: gdal.GTiff, DataType: "Float32"}); err != nil {
 		t.Fatal(err)
 	}
 	for _, args := range [][]string{{"--edge", "10,0,74,120", "--edge", "85,20,195,84"}, {"--auto"}} {
@@ -352,7 +353,7 @@ func flatScene(t *testing.T, dir string) string {
 		plane[i] = float32(1000 + 10*math.Sin(float64(i)*0.37))
 	}
 	meta := raster.Meta{Width: 96, Height: 96, DataType: "Float32", Bands: []raster.BandInfo{{Description: "flat"}}}
-	if err := raster.WriteFloat32(flat, meta, [][]float32{plane}, raster.WriteOptions{Format: raster.GTiff, DataType: "Float32"}); err != nil {
+	if err := gdal.WriteFloat32(flat, meta, [][]float32{plane}, gdal.WriteOptions{Format: gdal.GTiff, DataType: "Float32"}); err != nil {
 		t.Fatal(err)
 	}
 	return flat

@@ -8,7 +8,6 @@ import (
 	"image/draw"
 	"image/png"
 	"math"
-	"os"
 	"sort"
 	"strings"
 
@@ -17,6 +16,7 @@ import (
 	"golang.org/x/image/math/fixed"
 
 	"limpid/raster"
+	"limpid/raster/gdal"
 )
 
 // Quicklooks: observed | restored (| uncertainty) crops of the same area side
@@ -227,30 +227,16 @@ func encodePNG(img image.Image) ([]byte, error) {
 	return b.Bytes(), nil
 }
 
-// writeFileAtomic writes data under a temporary name in path's directory,
-// then renames it.
-func writeFileAtomic(flag, path string, data []byte) error {
-	tmp := path + ".tmp"
-	if err := os.WriteFile(tmp, data, 0o644); err != nil {
-		return fmt.Errorf("%s %s: %w", flag, path, err)
-	}
-	if err := os.Rename(tmp, path); err != nil {
-		os.Remove(tmp)
-		return fmt.Errorf("%s %s: %w", flag, path, err)
-	}
-	return nil
-}
-
 // cropScene reads the centre crop (at most qlCrop square) of the observed
 // and restored rasters (and the uncertainty when uncPath is not "");
 // obsBands are the 0-based observed bands that became the output's bands.
 func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScene, error) {
-	ro, err := raster.Open(obsPath)
+	ro, err := gdal.Open(obsPath)
 	if err != nil {
 		return nil, err
 	}
 	defer ro.Close()
-	rr, err := raster.Open(resPath)
+	rr, err := gdal.Open(resPath)
 	if err != nil {
 		return nil, err
 	}
@@ -261,7 +247,7 @@ func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScen
 	cw, ch := min(W, qlCrop), min(H, qlCrop)
 	x0, y0 := (W-cw)/2, (H-ch)/2
 	disp := displayBands(mr.Bands)
-	read := func(r *raster.GDALReader, bands []int) ([][]float32, error) {
+	read := func(r *gdal.Reader, bands []int) ([][]float32, error) {
 		return readBandsWindow(r, bands, x0, y0, cw, ch)
 	}
 	ob := make([]int, len(disp))
@@ -285,7 +271,7 @@ func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScen
 		s.valid[i] = ok
 	}
 	if uncPath != "" {
-		ru, err := raster.Open(uncPath)
+		ru, err := gdal.Open(uncPath)
 		if err != nil {
 			return nil, err
 		}
@@ -301,7 +287,7 @@ func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScen
 }
 
 // readBandsWindow reads the cw x ch window at (x0, y0) of the given 0-based bands.
-func readBandsWindow(r *raster.GDALReader, bands []int, x0, y0, cw, ch int) ([][]float32, error) {
+func readBandsWindow(r *gdal.Reader, bands []int, x0, y0, cw, ch int) ([][]float32, error) {
 	W := r.Meta().Width
 	dst := make([][]float32, len(bands))
 	for i := range dst {

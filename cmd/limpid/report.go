@@ -17,6 +17,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -166,12 +167,12 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 // cropMetrics runs step.Assess (no reference) on the centre window of at most
 // reportMetricCrop pixels a side of every output band.
 func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessment, string, error) {
-	ro, err := raster.Open(inPath)
+	ro, err := gdal.Open(inPath)
 	if err != nil {
 		return nil, "", err
 	}
 	defer ro.Close()
-	rr, err := raster.Open(outPath)
+	rr, err := gdal.Open(outPath)
 	if err != nil {
 		return nil, "", err
 	}

@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"encoding/json"
-	"errors"
 	"fmt"
 	"io"
 	"math"
@@ -18,6 +17,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -95,7 +95,7 @@ Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
 // restoreJob is the parsed command line of restore.
 type restoreJob struct {
 	in, out    string
-	format     raster.Format
+	format     gdal.Format
 	outType    string
 	bandSpec   string
 	cfg        step.Config
@@ -139,7 +139,7 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	j := &restoreJob{in: c.Args().Get(0), out: c.Args().Get(1), reportPath: c.String("report"), bandSpec: c.String("bands")}
 	switch f := c.String("format"); f {
 	case "gtiff", "cog":
-		j.format = raster.Format(f)
+		j.format = gdal.Format(f)
 	default:
 		return nil, usagef("--format %q: use gtiff or cog", f)
 	}
@@ -314,28 +314,6 @@ func checkPaths(in, out string) error {
 	return nil
 }
 
-// spoolStdin copies stdin to a temporary file (GDAL's stdin reader cannot
-// seek) and returns its path.
-func spoolStdin(stdin io.Reader) (string, error) {
-	f, err := os.CreateTemp("", "limpid-stdin-*")
-	if err != nil {
-		return "", err
-	}
-	n, err := io.Copy(f, stdin)
-	if cerr := f.Close(); err == nil {
-		err = cerr
-	}
-	if err != nil {
-		os.Remove(f.Name())
-		return "", fmt.Errorf("reading stdin: %w", err)
-	}
-	if n == 0 {
-		os.Remove(f.Name())
-		return "", usagef("INPUT -: stdin is empty")
-	}
-	return f.Name(), nil
-}
-
 func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
 	j, err := parseJob(c)
 	if err != nil {
@@ -375,35 +353,25 @@ type fullReport struct {
 }
 
 func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, stderr io.Writer) (*step.Report, error) {
-	inPath := j.in
-	if j.in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return nil, err
-		}
-		defer os.Remove(p)
-		inPath = p
-	}
-	src, err := raster.Open(inPath)
+	src, done, err := openRaster(j.in, stdin)
 	if err != nil {
-		if j.in == "-" {
-			return nil, usagef("INPUT - (stdin) is not a raster GDAL can read")
-		}
 		return nil, err
 	}
+	defer done()
 	defer src.Close()
+	inPath := src.Path()
 	meta := src.Meta()
 	bands, err := parseBands(j.bandSpec, len(meta.Bands))
 	if err != nil {
 		return nil, err
 	}
 	om := outputMeta(meta, bands, j)
-	wopts := raster.WriteOptions{Format: j.format, DataType: om.DataType}
+	wopts := gdal.WriteOptions{Format: j.format, DataType: om.DataType}
 	wopts.NoData, wopts.HasNoData = outputNoData(meta, bands, j)
 	if j.out == "-" {
 		wopts.Stdout = stdout
 	}
-	dst, err := raster.Create(j.out, om, wopts)
+	dst, err := gdal.Create(j.out, om, wopts)
 	if err != nil {
 		return nil, err
 	}
@@ -522,20 +490,8 @@ func outputNoData(meta raster.Meta, bands []int, j *restoreJob) (float64, bool) 
 	return math.NaN(), true
 }
 
-func writeJSON(flag, path string, v any) error {
-	b, err := json.MarshalIndent(v, "", "  ")
-	if err != nil {
-		return fmt.Errorf("%s %s: %v", flag, path, err)
-	}
-	tmp := path + ".tmp"
-	if err := os.WriteFile(tmp, append(b, '\n'), 0o644); err != nil {
-		return usagef("%s %s: %v", flag, path, errors.Unwrap(err))
-	}
-	return os.Rename(tmp, path)
-}
-
 // recordProcessing adds limpid's processing metadata to the output.
-func recordProcessing(dst *raster.GDALWriter, rep *step.Report) error {
+func recordProcessing(dst *gdal.Writer, rep *step.Report) error {
 	pm := map[string]any{
 		"smooth": rep.Smooth, "smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
 		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,

@@ -4,13 +4,13 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"strings"
 
 	"github.com/urfave/cli/v2"
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -71,8 +71,8 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	if err != nil {
 		return err
 	}
-	format := raster.Format(c.String("format"))
-	if format != raster.GTiff && format != raster.COG {
+	format := gdal.Format(c.String("format"))
+	if format != gdal.GTiff && format != gdal.COG {
 		return usagef("--format %q: use gtiff or cog", c.String("format"))
 	}
 	q := c.String("quantize")
@@ -84,16 +84,12 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	if err := checkPaths(in, out); err != nil {
 		return err
 	}
-	inPath := in
-	if in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return err
-		}
-		defer os.Remove(p)
-		inPath = p
+	inPath, done, err := spoolInput(in, stdin)
+	if err != nil {
+		return err
 	}
-	src, err := raster.Open(inPath)
+	defer done()
+	src, err := gdal.Open(inPath)
 	if err != nil {
 		return err
 	}
@@ -139,11 +135,11 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 			outND = hi
 		}
 	}
-	wopts := raster.WriteOptions{Format: format, DataType: q, NoData: outND, HasNoData: outHas}
+	wopts := gdal.WriteOptions{Format: format, DataType: q, NoData: outND, HasNoData: outHas}
 	if out == "-" {
 		wopts.Stdout = stdout
 	}
-	dst, err := raster.Create(out, om, wopts)
+	dst, err := gdal.Create(out, om, wopts)
 	if err != nil {
 		return err
 	}

@@ -15,6 +15,7 @@ import (
 
 	"limpid/arrowio"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step"
 )
 
@@ -101,30 +102,6 @@ func checkCompress(s string) error {
 		return nil
 	}
 	return usagef("--compress %q: use none, zstd or lz4", s)
-}
-
-// openRaster opens a raster INPUT (stdin is spooled to a temporary file);
-// cleanup removes the spool.
-func openRaster(in string, stdin io.Reader) (*raster.GDALReader, func(), error) {
-	path := in
-	cleanup := func() {}
-	if in == "-" {
-		p, err := spoolStdin(stdin)
-		if err != nil {
-			return nil, cleanup, err
-		}
-		cleanup = func() { os.Remove(p) }
-		path = p
-	}
-	src, err := raster.Open(path)
-	if err != nil {
-		cleanup()
-		if in == "-" {
-			return nil, func() {}, usagef("INPUT - (stdin) is not a raster GDAL can read")
-		}
-		return nil, func() {}, err
-	}
-	return src, cleanup, nil
 }
 
 // openStream opens a tile-stream INPUT and reads its schema.
@@ -293,7 +270,7 @@ func metaFromHeader(h *arrowio.Header) raster.Meta {
 
 // createRasterFor prepares the raster OUTPUT of a stream's scene exactly as
 // restore would for the same source (type, nodata rule, metadata).
-func createRasterFor(h *arrowio.Header, out string, format raster.Format, outType string, hasSaturated bool, stdout io.Writer) (*raster.GDALWriter, error) {
+func createRasterFor(h *arrowio.Header, out string, format gdal.Format, outType string, hasSaturated bool, stdout io.Writer) (*gdal.Writer, error) {
 	meta := metaFromHeader(h)
 	all := make([]int, len(meta.Bands))
 	for i := range all {
@@ -301,12 +278,12 @@ func createRasterFor(h *arrowio.Header, out string, format raster.Format, outTyp
 	}
 	j := &restoreJob{format: format, outType: outType, cfg: step.Config{HasSaturated: hasSaturated}}
 	om := outputMeta(meta, all, j)
-	wopts := raster.WriteOptions{Format: format, DataType: om.DataType}
+	wopts := gdal.WriteOptions{Format: format, DataType: om.DataType}
 	wopts.NoData, wopts.HasNoData = outputNoData(meta, all, j)
 	if out == "-" {
 		wopts.Stdout = stdout
 	}
-	return raster.Create(out, om, wopts)
+	return gdal.Create(out, om, wopts)
 }
 
 func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
@@ -314,8 +291,8 @@ func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	if err != nil {
 		return err
 	}
-	format := raster.Format(c.String("format"))
-	if format != raster.GTiff && format != raster.COG {
+	format := gdal.Format(c.String("format"))
+	if format != gdal.GTiff && format != gdal.COG {
 		return usagef("--format %q: use gtiff or cog", c.String("format"))
 	}
 	outType := c.String("output-type")

@@ -11,7 +11,7 @@ import (
 	"strings"
 	"testing"
 
-	"limpid/raster"
+	"limpid/raster/gdal"
 )
 
 // checkScaleBar finds the white scale bar of panel k (4 white rows inside a
@@ -216,7 +216,7 @@ func cropFixture(t *testing.T, dir string, n int) string {
 	m.Geo.Transform[3] = g[3] + float64(y0)*g[5]
 	m.Width, m.Height = n, n
 	path := filepath.Join(dir, "crop.tif")
-	if err := raster.WriteFloat32(path, m, out, raster.WriteOptions{Format: raster.GTiff, DataType: m.DataType, NoData: 0, HasNoData: true}); err != nil {
+	if err := gdal.WriteFloat32(path, m, out, gdal.WriteOptions{Format: gdal.GTiff, DataType: m.DataType, NoData: 0, HasNoData: true}); err != nil {
 		t.Fatal(err)
 	}
 	return path
