@@ -89,8 +89,35 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 	app.DisableSliceFlagSeparator = true
 	err := app.RunContext(ctx, args)
 	if err != nil {
-		msg := strings.ReplaceAll(strings.TrimSpace(err.Error()), "\n", " ")
+		msg := strings.ReplaceAll(strings.TrimSpace(flagText(err)), "\n", " ")
 		fmt.Fprintf(stderr, "limpid: %s\n", msg)
 	}
 	return exitCode(err)
+}
+
+// configFlags maps step.Config's fields to the flags that set them.
+var configFlags = map[string]string{
+	"Method": "--method", "Iterations": "--iterations", "Smooth": "--smooth", "Stop": "--stop",
+	"Choose": "--choose", "Noise": "--noise", "Tolerance": "--tolerance", "Background": "--background",
+	"Tile": "--tile", "Overlap": "--overlap", "Workers": "--workers", "Uncertainty": "--uncertainty",
+	"Particle.PerPixel": "--particles-per-pixel", "Particle.Potential": "--potential",
+	"Particle.Resampling": "--resampling", "Particle.Start": "--start",
+	"Particle.ESSThreshold": "--ess-threshold", "Particle.BurnIn": "--burn-in",
+	"Particle.Replicates": "--replicates", "Particle.Batches": "--batches",
+}
+
+// flagText is err's message with the configuration fields it names shown
+// as the flags that set them.
+func flagText(err error) string {
+	var fe *step.FieldError
+	if !errors.As(err, &fe) {
+		return err.Error()
+	}
+	named := fe.Format(func(f string) string {
+		if flag, ok := configFlags[f]; ok {
+			return flag
+		}
+		return f
+	})
+	return strings.Replace(err.Error(), fe.Error(), named, 1)
 }

@@ -18,11 +18,11 @@ import (
 func particleFlags() []cli.Flag {
 	return []cli.Flag{
 		&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, EnvVars: env("particles-per-pixel"), Usage: "particle method: particles per valid pixel K (cost and memory grow with K, Monte Carlo error falls as 1/sqrt(K))"},
-		&cli.StringFlag{Name: "potential", Value: step.DefaultPotential, EnvVars: env("potential"), Usage: "particle method: exact (potential integrated on the grid) or sampled (one PSF draw per particle)"},
-		&cli.StringFlag{Name: "resampling", Value: step.DefaultResampling, EnvVars: env("resampling"), Usage: "particle method: stratified, systematic, residual or multinomial"},
+		&cli.StringFlag{Name: "potential", Value: step.DefaultPotential.String(), EnvVars: env("potential"), Usage: "particle method: exact (potential integrated on the grid) or sampled (one PSF draw per particle)"},
+		&cli.StringFlag{Name: "resampling", Value: step.DefaultResampling.String(), EnvVars: env("resampling"), Usage: "particle method: stratified, systematic, residual or multinomial"},
 		&cli.Float64Flag{Name: "ess-threshold", Value: step.DefaultESSThreshold, EnvVars: env("ess-threshold"), Usage: "particle method: resample when the effective sample size falls below this fraction of the particles (0-1)"},
 		&cli.StringFlag{Name: "burn-in", Value: "auto", EnvVars: env("burn-in"), Usage: "particle method: iterations discarded before averaging (auto = half of --iterations)"},
-		&cli.StringFlag{Name: "start", Value: step.DefaultStart, EnvVars: env("start"), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
+		&cli.StringFlag{Name: "start", Value: step.DefaultStart.String(), EnvVars: env("start"), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
 		&cli.IntFlag{Name: "batches", Value: step.DefaultBatches, EnvVars: env("batches"), Usage: "particle method: batch means for the Monte Carlo standard error (2 - iterations after burn-in)"},
 		&cli.IntFlag{Name: "replicates", Value: 0, EnvVars: env("replicates"), Usage: "particle method: independent clouds whose spread gives the standard error (must divide --particles-per-pixel; 1 = one cloud with batch means; 0 = auto: 4, 2 or 1)"},
 		&cli.StringFlag{Name: "uncertainty", EnvVars: env("uncertainty"), Usage: "particle method: write the per-pixel Monte Carlo standard error (DN, float32, same grid and bands) to this GeoTIFF"},
@@ -32,15 +32,24 @@ func particleFlags() []cli.Flag {
 // parseParticle reads the particle flags into cfg (validated by Resolve).
 func parseParticle(c *cli.Context, cfg *step.Config, j *restoreJob) error {
 	j.uncPath = c.String("uncertainty")
-	if cfg.Method != "particle" {
+	if cfg.Method != step.MethodParticle {
 		if j.uncPath != "" {
 			return usagef("--uncertainty %s: the grid method has no Monte Carlo error; use --method particle", j.uncPath)
 		}
 		return nil
 	}
-	pc := step.ParticleConfig{PerPixel: c.Int("particles-per-pixel"), Potential: c.String("potential"),
-		Resampling: c.String("resampling"), ESSThreshold: c.Float64("ess-threshold"), Start: c.String("start"),
+	pc := step.ParticleConfig{PerPixel: c.Int("particles-per-pixel"), ESSThreshold: c.Float64("ess-threshold"),
 		Batches: c.Int("batches"), BurnIn: -1, Replicates: c.Int("replicates")}
+	var err error
+	if pc.Potential, err = step.ParsePotential(c.String("potential")); err != nil {
+		return fmt.Errorf("%w: --potential %v", step.ErrConfig, err)
+	}
+	if pc.Resampling, err = step.ParseResampling(c.String("resampling")); err != nil {
+		return fmt.Errorf("%w: --resampling %v", step.ErrConfig, err)
+	}
+	if pc.Start, err = step.ParseStart(c.String("start")); err != nil {
+		return fmt.Errorf("%w: --start %v", step.ErrConfig, err)
+	}
 	if b := c.String("burn-in"); b != "auto" {
 		v, err := strconv.Atoi(b)
 		if err != nil || v < 0 {

@@ -48,10 +48,10 @@ func restoreFlags() []cli.Flag {
 		&cli.StringFlag{Name: "saturated", EnvVars: env("saturated"), Usage: "pixels at or above this value are invalid: left out of the fit, written as nodata"},
 		&cli.StringFlag{Name: "background", Value: "0", EnvVars: env("background"), Usage: fmt.Sprintf("additive background b in DN, or auto (the %g percentile of each band's valid pixels)", step.BackgroundPercentile)},
 		&cli.StringFlag{Name: "smooth", Value: defaultSmoothFlag, EnvVars: env("smooth"), Usage: fmt.Sprintf("EMS smoothing bandwidth in pixels (0 = Richardson-Lucy), or auto: chosen per band among %v by a risk estimate", step.AutoSmooths)},
-		&cli.StringFlag{Name: "stop", Value: defaultStopFlag, EnvVars: env("stop"), Usage: "when to stop: auto (minimum of the risk estimate), discrepancy (Morozov: residual at the estimated noise level), change (relative change below --tolerance)"},
+		&cli.StringFlag{Name: "stop", Value: string(defaultStopFlag), EnvVars: env("stop"), Usage: "when to stop: auto (minimum of the risk estimate), discrepancy (Morozov: residual at the estimated noise level), change (relative change below --tolerance)"},
 		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, EnvVars: env("iterations"), Usage: fmt.Sprintf("iteration cap per tile (default %d with --stop change, %d with auto and discrepancy)", step.DefaultIterations, step.AutoCap)},
 		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, EnvVars: env("tolerance"), Usage: "--stop change: stop a tile when the relative L1 change falls below this (0 = never)"},
-		&cli.StringFlag{Name: "choose", Value: step.ChooseGlobal, EnvVars: env("choose"), Usage: "with auto: global (one choice per band from up to 16 tiles, uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
+		&cli.StringFlag{Name: "choose", Value: string(step.ChooseGlobal), EnvVars: env("choose"), Usage: "with auto: global (one choice per band from up to 16 tiles, uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
 		&cli.StringFlag{Name: "noise", Value: "auto", EnvVars: env("noise"), Usage: "noise model var = a*DN + b used by auto and discrepancy: auto (fitted per band from the scene) or a=GAIN,b=READVAR"},
 		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid) or particle (sequential Monte Carlo EMS with per-pixel error bars; see the particle flags)"},
 		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for the particle method and for the probe of the automatic choice (recorded); same seed, same output"},
@@ -157,10 +157,10 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 		return nil, err
 	}
 	cfg := step.Config{
-		Method: c.String("method"), PSF: k, PSFSpec: psfSpec,
-		Iterations: c.Int("iterations"), Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
+		Method: step.Method(c.String("method")), PSF: k, PSFSpec: psfSpec,
+		Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
 		Workers: c.Int("workers"), Seed: c.Uint64("seed"), Overlap: -1,
-		Stop: c.String("stop"), Choose: c.String("choose"),
+		Choose: step.Choose(c.String("choose")),
 	}
 	if err := parseRegularisation(c, &cfg); err != nil {
 		return nil, err
@@ -228,19 +228,21 @@ func parseRegularisation(c *cli.Context, cfg *step.Config) error {
 		}
 		cfg.Smooth = v
 	}
-	st := c.String("stop")
-	if c.String("method") == "particle" && !c.IsSet("stop") {
-		// The particle method runs a fixed number of iterations.
-		st = step.StopChange
-		cfg.Stop = st
+	// Without the flags, the method's stop rule and that rule's cap.
+	cfg.Stop = step.DefaultStop(cfg.Method)
+	if c.IsSet("stop") {
+		cfg.Stop = step.Stop(c.String("stop"))
 	}
-	switch st {
+	switch cfg.Stop {
 	case step.StopAuto, step.StopDiscrepancy, step.StopChange:
-		if st != step.StopChange && !c.IsSet("iterations") {
-			cfg.Iterations = step.AutoCap
-		}
 	default:
-		return usagef("--stop %q: use auto, discrepancy or change", st)
+		return usagef("--stop %q: use auto, discrepancy or change", cfg.Stop)
+	}
+	if c.IsSet("iterations") {
+		cfg.Iterations = c.Int("iterations")
+		if cfg.Iterations == 0 {
+			return fmt.Errorf("%w: --iterations 0 must be between 1 and 100000", step.ErrConfig)
+		}
 	}
 	if nz := c.String("noise"); nz != "auto" {
 		m, err := parseNoise(nz)
@@ -281,8 +283,7 @@ func parseNoise(s string) (*step.NoiseModel, error) {
 	if m.A == 0 && m.B == 0 {
 		return nil, usagef("--noise %q: a and b cannot both be 0", s)
 	}
-	m.Floor = math.Max(1e-6, 0.01*m.B)
-	return m, nil
+	return m, nil // Config.Resolve sets the floor
 }
 
 // checkPaths refuses OUTPUT == INPUT and a missing output directory before
