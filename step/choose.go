@@ -246,7 +246,7 @@ func EstimateNoise(ctx context.Context, src raster.Reader, bands []int, cfg Conf
 	if cfg.Tile == 0 {
 		cfg.Tile = DefaultTile
 	}
-	if cfg.Overlap < 0 {
+	if cfg.Overlap <= 0 {
 		cfg.Overlap = 16
 	}
 	if cfg.Workers <= 0 {

@@ -103,7 +103,7 @@ func (cfg *Config) resolveParticle() error {
 	if pc.Replicates == 1 && (pc.Batches < 2 || pc.Batches > cfg.Iterations-pc.BurnIn) {
 		return fieldErrorf("Particle.Batches", "{Particle.Batches} %d must be between 2 and iterations - burn-in (%d)", pc.Batches, cfg.Iterations-pc.BurnIn)
 	}
-	side := int64(cfg.Tile) + 3*int64(max(cfg.Overlap, 0)) // core (a last one may be longer by 2 blend = overlap) plus halo
+	side := int64(cfg.Tile) + 3*int64(cfg.Halo()) // core (a last one may be longer by 2 blend = overlap) plus halo
 	if int64(pc.PerPixel)*side*side >= maxParticlesPerTile {
 		return fieldErrorf("Particle.PerPixel", "{Particle.PerPixel} %d x tile %d (with halo) is more than 2^31 particles per tile: lower either", pc.PerPixel, cfg.Tile)
 	}

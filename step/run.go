@@ -57,7 +57,9 @@ type Config struct {
 	Background     float64
 	BackgroundAuto bool
 	Tile           int
-	// Overlap < 0 means DefaultOverlap.
+	// Overlap is the halo in pixels read around each tile: 0 (the zero
+	// value) means DefaultOverlap; NoOverlap asks for none. Halo gives the
+	// resolved value.
 	Overlap int
 	// Workers <= 0 means runtime.NumCPU().
 	Workers      int
@@ -210,6 +212,21 @@ func (e *FieldError) Format(name func(field string) string) string {
 	}
 }
 
+// NoOverlap as Config.Overlap asks for tiles without a halo.
+const NoOverlap = -1
+
+// Halo is the halo in pixels that Overlap asks for (after Resolve).
+func (cfg *Config) Halo() int { return max(cfg.Overlap, 0) }
+
+// SetTiling sets the tile size and a halo given in pixels (0: none), as a
+// tile stream records them.
+func (cfg *Config) SetTiling(tile, halo int) {
+	cfg.Tile, cfg.Overlap = tile, halo
+	if halo == 0 {
+		cfg.Overlap = NoOverlap
+	}
+}
+
 // DefaultStop is the stop rule a method gets when the caller asks for none
 // (a command line without a stop flag): the risk minimum for the grid
 // method; the change rule for the particle method, which runs a fixed
@@ -297,12 +314,15 @@ func (cfg *Config) Resolve() error {
 	if cfg.PSF.W > cfg.Tile || cfg.PSF.H > cfg.Tile {
 		return fieldErrorf("Tile", "the PSF (%dx%d) is larger than a tile (%d): raise {Tile}", cfg.PSF.W, cfg.PSF.H, cfg.Tile)
 	}
-	if cfg.Overlap < 0 {
+	if cfg.Overlap == 0 {
 		eps := cfg.Smooth
 		if cfg.SmoothAuto {
 			eps = AutoSmooths[len(AutoSmooths)-1]
 		}
 		cfg.Overlap = DefaultOverlap(cfg.PSF, eps, cfg.Tile)
+	}
+	if cfg.Overlap < NoOverlap {
+		return fieldErrorf("Overlap", "{Overlap} %d must be >= 0", cfg.Overlap)
 	}
 	if cfg.Overlap > cfg.Tile {
 		return fieldErrorf("Overlap", "{Overlap} %d is larger than the tile size %d", cfg.Overlap, cfg.Tile)
@@ -354,7 +374,7 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		return nil, err
 	}
 	meta := src.Meta()
-	plan, err := NewPlan(meta.Width, meta.Height, cfg.Tile, cfg.Overlap)
+	plan, err := NewPlan(meta.Width, meta.Height, cfg.Tile, cfg.Halo())
 	if err != nil {
 		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
 	}

@@ -272,7 +272,7 @@ func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64
 	if in.Kind != arrowio.KindObserved {
 		return &arrowio.StreamError{Row: -1, Err: fmt.Errorf("metadata %s is %q: restore needs an observed stream (limpid tiles pack)", arrowio.KeyKind, in.Kind)}
 	}
-	cfg.Tile, cfg.Overlap = in.Tile, in.Overlap
+	cfg.SetTiling(in.Tile, in.Overlap)
 	if err := cfg.Resolve(); err != nil {
 		return err
 	}

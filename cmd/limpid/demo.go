@@ -132,7 +132,7 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 	// The grid run uses restore's defaults: smoothing and stop chosen per
 	// band by the risk estimate.
 	cfg := step.Config{PSF: k, PSFSpec: demoPSF, Smooth: step.DefaultSmooth, SmoothAuto: true, Stop: step.StopAuto,
-		Iterations: step.AutoCap, Tolerance: step.DefaultTolerance, Tile: step.DefaultTile, Overlap: -1, Workers: workers, Seed: 1}
+		Iterations: step.AutoCap, Tolerance: step.DefaultTolerance, Tile: step.DefaultTile, Workers: workers, Seed: 1}
 	if err := cfg.Resolve(); err != nil {
 		return err
 	}

@@ -159,7 +159,7 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	cfg := step.Config{
 		Method: step.Method(c.String("method")), PSF: k, PSFSpec: psfSpec,
 		Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
-		Workers: c.Int("workers"), Seed: c.Uint64("seed"), Overlap: -1,
+		Workers: c.Int("workers"), Seed: c.Uint64("seed"),
 		Choose: step.Choose(c.String("choose")),
 	}
 	if err := parseRegularisation(c, &cfg); err != nil {
@@ -177,6 +177,9 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 			return nil, usagef("--overlap %q: give a number of pixels >= 0 or auto", o)
 		}
 		cfg.Overlap = v
+		if v == 0 {
+			cfg.Overlap = step.NoOverlap
+		}
 	}
 	switch b := c.String("background"); b {
 	case "auto":
@@ -443,7 +446,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 }
 
 func tileCount(meta raster.Meta, cfg step.Config) int {
-	p, err := step.NewPlan(meta.Width, meta.Height, cfg.Tile, max(cfg.Overlap, 0))
+	p, err := step.NewPlan(meta.Width, meta.Height, cfg.Tile, cfg.Halo())
 	if err != nil {
 		return 0
 	}

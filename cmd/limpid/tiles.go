@@ -398,7 +398,7 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 		if o := c.String("overlap"); c.IsSet("overlap") && o != "auto" && o != strconv.Itoa(hdr.Overlap) {
 			return usagef("--overlap %s: the stream INPUT %s has an overlap of %d (%s)", o, j.in, hdr.Overlap, arrowio.KeyOverlap)
 		}
-		cfg.Tile, cfg.Overlap = hdr.Tile, hdr.Overlap
+		cfg.SetTiling(hdr.Tile, hdr.Overlap)
 		if err := cfg.Resolve(); err != nil {
 			return err
 		}
@@ -416,7 +416,7 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 		if bands, err = parseBands(j.bandSpec, len(meta.Bands)); err != nil {
 			return err
 		}
-		if hdr, err = step.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), j.in), cfg.Tile, cfg.Overlap); err != nil {
+		if hdr, err = step.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), j.in), cfg.Tile, cfg.Halo()); err != nil {
 			return err
 		}
 		if src, err = step.NewSceneTiler(s, bands, hdr); err != nil {
