@@ -1,6 +1,7 @@
 package psf
 
 import (
+	"fmt"
 	"math"
 	"sort"
 )
@@ -211,4 +212,83 @@ func uniformSides(at edgeAt, u0, v0 int, a, b, noise float64) (step float64, ok 
 		return 0, false
 	}
 	return step, true
+}
+
+// ErrNoEdge is returned (wrapping ErrMeasure) by MeasureAuto when the plane
+// holds no usable edge.
+var ErrNoEdge = fmt.Errorf("%w: no usable edge (straight, high-contrast, %g-%g degrees off the axes, uniform sides)", ErrMeasure, AutoMinDeg, AutoMaxDeg)
+
+// MinAutoNoise is the noise MeasureAuto uses when SceneNoise gives none
+// (a noiseless or constant plane: 0 or NaN), so FindEdges' step / noise
+// tests stay finite; any small positive value does (no source).
+const MinAutoNoise = 1e-6
+
+// AutoOptions tunes MeasureAuto; the zero value is the default.
+type AutoOptions struct {
+	// Noise is the plane's pixel noise (DN) that candidate edges are judged
+	// against; 0 estimates it with SceneNoise (at least MinAutoNoise).
+	Noise float64
+}
+
+// AutoEdge is one window FindEdges proposed and its measurement.
+type AutoEdge struct {
+	Window EdgeWindow
+	Result *EdgeResult
+}
+
+// AutoResult is what MeasureAuto found.
+type AutoResult struct {
+	// Noise is the pixel noise (DN) the search used.
+	Noise float64
+	// Edges are the measured windows, best first (FindEdges' order).
+	Edges []AutoEdge
+	// Estimate combines the Edges (Combine, no point target).
+	Estimate Estimate
+}
+
+// MeasureAuto measures the PSF from the straight edges of a w x h plane
+// (row-major, NaN = invalid): FindEdges proposes windows, MeasureEdge
+// measures each (ISO 12233:2017 e-SFR), and Combine merges the
+// measurements. Windows MeasureEdge refuses are left out, and so are edges
+// it measures beyond EdgeSafeMaxDeg with a warning. The Estimate's
+// Measured.Spec is the PSF as a gaussian spec. Without a usable edge the
+// result holds no edge and the error wraps ErrNoEdge.
+func MeasureAuto(plane []float32, w, h int, opts AutoOptions) (AutoResult, error) {
+	if w < 1 || h < 1 || len(plane) != w*h {
+		return AutoResult{}, fmt.Errorf("psf: MeasureAuto: the plane has %d values for %dx%d pixels", len(plane), w, h)
+	}
+	noise := opts.Noise
+	if noise == 0 {
+		noise = SceneNoise(plane, w, h)
+		if !(noise > 0) {
+			noise = MinAutoNoise
+		}
+	}
+	if !(noise > 0) || math.IsInf(noise, 0) {
+		return AutoResult{}, fmt.Errorf("psf: MeasureAuto: AutoOptions.Noise %g must be positive and finite", noise)
+	}
+	res := AutoResult{Noise: noise}
+	var measured []*EdgeResult
+	for _, c := range FindEdges(plane, w, h, noise) {
+		r, err := MeasureEdge(subPlane(plane, w, c.X0, c.Y0, c.X1, c.Y1), c.X1-c.X0, c.Y1-c.Y0)
+		if err != nil || len(r.Warnings) > 0 && math.Abs(r.AngleDeg) > EdgeSafeMaxDeg {
+			continue
+		}
+		res.Edges = append(res.Edges, AutoEdge{Window: c, Result: r})
+		measured = append(measured, r)
+	}
+	res.Estimate = Combine(measured, nil)
+	if len(res.Edges) == 0 {
+		return res, ErrNoEdge
+	}
+	return res, nil
+}
+
+// subPlane copies the window x0..x1-1, y0..y1-1 of a plane w pixels wide.
+func subPlane(plane []float32, w, x0, y0, x1, y1 int) []float32 {
+	out := make([]float32, 0, (x1-x0)*(y1-y0))
+	for y := y0; y < y1; y++ {
+		out = append(out, plane[y*w+x0:y*w+x1]...)
+	}
+	return out
 }
