@@ -8,7 +8,7 @@ import (
 // real, even optical transfer function of a centred part, so its modulus is
 // the part's MTF and the system transfer function is the product of the
 // parts' (Boreman, "Modulation Transfer Function in Optical and Electro-Optical
-// Systems", SPIE Press 2001, ch. 1-2; GUIDE section 2).
+// Systems", SPIE Press 2001, ch. 1-2).
 
 // Sinc is the normalised sinc sin(pi x) / (pi x), 1 at 0.
 func Sinc(x float64) float64 {

@@ -6,8 +6,9 @@ import (
 	"testing"
 )
 
-// Source: GUIDE section 2 (MTF facts): Gaussian MTF exp(-2 pi^2 sigma^2 f^2);
-// sigma -> MTF at Nyquist 0.5 -> 0.2912, 0.6 -> 0.1692, 0.7 -> 0.0891,
+// Source: the Gaussian MTF exp(-2 pi^2 sigma^2 f^2), the Fourier transform
+// of a Gaussian PSF (Goodman, Introduction to Fourier Optics, table 2.1),
+// evaluated: sigma -> MTF at Nyquist 0.5 -> 0.2912, 0.6 -> 0.1692, 0.7 -> 0.0891,
 // 1.0 -> 0.0072; MTF50 = 0.18739 / sigma. The values are given to 4
 // decimals, hence the tolerance of half a unit in the last place.
 func TestMTFGaussianValues(t *testing.T) {
@@ -30,8 +31,10 @@ func TestMTFGaussianValues(t *testing.T) {
 	}
 }
 
-// Source: GUIDE section 2: square detector pixel |sin(pi f)/(pi f)|, 0.6366
-// at Nyquist (2/pi); linear smear of l pixels |sinc(l f)|.
+// Source: the transfer function of a box is the Fourier transform of the
+// box (Boreman, MTF in Optical and Electro-Optical Systems, SPIE 2001,
+// ch. 2): square detector pixel |sin(pi f)/(pi f)|, 0.6366 at Nyquist
+// (2/pi); linear smear of l pixels |sinc(l f)|.
 func TestMTFDetectorAndMotion(t *testing.T) {
 	const tol4 = 5e-5 // 4 decimals given
 	if got := MTFDetector(0.5, 0, 1); math.Abs(got-0.6366) > tol4 {
@@ -51,7 +54,8 @@ func TestMTFDetectorAndMotion(t *testing.T) {
 	}
 }
 
-// Source: GUIDE section 2: diffraction-limited circular aperture
+// Source: Goodman, Introduction to Fourier Optics, sec. 6.3: the
+// diffraction-limited OTF of a circular pupil
 // (2/pi)(acos v - v sqrt(1 - v^2)): 0.25 -> 0.685, 0.5 -> 0.391 (3 decimals:
 // half a unit in the last place).
 func TestMTFCircularValues(t *testing.T) {
@@ -106,8 +110,8 @@ func TestMTFCircularObstructedMatchesPupilOverlap(t *testing.T) {
 	}
 }
 
-// Source: GUIDE section 2 (system MTF = product of the parts, Gaussian
-// variances add); the convolution theorem; and the Poisson summation formula
+// Source: Boreman (SPIE 2001, ch. 1: the system MTF is the product of the
+// parts'); the convolution theorem (Gaussian variances add, derived); and the Poisson summation formula
 // (the DTFT of a PSF point-sampled at pixel centres is sum_m T(f + m) over
 // all integer m), which is what KernelFromTransfer's kernels are (see its
 // doc). Tolerances: the 99.9 % support rule drops at most 1e-3 of the weight,
@@ -165,9 +169,10 @@ func TestProductCascade(t *testing.T) {
 	}
 }
 
-// gaussian-mtf: sigma from the system MTF at Nyquist. Source: GUIDE section 2
-// (sigma 0.5 -> MTF_N 0.2912; pixel aperture 2/pi at Nyquist; e-SFR =
-// Gaussian x |sinc|). 0.2912 has 4 decimals: d sigma / d MTF at 0.2912 is
+// gaussian-mtf: sigma from the system MTF at Nyquist. Source: the Gaussian
+// MTF exp(-2 pi^2 sigma^2 f^2) (sigma 0.5 -> MTF_N 0.2912), the pixel
+// aperture's 2/pi at Nyquist (Boreman, SPIE 2001) and e-SFR = Gaussian x
+// |sinc| (convolution theorem, derived). 0.2912 has 4 decimals: d sigma / d MTF at 0.2912 is
 // about -1.4, so half a unit in the last place is 7e-5 in sigma.
 func TestGaussianFromNyquist(t *testing.T) {
 	const tolSigma = 1e-4
@@ -185,8 +190,9 @@ func TestGaussianFromNyquist(t *testing.T) {
 	}
 }
 
-// Source: the requirement (malformed specs are refused with a
-// message naming the part that is wrong); parameter ranges as documented.
+// Source: the spec grammar and parameter ranges documented in spec.go and
+// the README (malformed specs are refused with a message naming the part
+// that is wrong).
 func TestParseNewSpecsRefuses(t *testing.T) {
 	for _, c := range []struct{ spec, want string }{
 		{"gaussian-mtf:mtf=0.7", "must be in (0, 0.6366)"},

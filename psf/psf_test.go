@@ -35,8 +35,8 @@ func TestGaussianVariance(t *testing.T) {
 	}
 }
 
-// Kernel validation (issue 2 requirement: normalised, odd, no negative, NaN
-// or zero-sum weights).
+// Kernel validation. Source: NewKernel's documented contract (normalised,
+// odd, no negative, NaN or zero-sum weights).
 func TestNewKernelRefuses(t *testing.T) {
 	cases := []struct {
 		w, h int

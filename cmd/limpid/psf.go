@@ -1,12 +1,12 @@
 package main
 
 import (
+	"errors"
 	"fmt"
 	"io"
 	"math"
 	"os"
 	"path/filepath"
-	"sort"
 	"strconv"
 	"strings"
 	"text/tabwriter"
@@ -275,50 +275,23 @@ func readWindow(src raster.Reader, band, x0, y0, x1, y1 int) []float32 {
 	return out
 }
 
+// measureArgs are psf measure's checked arguments.
+type measureArgs struct {
+	in                        string
+	windows                   [][4]int
+	point                     []int
+	pointWindow               int
+	auto                      bool
+	band                      int
+	json, csv, kernel, pngOut string
+}
+
 func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
-	if c.NArg() != 1 {
-		return usagef("psf measure takes one INPUT after the flags (got %d arguments: %s); flags after INPUT are not read", c.NArg(), strings.Join(c.Args().Slice(), " "))
+	args, err := parseMeasureArgs(c)
+	if err != nil {
+		return err
 	}
-	in := c.Args().Get(0)
-	if len(c.StringSlice("edge")) == 0 && c.String("point") == "" && !c.Bool("auto") {
-		return usagef("psf measure needs --edge X0,Y0,X1,Y1, --point X,Y or --auto")
-	}
-	var windows [][4]int
-	for _, e := range c.StringSlice("edge") {
-		v, err := parseInts("--edge", e, 4)
-		if err != nil {
-			return err
-		}
-		if v[2] <= v[0] || v[3] <= v[1] {
-			return usagef("--edge %q: X1 and Y1 must be larger than X0 and Y0 (the window is X0,Y0,X1,Y1, X1 and Y1 exclusive)", e)
-		}
-		windows = append(windows, [4]int{v[0], v[1], v[2], v[3]})
-	}
-	var point []int
-	if p := c.String("point"); p != "" {
-		v, err := parseInts("--point", p, 2)
-		if err != nil {
-			return err
-		}
-		point = v
-	}
-	pw := c.Int("point-window")
-	if pw < 7 || pw > 101 || pw%2 == 0 {
-		return usagef("--point-window %d must be odd, 7 to 101", pw)
-	}
-	for _, o := range []struct{ flag, path string }{{"--json", c.String("json")}, {"--kernel", c.String("kernel")}, {"--png", c.String("png")}} {
-		if o.path != "" {
-			if err := checkPaths(in, o.path); err != nil {
-				return usagef("%s: %v", o.flag, err)
-			}
-		}
-	}
-	if p := c.String("csv"); p != "" {
-		if st, err := os.Stat(filepath.Dir(p + "_x")); err != nil || !st.IsDir() {
-			return usagef("--csv %s: directory %s does not exist", p, filepath.Dir(p+"_x"))
-		}
-	}
-	path, done, err := spoolInput(in, stdin)
+	path, done, err := spoolInput(args.in, stdin)
 	if err != nil {
 		return err
 	}
@@ -328,59 +301,10 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 		return err
 	}
 	defer src.Close()
-	meta := src.Meta()
-	band := c.Int("band")
-	if band < 1 || band > len(meta.Bands) {
-		return usagef("--band %d does not exist (INPUT has %d bands)", band, len(meta.Bands))
+	sum, err := measureScene(src, args)
+	if err != nil {
+		return err
 	}
-	b := band - 1
-	var edges []edgeSummary
-	for i, wnd := range windows {
-		if wnd[0] < 0 || wnd[1] < 0 || wnd[2] > meta.Width || wnd[3] > meta.Height {
-			return usagef("--edge %d,%d,%d,%d: the window is outside the raster (%dx%d pixels)", wnd[0], wnd[1], wnd[2], wnd[3], meta.Width, meta.Height)
-		}
-		win := readWindow(src, b, wnd[0], wnd[1], wnd[2], wnd[3])
-		if win == nil {
-			return fmt.Errorf("--edge %d,%d,%d,%d: reading the window failed", wnd[0], wnd[1], wnd[2], wnd[3])
-		}
-		r, err := psf.MeasureEdge(win, wnd[2]-wnd[0], wnd[3]-wnd[1])
-		if err != nil {
-			return usagef("--edge %d,%d,%d,%d (edge %d): %v", wnd[0], wnd[1], wnd[2], wnd[3], i+1, strings.TrimPrefix(err.Error(), "psf: cannot measure: "))
-		}
-		edges = append(edges, summarizeEdge(r, wnd, "--edge"))
-	}
-	if c.Bool("auto") {
-		found, err := autoEdges(src, b)
-		if err != nil {
-			return err
-		}
-		if len(found) == 0 && len(windows) == 0 && point == nil {
-			return usagef("--auto: no usable edge in band %d of %s (straight, high-contrast, 2-10 degrees off the axes, uniform sides); give --edge or --point windows", band, in)
-		}
-		edges = append(edges, found...)
-	}
-	sum := measureSummary{Input: in, Band: band, Edges: edges,
-		Convention:  "mtf_nyquist, mtf50 and fwhm are the system e-SFR/LSF (ISO 12233, pixel aperture included); sigma, sigma_x and sigma_y are restoration sigmas in pixels (pixel aperture removed), for --psf gaussian:sx=SIGMA_X,sy=SIGMA_Y",
-		CombineRule: combineRule}
-	if point != nil {
-		h := pw / 2
-		x0, y0 := point[0]-h, point[1]-h
-		if x0 < 0 || y0 < 0 || x0+pw > meta.Width || y0+pw > meta.Height {
-			return usagef("--point %d,%d: the %dx%d window around it is outside the raster (%dx%d pixels)", point[0], point[1], pw, pw, meta.Width, meta.Height)
-		}
-		win := readWindow(src, b, x0, y0, x0+pw, y0+pw)
-		r, err := psf.MeasurePoint(win, pw, pw)
-		if err != nil {
-			return usagef("--point %d,%d: %v", point[0], point[1], strings.TrimPrefix(err.Error(), "psf: cannot measure: "))
-		}
-		sum.Point = &pointSummary{X: float64(x0) + r.X, Y: float64(y0) + r.Y, PointResult: r}
-	}
-	combine(&sum)
-	if sum.Sigma == nil {
-		return usagef("psf measure: no usable measurement (every edge was rejected)")
-	}
-	spec, _ := psf.Measured{Sigma: sum.Sigma, SigmaX: sum.SigmaX, SigmaY: sum.SigmaY}.Spec()
-	sum.Spec = spec
 	printSummary(stdout, &sum)
 	for _, e := range sum.Edges {
 		for _, w := range e.Warnings {
@@ -392,13 +316,148 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 			fmt.Fprintf(stderr, "limpid: warning: point: %s\n", w)
 		}
 	}
+	return writeMeasureOutputs(args, &sum)
+}
+
+// parseMeasureArgs reads and checks psf measure's flags and INPUT (before
+// INPUT is opened).
+func parseMeasureArgs(c *cli.Context) (measureArgs, error) {
+	var a measureArgs
+	if c.NArg() != 1 {
+		return a, usagef("psf measure takes one INPUT after the flags (got %d arguments: %s); flags after INPUT are not read", c.NArg(), strings.Join(c.Args().Slice(), " "))
+	}
+	a.in = c.Args().Get(0)
+	a.auto, a.band, a.pointWindow = c.Bool("auto"), c.Int("band"), c.Int("point-window")
+	a.json, a.csv, a.kernel, a.pngOut = c.String("json"), c.String("csv"), c.String("kernel"), c.String("png")
+	if len(c.StringSlice("edge")) == 0 && c.String("point") == "" && !a.auto {
+		return a, usagef("psf measure needs --edge X0,Y0,X1,Y1, --point X,Y or --auto")
+	}
+	for _, e := range c.StringSlice("edge") {
+		v, err := parseInts("--edge", e, 4)
+		if err != nil {
+			return a, err
+		}
+		if v[2] <= v[0] || v[3] <= v[1] {
+			return a, usagef("--edge %q: X1 and Y1 must be larger than X0 and Y0 (the window is X0,Y0,X1,Y1, X1 and Y1 exclusive)", e)
+		}
+		a.windows = append(a.windows, [4]int{v[0], v[1], v[2], v[3]})
+	}
+	if p := c.String("point"); p != "" {
+		v, err := parseInts("--point", p, 2)
+		if err != nil {
+			return a, err
+		}
+		a.point = v
+	}
+	if pw := a.pointWindow; pw < 7 || pw > 101 || pw%2 == 0 {
+		return a, usagef("--point-window %d must be odd, 7 to 101", pw)
+	}
+	for _, o := range []struct{ flag, path string }{{"--json", a.json}, {"--kernel", a.kernel}, {"--png", a.pngOut}} {
+		if o.path != "" {
+			if err := checkPaths(a.in, o.path); err != nil {
+				return a, usagef("%s: %v", o.flag, err)
+			}
+		}
+	}
+	if p := a.csv; p != "" {
+		if st, err := os.Stat(filepath.Dir(p + "_x")); err != nil || !st.IsDir() {
+			return a, usagef("--csv %s: directory %s does not exist", p, filepath.Dir(p+"_x"))
+		}
+	}
+	return a, nil
+}
+
+// measureScene measures the --edge windows, the --auto edges and the
+// --point target of one band of src and combines them (psf.Combine).
+func measureScene(src raster.Reader, args measureArgs) (measureSummary, error) {
+	meta := src.Meta()
+	if args.band < 1 || args.band > len(meta.Bands) {
+		return measureSummary{}, usagef("--band %d does not exist (INPUT has %d bands)", args.band, len(meta.Bands))
+	}
+	b := args.band - 1
+	edges, err := measureWindows(src, b, args.windows)
+	if err != nil {
+		return measureSummary{}, err
+	}
+	if args.auto {
+		found, err := autoEdges(src, b)
+		if err != nil {
+			return measureSummary{}, err
+		}
+		if len(found.Edges) == 0 && len(args.windows) == 0 && args.point == nil {
+			return measureSummary{}, usagef("--auto: no usable edge in band %d of %s (straight, high-contrast, 2-10 degrees off the axes, uniform sides); give --edge or --point windows", args.band, args.in)
+		}
+		for _, e := range found.Edges {
+			w := e.Window
+			edges = append(edges, summarizeEdge(e.Result, [4]int{w.X0, w.Y0, w.X1, w.Y1}, "--auto"))
+		}
+	}
+	sum := measureSummary{Input: args.in, Band: args.band, Edges: edges,
+		Convention:  "mtf_nyquist, mtf50 and fwhm are the system e-SFR/LSF (ISO 12233, pixel aperture included); sigma, sigma_x and sigma_y are restoration sigmas in pixels (pixel aperture removed), for --psf gaussian:sx=SIGMA_X,sy=SIGMA_Y",
+		CombineRule: psf.CombineRule}
+	if args.point != nil {
+		p, err := measurePointTarget(src, b, args.point, args.pointWindow)
+		if err != nil {
+			return measureSummary{}, err
+		}
+		sum.Point = p
+	}
+	combine(&sum)
+	if sum.Sigma == nil {
+		return measureSummary{}, usagef("psf measure: no usable measurement (every edge was rejected)")
+	}
+	sum.Spec, _ = psf.Measured{Sigma: sum.Sigma, SigmaX: sum.SigmaX, SigmaY: sum.SigmaY}.Spec()
+	return sum, nil
+}
+
+// measureWindows measures the --edge windows of band b (0-based).
+func measureWindows(src raster.Reader, b int, windows [][4]int) ([]edgeSummary, error) {
+	meta := src.Meta()
+	var edges []edgeSummary
+	for i, wnd := range windows {
+		if wnd[0] < 0 || wnd[1] < 0 || wnd[2] > meta.Width || wnd[3] > meta.Height {
+			return nil, usagef("--edge %d,%d,%d,%d: the window is outside the raster (%dx%d pixels)", wnd[0], wnd[1], wnd[2], wnd[3], meta.Width, meta.Height)
+		}
+		win := readWindow(src, b, wnd[0], wnd[1], wnd[2], wnd[3])
+		if win == nil {
+			return nil, fmt.Errorf("--edge %d,%d,%d,%d: reading the window failed", wnd[0], wnd[1], wnd[2], wnd[3])
+		}
+		r, err := psf.MeasureEdge(win, wnd[2]-wnd[0], wnd[3]-wnd[1])
+		if err != nil {
+			return nil, usagef("--edge %d,%d,%d,%d (edge %d): %v", wnd[0], wnd[1], wnd[2], wnd[3], i+1, strings.TrimPrefix(err.Error(), "psf: cannot measure: "))
+		}
+		edges = append(edges, summarizeEdge(r, wnd, "--edge"))
+	}
+	return edges, nil
+}
+
+// measurePointTarget fits the --point target of band b (0-based) in the
+// pw x pw window centred on point.
+func measurePointTarget(src raster.Reader, b int, point []int, pw int) (*pointSummary, error) {
+	meta := src.Meta()
+	h := pw / 2
+	x0, y0 := point[0]-h, point[1]-h
+	if x0 < 0 || y0 < 0 || x0+pw > meta.Width || y0+pw > meta.Height {
+		return nil, usagef("--point %d,%d: the %dx%d window around it is outside the raster (%dx%d pixels)", point[0], point[1], pw, pw, meta.Width, meta.Height)
+	}
+	win := readWindow(src, b, x0, y0, x0+pw, y0+pw)
+	r, err := psf.MeasurePoint(win, pw, pw)
+	if err != nil {
+		return nil, usagef("--point %d,%d: %v", point[0], point[1], strings.TrimPrefix(err.Error(), "psf: cannot measure: "))
+	}
+	return &pointSummary{X: float64(x0) + r.X, Y: float64(y0) + r.Y, PointResult: r}, nil
+}
+
+// writeMeasureOutputs writes the --csv, --kernel, --png and --json files;
+// on an error it removes those already written.
+func writeMeasureOutputs(args measureArgs, sum *measureSummary) error {
 	var written []string
 	cleanup := func() {
 		for _, p := range written {
 			os.Remove(p)
 		}
 	}
-	if p := c.String("csv"); p != "" {
+	if p := args.csv; p != "" {
 		for i, e := range sum.Edges {
 			esfPath := fmt.Sprintf("%s_edge%d_esf.csv", p, i+1)
 			mtfPath := fmt.Sprintf("%s_edge%d_mtf.csv", p, i+1)
@@ -414,19 +473,19 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 			written = append(written, mtfPath)
 		}
 	}
-	if p := c.String("kernel"); p != "" {
-		k, err := psf.Parse(spec, psf.Env{})
+	if p := args.kernel; p != "" {
+		k, err := psf.Parse(sum.Spec, psf.Env{})
 		if err != nil {
 			cleanup()
 			return usagef("--kernel: the measured PSF gives no kernel: %v", err)
 		}
-		if err := writeKernel(p, k, spec+" (measured from "+in+")"); err != nil {
+		if err := writeKernel(p, k, sum.Spec+" (measured from "+args.in+")"); err != nil {
 			cleanup()
 			return err
 		}
 		written = append(written, p)
 	}
-	if p := c.String("png"); p != "" {
+	if p := args.pngOut; p != "" {
 		if len(sum.Edges) == 0 {
 			cleanup()
 			return usagef("--png %s: plots edge measurements; no edge was measured", p)
@@ -437,8 +496,8 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 		}
 		written = append(written, p)
 	}
-	if p := c.String("json"); p != "" {
-		if err := writeJSON("--json", p, sum); err != nil {
+	if p := args.json; p != "" {
+		if err := writeJSON("--json", p, *sum); err != nil {
 			cleanup()
 			return err
 		}
@@ -462,87 +521,23 @@ func summarizeEdge(r *psf.EdgeResult, wnd [4]int, source string) edgeSummary {
 	return e
 }
 
-const combineRule = "per axis: median of the edges' sigmas after rejecting edges more than max(3 x 1.4826 x MAD, 10 % of the median) from the median; sigma = sqrt(sigma_x sigma_y) when both axes are measured, else the measured axis (assumed isotropic), else the point fit; mtf_nyquist, mtf50, fwhm and edge_angle_deg are medians over the used edges"
-
-// combine applies combineRule and fills the summary's headline values.
+// combine applies psf.Combine (psf.CombineRule) to the summary's edges and
+// point and fills its headline values.
 func combine(s *measureSummary) {
-	perAxis := map[string][]int{}
+	results := make([]*psf.EdgeResult, len(s.Edges))
 	for i, e := range s.Edges {
-		perAxis[e.Axis] = append(perAxis[e.Axis], i)
+		results[i] = e.res
 	}
-	axisSigma := map[string]float64{}
-	for axis, idx := range perAxis {
-		var vals []float64
-		for _, i := range idx {
-			vals = append(vals, s.Edges[i].Sigma)
-		}
-		med := medianOf(vals)
-		var dev []float64
-		for _, v := range vals {
-			dev = append(dev, math.Abs(v-med))
-		}
-		lim := math.Max(3*1.4826*medianOf(dev), 0.1*med)
-		var kept []float64
-		for _, i := range idx {
-			if d := math.Abs(s.Edges[i].Sigma - med); d > lim {
-				s.Edges[i].Used = false
-				s.Edges[i].Rejected = fmt.Sprintf("sigma %.3f is %.3f from the median %.3f (limit %.3f)", s.Edges[i].Sigma, d, med, lim)
-				continue
-			}
-			kept = append(kept, s.Edges[i].Sigma)
-		}
-		if len(kept) > 0 {
-			axisSigma[axis] = medianOf(kept)
-		}
+	var point *psf.PointResult
+	if s.Point != nil {
+		point = s.Point.PointResult
 	}
-	ptr := func(v float64) *float64 { return &v }
-	sx, hx := axisSigma["x"]
-	sy, hy := axisSigma["y"]
-	switch {
-	case hx && hy:
-		s.SigmaX, s.SigmaY, s.Sigma = ptr(sx), ptr(sy), ptr(math.Sqrt(sx*sy))
-		s.SigmaFrom = "edges, both axes"
-	case hx:
-		s.SigmaX, s.Sigma = ptr(sx), ptr(sx)
-		s.SigmaFrom = "near-vertical edges only (sigma_y not measured, assumed equal)"
-	case hy:
-		s.SigmaY, s.Sigma = ptr(sy), ptr(sy)
-		s.SigmaFrom = "near-horizontal edges only (sigma_x not measured, assumed equal)"
-	case s.Point != nil:
-		s.SigmaX, s.SigmaY, s.Sigma = ptr(s.Point.SigmaX), ptr(s.Point.SigmaY), ptr(s.Point.Sigma)
-		s.SigmaFrom = "point target fit"
+	est := psf.Combine(results, point)
+	for i := range s.Edges {
+		s.Edges[i].Used, s.Edges[i].Rejected = est.Used[i], est.Rejected[i]
 	}
-	var nyq, m50, fw, ang []float64
-	for _, e := range s.Edges {
-		if !e.Used {
-			continue
-		}
-		nyq = append(nyq, e.MTFNyquist)
-		if e.MTF50 != nil {
-			m50 = append(m50, *e.MTF50)
-		}
-		fw = append(fw, e.FWHM)
-		ang = append(ang, e.AngleDeg)
-	}
-	if len(nyq) > 0 {
-		s.MTFNyquist, s.FWHM, s.EdgeAngleDeg = ptr(medianOf(nyq)), ptr(medianOf(fw)), ptr(medianOf(ang))
-	}
-	if len(m50) > 0 {
-		s.MTF50 = ptr(medianOf(m50))
-	}
-}
-
-func medianOf(v []float64) float64 {
-	s := append([]float64(nil), v...)
-	sort.Float64s(s)
-	n := len(s)
-	if n == 0 {
-		return math.NaN()
-	}
-	if n%2 == 1 {
-		return s[n/2]
-	}
-	return 0.5 * (s[n/2-1] + s[n/2])
+	s.Sigma, s.SigmaX, s.SigmaY, s.SigmaFrom = est.Sigma, est.SigmaX, est.SigmaY, est.SigmaFrom
+	s.MTFNyquist, s.MTF50, s.FWHM, s.EdgeAngleDeg = est.MTFNyquist, est.MTF50, est.FWHM, est.EdgeAngleDeg
 }
 
 func fmtPtr(v *float64, format string) string {
@@ -591,29 +586,20 @@ func writeEdgeMTFCSV(w io.Writer, r *psf.EdgeResult, sigma float64) error {
 	return nil
 }
 
-// autoEdges is the --auto search: psf.FindEdges on the whole band (nodata
-// as NaN), then the slanted-edge measurement of every window it proposes;
-// windows the measurement refuses are left out.
-func autoEdges(src raster.Reader, band int) ([]edgeSummary, error) {
+// autoEdges is the --auto search: psf.MeasureAuto on the whole band
+// (nodata as NaN). No usable edge is not an error here: the result then
+// holds no edge.
+func autoEdges(src raster.Reader, band int) (psf.AutoResult, error) {
 	m := src.Meta()
 	plane := readWindow(src, band, 0, 0, m.Width, m.Height)
 	if plane == nil {
-		return nil, fmt.Errorf("--auto: reading band %d failed", band+1)
+		return psf.AutoResult{}, fmt.Errorf("--auto: reading band %d failed", band+1)
 	}
-	noise := psf.SceneNoise(plane, m.Width, m.Height)
-	if !(noise > 0) {
-		noise = 1e-6
+	res, err := psf.MeasureAuto(plane, m.Width, m.Height, psf.AutoOptions{})
+	if err != nil && !errors.Is(err, psf.ErrNoEdge) {
+		return res, err
 	}
-	var out []edgeSummary
-	for _, c := range psf.FindEdges(plane, m.Width, m.Height, noise) {
-		win := readWindow(src, band, c.X0, c.Y0, c.X1, c.Y1)
-		r, err := psf.MeasureEdge(win, c.X1-c.X0, c.Y1-c.Y0)
-		if err != nil || len(r.Warnings) > 0 && math.Abs(r.AngleDeg) > psf.EdgeSafeMaxDeg {
-			continue
-		}
-		out = append(out, summarizeEdge(r, [4]int{c.X0, c.Y0, c.X1, c.Y1}, "--auto"))
-	}
-	return out, nil
+	return res, nil
 }
 
 // psfProductHelp ends psfHelp: the product syntax and the kernel rule.
@@ -662,16 +648,15 @@ func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
 		}
 		band = n - 1
 	}
-	edges, err := autoEdges(src, band)
+	found, err := autoEdges(src, band)
 	if err != nil {
 		return nil, "", err
 	}
-	sum := measureSummary{Edges: edges}
-	combine(&sum)
-	if sum.Sigma == nil {
+	est := found.Estimate
+	if est.Sigma == nil {
 		return nil, "", usagef("--psf auto: no usable edge in band %d of %s (straight, high-contrast, 2-10 degrees off the axes, uniform sides); measure the PSF elsewhere (limpid psf measure) and pass it as --psf", band+1, in)
 	}
-	gs, err := psf.Measured{Sigma: sum.Sigma, SigmaX: sum.SigmaX, SigmaY: sum.SigmaY}.Spec()
+	gs, err := est.Spec()
 	if err != nil {
 		return nil, "", usagef("--psf auto: %v", err)
 	}
@@ -679,11 +664,5 @@ func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
 	if err != nil {
 		return nil, "", usageError{fmt.Errorf("--psf auto gave %s: %w", gs, err)}
 	}
-	used := 0
-	for _, e := range sum.Edges {
-		if e.Used {
-			used++
-		}
-	}
-	return k, fmt.Sprintf("%s (auto: %d edges in band %d, %s)", gs, used, band+1, sum.SigmaFrom), nil
+	return k, fmt.Sprintf("%s (auto: %d edges in band %d, %s)", gs, est.NumUsed(), band+1, est.SigmaFrom), nil
 }
