@@ -5,6 +5,7 @@ import (
 	"sort"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 // Assessment of a restoration: fidelity to a reference when one exists
@@ -115,12 +116,12 @@ func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
 			nv++
 		}
 	}
-	src, _ := meanFilled(p, valid, w*h)
+	src, _ := conv.MeanFilled(p, valid, w*h)
 	if nv < 64 {
 		return ImmerkaerSigma(p, valid, w, h), "immerkaer"
 	}
-	g2, g4 := gaussianTaps(2), gaussianTaps(4)
-	lo, sm := blur64(src, w, h, g2), blur64(src, w, h, g4)
+	g2, g4 := conv.GaussianTaps(2), conv.GaussianTaps(4)
+	lo, sm := conv.Blur64(src, w, h, g2), conv.Blur64(src, w, h, g4)
 	r2 := (len(g4) - 1) / 2
 	type px struct{ grad, res float64 }
 	var cand []px

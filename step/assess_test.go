@@ -2,6 +2,7 @@ package step
 
 import (
 	"encoding/json"
+	"limpid/step/conv"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -90,8 +91,8 @@ func smoothScene(w, h int, blur float64) []float32 {
 	}
 	if blur > 0 {
 		out := make([]float32, w*h)
-		var ws ConvWork
-		NewSeparableConv(gaussianTaps(blur), gaussianTaps(blur)).Apply(&ws, out, p, w, h)
+		var ws conv.Work
+		conv.NewSeparable(conv.GaussianTaps(blur), conv.GaussianTaps(blur)).Apply(&ws, out, p, w, h)
 		return out
 	}
 	return p
@@ -180,8 +181,8 @@ func TestAssessSharpnessAndRinging(t *testing.T) {
 	// Unsharp masking: 2 obs - blur(obs) overshoots.
 	sharp := make([]float32, w*h)
 	bl := make([]float32, w*h)
-	var ws ConvWork
-	NewSeparableConv(gaussianTaps(1.5), gaussianTaps(1.5)).Apply(&ws, bl, obs, w, h)
+	var ws conv.Work
+	conv.NewSeparable(conv.GaussianTaps(1.5), conv.GaussianTaps(1.5)).Apply(&ws, bl, obs, w, h)
 	for i := range sharp {
 		sharp[i] = 2*obs[i] - bl[i]
 	}

@@ -5,11 +5,13 @@ import (
 	"math"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 // Automatic regularisation: the smoothing bandwidth eps and the stopping
 // iteration k of EMS chosen per scene by minimising an unbiased risk
-// estimate (GUIDE section 4; measured in DEVELOPERS.md).
+// estimate (the methods cited below; the settings are measured in
+// DEVELOPERS.md, "Automatic regularisation").
 //
 // The divergence of the EMS map d -> f_k is carried along the iteration by
 // forward-mode differentiation with one random +-1 probe delta (Monte Carlo
@@ -37,9 +39,9 @@ import (
 //
 //	R_k = sum w (H f_k + b - d)^2 - sum w v + 2 c sum w v delta (H u_k).
 
-// Risk settings (GUIDE section 4.3-4.4; prototype values, no other source).
-// riskLambda is the regularisation of the risk weights Q and G (GUIDE
-// section 4.3).
+// Risk settings: values of our own prototype (common practice, no source),
+// checked on the scenes of DEVELOPERS.md. riskLambda is the regularisation
+// of the risk weights Q and G above.
 var riskLambda = 0.01
 
 // riskPlateau: an improvement smaller than this fraction of the risk's total
@@ -58,19 +60,16 @@ const (
 	// diagonalisation no longer holds and the prediction-domain estimate is
 	// used.
 	riskMaskedFraction = 0.10
-	// DiscrepancyTau is Morozov's tau (recalled from memory: 1.01-1.1 is
-	// the usual range, GUIDE section 2).
+	// DiscrepancyTau is Morozov's tau (Morozov, Soviet Math. Dokl. 7:414,
+	// 1966; recalled from memory: 1.01-1.1 is the usual range).
 	DiscrepancyTau = 1.05
 )
 
-// AutoSmooths are the candidate bandwidths of --smooth auto (GUIDE 4.4;
-// 0.3 and 0.5 use the variance-matched 3-tap kernel, 0.7 a variance-matched
-// Gaussian, see SmoothingKernel).
+// AutoSmooths are the candidate bandwidths of the automatic choice (our
+// prototype's grid, common practice, no source; 0.3 and 0.5 use the variance-matched 3-tap kernel, 0.7 a variance-matched
+// Gaussian, see conv.SmoothingKernel).
 var AutoSmooths = []float64{0, 0.3, 0.5, 0.7}
 
-// riskEvaluated says at which iterations the risk is computed: every one up
-// to 10, then every 2nd up to 30, then every 5th (the risk curve flattens
-// near its minimum at large k, and each evaluation costs a 2-D DCT).
 // RiskMode is where a tile's risk was estimated.
 type RiskMode string
 
@@ -85,50 +84,11 @@ const (
 	RiskSkipped RiskMode = "skipped"
 )
 
+// riskEvaluated says at which iterations the risk is computed: every one up
+// to 10, then every 2nd up to 30, then every 5th (the risk curve flattens
+// near its minimum at large k, and each evaluation costs a 2-D DCT).
 func riskEvaluated(k, cap int) bool {
 	return k <= 10 || (k <= 30 && k%2 == 0) || k%5 == 0 || k == cap
-}
-
-// psfEigen returns the DCT-II eigenvalues h(kx) h(ky) (generally
-// sum h(dx,dy) cos(pi kx dx / w) cos(pi ky dy / h)) of the kernel on a
-// w x h tile, and false when the kernel is not symmetric in x and in y
-// separately (then the DCT does not diagonalise it).
-func psfEigen(k *psf.Kernel, w, h int) ([]float64, bool) {
-	rx, ry := k.Rx(), k.Ry()
-	peak := 0.0
-	for _, v := range k.Data {
-		peak = math.Max(peak, math.Abs(v))
-	}
-	for dy := -ry; dy <= ry; dy++ {
-		for dx := -rx; dx <= rx; dx++ {
-			v := k.At(dx, dy)
-			if math.Abs(v-k.At(-dx, dy)) > 1e-9*peak || math.Abs(v-k.At(dx, -dy)) > 1e-9*peak {
-				return nil, false
-			}
-		}
-	}
-	// a[dy][kx] = sum_dx h(dx, dy) cos(pi kx dx / w), dy >= 0 only.
-	a := make([]float64, (ry+1)*w)
-	for dy := 0; dy <= ry; dy++ {
-		for kx := 0; kx < w; kx++ {
-			var s float64
-			for dx := -rx; dx <= rx; dx++ {
-				s += k.At(dx, dy) * math.Cos(math.Pi*float64(kx*dx)/float64(w))
-			}
-			a[dy*w+kx] = s
-		}
-	}
-	lam := make([]float64, w*h)
-	for ky := 0; ky < h; ky++ {
-		for kx := 0; kx < w; kx++ {
-			s := a[kx]
-			for dy := 1; dy <= ry; dy++ {
-				s += 2 * a[dy*w+kx] * math.Cos(math.Pi*float64(ky*dy)/float64(h))
-			}
-			lam[ky*w+kx] = s
-		}
-	}
-	return lam, true
 }
 
 // riskWeights holds the DCT-domain weights for one tile size.
@@ -137,7 +97,7 @@ type riskWeights struct {
 }
 
 func newRiskWeights(k *psf.Kernel, w, h int) (*riskWeights, bool) {
-	lam, ok := psfEigen(k, w, h)
+	lam, ok := conv.Eigenvalues(k, w, h)
 	if !ok {
 		return nil, false
 	}
@@ -155,7 +115,7 @@ type autoWork struct {
 	f, fn, u, un, hu, dq, dt, ue, delta, v, best []float32
 	cropD, cropM                                 []float32
 	gd, gv, F                                    []float64
-	dct                                          *dct2
+	dct                                          *conv.DCT2
 }
 
 func (a *autoWork) reset(w, h int) {
@@ -169,8 +129,8 @@ func (a *autoWork) reset(w, h int) {
 		}
 		*b = (*b)[:n]
 	}
-	if a.dct == nil || a.dct.w != w || a.dct.h != h {
-		a.dct = newDCT2(w, h)
+	if a.dct == nil || !a.dct.Fits(w, h) {
+		a.dct = conv.NewDCT2(w, h)
 	}
 }
 

@@ -8,6 +8,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // ems64 is a float64 re-implementation of the EMS recursion and of its
@@ -143,7 +144,7 @@ func TestJVPFiniteDifferences(t *testing.T) {
 		delta[i] = float64(2*rng.IntN(2) - 1)
 	}
 	for _, eps := range []float64{0, 0.5, 0.7} {
-		e := &ems64{w: w, h: h, k: k, smooth: SmoothingKernel(eps)}
+		e := &ems64{w: w, h: h, k: k, smooth: conv.SmoothingKernel(eps)}
 		_, u := e.run(d, delta, K)
 		const step = 1e-3
 		dp, dm := make([]float64, n), make([]float64, n)
@@ -160,9 +161,9 @@ func TestJVPFiniteDifferences(t *testing.T) {
 			t.Errorf("eps %g: forward-mode derivative vs finite differences: relative %.2e > %.0e", eps, r, tolFD)
 		}
 		// The production float32 iteration against the float64 one.
-		g := &GridEMS{H: NewConv(k)}
-		if sk := SmoothingKernel(eps); sk != nil {
-			g.S = NewSeparableConv(sk, sk)
+		g := &GridEMS{H: conv.New(k)}
+		if sk := conv.SmoothingKernel(eps); sk != nil {
+			g.S = conv.NewSeparable(sk, sk)
 		}
 		p := &Problem{D: make([]float32, n), Mask: ones(n), W: w, H: h}
 		for i := range d {
@@ -223,7 +224,7 @@ func TestRiskUnbiasedGaussian(t *testing.T) {
 	const sigma = 4.0
 	const zMax = 3.5
 	k, _ := psf.GaussianIso(1.2)
-	H := NewConv(k)
+	H := conv.New(k)
 	n := w * h
 	x := make([]float32, n)
 	for y := 0; y < h; y++ {
@@ -236,13 +237,13 @@ func TestRiskUnbiasedGaussian(t *testing.T) {
 		}
 	}
 	hx := make([]float32, n)
-	var cw ConvWork
+	var cw conv.Work
 	H.Apply(&cw, hx, x, w, h)
 	rw, ok := newRiskWeights(k, w, h)
 	if !ok {
 		t.Fatal("Gaussian PSF not DCT-diagonal")
 	}
-	dct := newDCT2(w, h)
+	dct := conv.NewDCT2(w, h)
 	X := make([]float64, n)
 	dct.Forward(X, x)
 	nm := &NoiseModel{B: sigma * sigma, Floor: 1e-6}

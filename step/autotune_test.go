@@ -12,6 +12,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 func memScene(w, h int, plane []float32) *raster.Mem {
@@ -74,7 +75,7 @@ func TestAutoRegularisation(t *testing.T) {
 		k, _ := psf.GaussianIso(s.sigma)
 		bestP, bestE, bestK := math.Inf(-1), 0.0, 0
 		for _, eps := range AutoSmooths {
-			g := newGrid(k, NewConv(k), eps, maxIt, 0)
+			g := newGrid(k, conv.New(k), eps, maxIt, 0)
 			g.Observe = func(it int, f []float32, _ float64) {
 				if v := PSNR(s.ref, f, interior, 4095); v > bestP {
 					bestP, bestE, bestK = v, eps, it

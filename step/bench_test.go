@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 // BenchmarkGridEMS512 measures grid EMS throughput on one 512x512 tile with
@@ -37,9 +38,9 @@ func benchKernel(b *testing.B, k *psf.Kernel, eps float64) {
 	for i := range d {
 		d[i] = 500 + 1000*r.Float32()
 	}
-	g := &GridEMS{H: NewConv(k), Iterations: iters}
-	if sk := SmoothingKernel(eps); sk != nil {
-		g.S = NewSeparableConv(sk, sk)
+	g := &GridEMS{H: conv.New(k), Iterations: iters}
+	if sk := conv.SmoothingKernel(eps); sk != nil {
+		g.S = conv.NewSeparable(sk, sk)
 	}
 	var ws Workspace
 	dst := make([]float32, n*n)
@@ -69,7 +70,7 @@ func BenchmarkRiskIteration512(b *testing.B) {
 	for i := range d {
 		d[i] = 500 + 1000*r.Float32()
 	}
-	g := newGrid(k, NewConv(k), 0.3, iters, 0)
+	g := newGrid(k, conv.New(k), 0.3, iters, 0)
 	rw, _ := newRiskWeights(k, n, n)
 	nm := &NoiseModel{A: 0.4, B: 9}
 	var ws Workspace

@@ -10,6 +10,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // Stop is the rule that ends a tile's iterations; the zero value means
@@ -61,7 +62,7 @@ type CandidateReport struct {
 	// BestIterations is the valid-pixel-weighted median of the tiles'
 	// risk-minimising iteration (each tile runs to its own stop, so the
 	// summed curve is not known far enough to take its minimum: a
-	// departure from GUIDE 4.5's "sum the curves" for the stop).
+	// departure from summing the curves, which the bandwidth choice does).
 	BestIterations int `json:"best_iterations"`
 	// Curve is the summed risk at the iterations every tile evaluated:
 	// pairs [k, R_k].
@@ -602,10 +603,10 @@ func lowMedian(v []float64) float64 {
 }
 
 // newGrid builds a plain GridEMS for (eps, k).
-func newGrid(k *psf.Kernel, H *Conv, eps float64, iters int, tol float64) *GridEMS {
+func newGrid(k *psf.Kernel, H *conv.Operator, eps float64, iters int, tol float64) *GridEMS {
 	g := &GridEMS{H: H, Iterations: iters, Tolerance: tol}
-	if sk := SmoothingKernel(eps); sk != nil {
-		g.S = NewSeparableConv(sk, sk)
+	if sk := conv.SmoothingKernel(eps); sk != nil {
+		g.S = conv.NewSeparable(sk, sk)
 	}
 	return g
 }
@@ -638,7 +639,7 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 	if err != nil {
 		return nil, err
 	}
-	rg := &regulariser{runner: r, noise: noise, H: NewConv(r.cfg.PSF), bs: &bandSolver{byBand: make([]Solver, len(r.bands))},
+	rg := &regulariser{runner: r, noise: noise, H: conv.New(r.cfg.PSF), bs: &bandSolver{byBand: make([]Solver, len(r.bands))},
 		particle: r.cfg.Method == MethodParticle, cache: map[[2]float64]Solver{}}
 	if !r.cfg.SmoothAuto && r.cfg.Stop != StopAuto {
 		return rg.discrepancy(), nil
@@ -677,7 +678,7 @@ func (r *runner) bandNoise(ctx context.Context) ([]NoiseModel, error) {
 type regulariser struct {
 	*runner
 	noise    []NoiseModel
-	H        *Conv
+	H        *conv.Operator
 	bs       *bandSolver
 	particle bool
 	cache    map[[2]float64]Solver

@@ -8,6 +8,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // Source: brute force. On a small scene the oracle (the candidate bandwidth
@@ -19,7 +20,7 @@ func TestAutoChoiceMatchesBruteForce(t *testing.T) {
 	const maxLoss = 0.3
 	rng := rand.New(rand.NewPCG(21, 22))
 	k, _ := psf.GaussianIso(1.5)
-	H := NewConv(k)
+	H := conv.New(k)
 	// Invented Brannock Vale fields (demo scenario) at 12 bits.
 	bands, _ := ValleyReference(n, n)
 	ref := bands[2]
@@ -127,7 +128,7 @@ func TestAutoWorkersIdentical(t *testing.T) {
 	for i := range valid {
 		valid[i] = true
 	}
-	obs := Degrade(bands[1], valid, n, n, NewConv(k), Noise{Gain: 0.4, Read: 3}, rng)
+	obs := Degrade(bands[1], valid, n, n, conv.New(k), Noise{Gain: 0.4, Read: 3}, rng)
 	for _, choose := range []string{ChooseGlobal, ChoosePerTile} {
 		var first []float32
 		for _, w := range []int{1, 3} {
@@ -159,7 +160,7 @@ func TestGlobalChoiceSumsCandidates(t *testing.T) {
 	for i := range valid {
 		valid[i] = true
 	}
-	obs := Degrade(bands[2], valid, n, n, NewConv(k), Noise{Gain: 0.4, Read: 3}, rng)
+	obs := Degrade(bands[2], valid, n, n, conv.New(k), Noise{Gain: 0.4, Read: 3}, rng)
 	_, rep, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Tile: 48, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: 30})
 	ch := rep.Bands[0].Choice
 	if ch.TilesUsed < 2 {

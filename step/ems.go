@@ -2,6 +2,7 @@ package step
 
 import (
 	"context"
+	"limpid/step/conv"
 	"math"
 )
 
@@ -54,7 +55,7 @@ type Solver interface {
 // Workspace is one worker's scratch memory, reused across tiles; it grows to
 // the largest tile and never allocates in the iteration loop afterwards.
 type Workspace struct {
-	conv              ConvWork
+	conv              conv.Work
 	f, fn, p, q, t, s []float32
 	auto              *autoWork
 	pw                *particleWork // particle method state (particle.go)
@@ -79,9 +80,9 @@ func (ws *Workspace) reset(n int) {
 // the Poisson maximum-likelihood EM of Shepp & Vardi (IEEE TMI 1:113, 1982).
 // The start is a flat image carrying the tile's flux above background.
 type GridEMS struct {
-	H *Conv
+	H *conv.Operator
 	// S is the smoothing operator; nil means identity (Richardson-Lucy).
-	S *Conv
+	S *conv.Operator
 	// Iterations is the maximum number of iterations (>= 1).
 	Iterations int
 	// Tolerance stops early when the relative L1 change falls below it

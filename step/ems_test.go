@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 func solve(t *testing.T, g *GridEMS, d, mask []float32, w, h int, b float32) ([]float32, Result) {
@@ -48,9 +49,9 @@ func TestEMSFlux(t *testing.T) {
 	}
 	g15, _ := psf.GaussianIso(1.5)
 	for _, eps := range []float64{0, 0.3, 0.7, 1.5} {
-		g := &GridEMS{H: NewConv(g15), Iterations: 30}
-		if k := SmoothingKernel(eps); k != nil {
-			g.S = NewSeparableConv(k, k)
+		g := &GridEMS{H: conv.New(g15), Iterations: 30}
+		if k := conv.SmoothingKernel(eps); k != nil {
+			g.S = conv.NewSeparable(k, k)
 		}
 		f, res := solve(t, g, d, ones(w*h), w, h, 0)
 		var sf float64
@@ -63,10 +64,10 @@ func TestEMSFlux(t *testing.T) {
 	}
 	// Asymmetric kernel, Richardson-Lucy: sum(H f) == sum(d).
 	asym, _ := psf.NewKernel(5, 3, []float64{0, 1, 2, 1, 0, 1, 3, 5, 2, 1, 0, 2, 1, 0, 0})
-	g := &GridEMS{H: NewConv(asym), Iterations: 20}
+	g := &GridEMS{H: conv.New(asym), Iterations: 20}
 	f, _ := solve(t, g, d, ones(w*h), w, h, 0)
 	hf := make([]float32, w*h)
-	var ws ConvWork
+	var ws conv.Work
 	g.H.Apply(&ws, hf, f, w, h)
 	var shf float64
 	for _, v := range hf {
@@ -117,8 +118,8 @@ func TestGaussianFixedPoint(t *testing.T) {
 	for _, c := range cases {
 		d, H := fixedPointData(t, c.sf, c.sg, z)
 		n := len(d)
-		sk := SmoothingKernel(c.eps * z)
-		g := &GridEMS{H: NewConv(H), S: NewSeparableConv(sk, []float64{1}), Iterations: 20000, Tolerance: 1e-9}
+		sk := conv.SmoothingKernel(c.eps * z)
+		g := &GridEMS{H: conv.New(H), S: conv.NewSeparable(sk, []float64{1}), Iterations: 20000, Tolerance: 1e-9}
 		f, res := solve(t, g, d, ones(n), n, 1, 0)
 		got := variance1D(f) / (z * z)
 		if math.Abs(got-c.want) > tol*c.want {
@@ -167,7 +168,7 @@ func TestGaussianFixedPoint2D(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		g := &GridEMS{H: NewConv(H), S: NewSeparableConv(SmoothingKernel(cx.eps*z), SmoothingKernel(cy.eps*z)),
+		g := &GridEMS{H: conv.New(H), S: conv.NewSeparable(conv.SmoothingKernel(cx.eps*z), conv.SmoothingKernel(cy.eps*z)),
 			Iterations: 20000, Tolerance: 1e-9}
 		f, res := solve(t, g, d, ones(w*h), w, h, 0)
 		col := make([]float32, h)

@@ -2,10 +2,9 @@ package step
 
 import (
 	"fmt"
+	"limpid/step/conv"
 	"math"
 	"sort"
-
-	"limpid/raster"
 )
 
 // Noise estimation from the image itself.
@@ -123,8 +122,8 @@ type NoiseSampler struct {
 	seen  int
 }
 
-// noiseSmoothSigma is the Gaussian that the smoothness score uses (GUIDE
-// section 4.1).
+// noiseSmoothSigma is the Gaussian that the smoothness score uses (our
+// prototype's value, common practice, no source).
 const noiseSmoothSigma = 2.0
 
 // Add samples the pixels of plane d (w x h) inside [x0, x1) x [y0, y1)
@@ -140,11 +139,11 @@ func (s *NoiseSampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) 
 	}
 	// Invalid pixels take the plane's valid mean before the blur so they do
 	// not ring into the smoothness score.
-	src, ok := meanFilled(d, valid, w*h)
+	src, ok := conv.MeanFilled(d, valid, w*h)
 	if !ok {
 		return
 	}
-	sm := blur64(src, w, h, gaussianTaps(noiseSmoothSigma))
+	sm := conv.Blur64(src, w, h, conv.GaussianTaps(noiseSmoothSigma))
 	x0, y0 = max(x0, 1), max(y0, 1)
 	x1, y1 = min(x1, w-1), min(y1, h-1)
 	for y := y0; y < y1; y++ {
@@ -179,23 +178,9 @@ func (s *NoiseSampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) 
 	}
 }
 
-func gaussianTaps(sigma float64) []float64 {
-	r := int(math.Ceil(3 * sigma))
-	g := make([]float64, 2*r+1)
-	var s float64
-	for i := range g {
-		d := float64(i - r)
-		g[i] = math.Exp(-d * d / (2 * sigma * sigma))
-		s += g[i]
-	}
-	for i := range g {
-		g[i] /= s
-	}
-	return g
-}
-
-// Noise fit settings (GUIDE section 4.1; prototype values, common practice,
-// no source beyond it).
+// Noise fit settings: the binned fit of Foi, Trimeche, Katkovnik &
+// Egiazarian (IEEE TIP 17(10):1737-1754, 2008), simplified; the values are
+// our prototype's (common practice, no source).
 const (
 	noiseBins       = 24
 	noiseMinPerBin  = 50
@@ -204,7 +189,8 @@ const (
 	noisePasses     = 3
 	// NoiseInflation multiplies the estimated variance where the risk
 	// estimate uses it: underestimating the noise is the dangerous side
-	// (GUIDE section 4.1).
+	// (it makes the risk favour noise amplification; prototype value,
+	// common practice, no source).
 	NoiseInflation = 1.05
 )
 
@@ -370,56 +356,4 @@ func median(v []float64) float64 {
 		return v[n/2]
 	}
 	return 0.5 * (v[n/2-1] + v[n/2])
-}
-
-// meanFilled returns d (n values) as float64 with invalid pixels replaced by
-// the mean of the valid ones (valid nil: all valid); false when none is
-// valid.
-func meanFilled(d []float32, valid []bool, n int) ([]float64, bool) {
-	var mu float64
-	nv := 0
-	for i, v := range d[:n] {
-		if valid == nil || valid[i] {
-			mu += float64(v)
-			nv++
-		}
-	}
-	if nv == 0 {
-		return nil, false
-	}
-	mu /= float64(nv)
-	out := make([]float64, n)
-	for i, v := range d[:n] {
-		if valid == nil || valid[i] {
-			out[i] = float64(v)
-		} else {
-			out[i] = mu
-		}
-	}
-	return out, true
-}
-
-// blur64 is a separable blur with half-sample symmetric borders.
-func blur64(src []float64, w, h int, g []float64) []float64 {
-	r := (len(g) - 1) / 2
-	tmp, out := make([]float64, w*h), make([]float64, w*h)
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * src[y*w+raster.Mirror(x+k, w)]
-			}
-			tmp[y*w+x] = a
-		}
-	}
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * tmp[raster.Mirror(y+k, h)*w+x]
-			}
-			out[y*w+x] = a
-		}
-	}
-	return out
 }

@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 // Source: Immerkaer, CVIU 64(2):300-302, 1996: for white Gaussian noise the
@@ -59,7 +60,7 @@ func noiseScene(t *testing.T, n int, nz Noise, rng *rand.Rand) []float32 {
 	for i := range valid {
 		valid[i] = true
 	}
-	return Degrade(ref, valid, n, n, NewConv(k), nz, rng)
+	return Degrade(ref, valid, n, n, conv.New(k), nz, rng)
 }
 
 // Source: the Poisson-Gaussian model itself: DN = g Poisson(x/g) + N(0, r^2)

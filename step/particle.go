@@ -10,6 +10,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // Potential selects how the particle method evaluates the EMS potential.
@@ -132,7 +133,7 @@ type ParticleTiming struct {
 // Random numbers: a math/rand/v2 PCG seeded from (Seed, Problem.Key) only,
 // so results are identical for any worker count and tile order.
 type ParticleEMS struct {
-	H *Conv
+	H *conv.Operator
 	// PSF is the kernel H was built from (needed by PotentialSampled).
 	PSF *psf.Kernel
 	// SmoothX, SmoothY are the 1-D smoothing kernels (odd length, from
@@ -166,7 +167,7 @@ type ParticleEMS struct {
 	Timing *ParticleTiming
 
 	once       sync.Once
-	s          *Conv
+	s          *conv.Operator
 	mutX, mutY moveTable
 	jump       jumpTable
 	alias      aliasTable
@@ -268,7 +269,7 @@ func (pe *ParticleEMS) init() {
 		sy = []float64{1}
 	}
 	if len(sx) > 1 || len(sy) > 1 {
-		pe.s = NewSeparableConv(sx, sy)
+		pe.s = conv.NewSeparable(sx, sy)
 	}
 	pe.mutX, pe.mutY = newMoveTable(pe.SmoothX), newMoveTable(pe.SmoothY)
 	pe.jump = newJumpTable(pe.SmoothX, pe.SmoothY)

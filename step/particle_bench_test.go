@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 // BenchmarkParticleEMS512 measures the particle method on one 512x512 tile
@@ -35,9 +36,9 @@ func benchParticle(b *testing.B, pot Potential, ess float64, reps int) {
 		d[i] = 500 + 1000*r.Float32()
 	}
 	k, _ := psf.GaussianIso(1.5)
-	sk := SmoothingKernel(DefaultSmooth)
+	sk := conv.SmoothingKernel(DefaultSmooth)
 	var tm ParticleTiming
-	pe := &ParticleEMS{H: NewConv(k), PSF: k, SmoothX: sk, SmoothY: sk, Iterations: iters, PerPixel: K,
+	pe := &ParticleEMS{H: conv.New(k), PSF: k, SmoothX: sk, SmoothY: sk, Iterations: iters, PerPixel: K,
 		Potential: pot, Resampling: Stratified, ESSThreshold: ess, BurnIn: iters / 2, Batches: 5, Replicates: reps, Seed: 1}
 	var ws Workspace
 	dst, se := make([]float32, n*n), make([]float32, n*n)

@@ -2,6 +2,7 @@ package step
 
 import (
 	"fmt"
+	"limpid/step/conv"
 	"math"
 )
 
@@ -9,7 +10,7 @@ import (
 // accuracy" has the measurements behind them).
 const (
 	DefaultPerPixel     = 16
-	DefaultESSThreshold = 0.5 // common practice, no source (GUIDE section 2)
+	DefaultESSThreshold = 0.5 // common practice, no source
 	DefaultBatches      = 10
 	DefaultResampling   = Stratified
 	DefaultPotential    = PotentialExact
@@ -113,8 +114,8 @@ func (cfg *Config) resolveParticle() error {
 // newParticleSolver builds the ParticleEMS cfg describes (after Resolve).
 func (cfg *Config) newParticleSolver() *ParticleEMS {
 	pc := cfg.Particle
-	k := SmoothingKernel(cfg.Smooth)
-	return &ParticleEMS{H: NewConv(cfg.PSF), PSF: cfg.PSF, SmoothX: k, SmoothY: k, Iterations: cfg.Iterations,
+	k := conv.SmoothingKernel(cfg.Smooth)
+	return &ParticleEMS{H: conv.New(cfg.PSF), PSF: cfg.PSF, SmoothX: k, SmoothY: k, Iterations: cfg.Iterations,
 		PerPixel: pc.PerPixel, Potential: pc.Potential, Resampling: pc.Resampling, ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn,
 		Start: pc.Start, Batches: pc.Batches, Replicates: pc.Replicates, Seed: cfg.Seed}
 }

@@ -12,6 +12,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // measureScene is one scene of the particle measurements.
@@ -29,7 +30,7 @@ func measureScenes(t *testing.T, n int) []measureScene {
 	if err != nil {
 		t.Fatal(err)
 	}
-	H := NewConv(k)
+	H := conv.New(k)
 	rng := rand.New(rand.NewPCG(2026, 3))
 	bands, valid := ValleyReference(n, n)
 	red := bands[2]
@@ -149,8 +150,8 @@ func variance(t *testing.T, md *strings.Builder, scenes []measureScene) {
 			return out
 		}
 		d, ref := crop(s.obs), crop(s.ref)
-		sk := SmoothingKernel(DefaultSmooth)
-		g := &GridEMS{H: NewConv(s.k), S: NewSeparableConv(sk, sk), Iterations: DefaultIterations}
+		sk := conv.SmoothingKernel(DefaultSmooth)
+		g := &GridEMS{H: conv.New(s.k), S: conv.NewSeparable(sk, sk), Iterations: DefaultIterations}
 		gf := make([]float32, n*n)
 		var ws Workspace
 		g.Solve(context.Background(), &ws, &Problem{D: append([]float32(nil), d...), Mask: ones(n * n), W: n, H: n}, gf)
@@ -162,7 +163,7 @@ func variance(t *testing.T, md *strings.Builder, scenes []measureScene) {
 			sum, sq := make([]float64, n*n), make([]float64, n*n)
 			var el time.Duration
 			for seed := 0; seed < seeds; seed++ {
-				pe := &ParticleEMS{H: NewConv(s.k), PSF: s.k, SmoothX: sk, SmoothY: sk, Iterations: DefaultIterations, PerPixel: 16,
+				pe := &ParticleEMS{H: conv.New(s.k), PSF: s.k, SmoothX: sk, SmoothY: sk, Iterations: DefaultIterations, PerPixel: 16,
 					ESSThreshold: DefaultESSThreshold, BurnIn: DefaultIterations / 2, Batches: 5, Seed: uint64(seed + 1)}
 				v.set(pe)
 				f := make([]float32, n*n)

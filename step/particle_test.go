@@ -9,6 +9,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // particleProblem is the fixed small problem of the particle tests: a 32x32
@@ -31,15 +32,15 @@ func particleProblem(t testing.TB) (d []float32, n int, k *psf.Kernel, sk []floa
 	for i := range valid {
 		valid[i] = true
 	}
-	d = Degrade(crop, valid, n, n, NewConv(k), Noise{Gain: 0.4, Read: 3}, rand.New(rand.NewPCG(5, 6)))
-	return d, n, k, SmoothingKernel(0.5)
+	d = Degrade(crop, valid, n, n, conv.New(k), Noise{Gain: 0.4, Read: 3}, rand.New(rand.NewPCG(5, 6)))
+	return d, n, k, conv.SmoothingKernel(0.5)
 }
 
 // gridFixedPoint runs grid EMS to its fixed point: on this problem the
 // iterate at 500 equals those at 1000, 2000 and 5000 to float32 rounding
 // (measured, smooth 0.2 and 0.5).
 func gridFixedPoint(t testing.TB, d []float32, n int, k *psf.Kernel, sk []float64) []float32 {
-	g := &GridEMS{H: NewConv(k), S: NewSeparableConv(sk, sk), Iterations: 500, Tolerance: 1e-9}
+	g := &GridEMS{H: conv.New(k), S: conv.NewSeparable(sk, sk), Iterations: 500, Tolerance: 1e-9}
 	p := &Problem{D: append([]float32(nil), d...), Mask: ones(n * n), W: n, H: n}
 	f := make([]float32, n*n)
 	var ws Workspace
@@ -50,7 +51,7 @@ func gridFixedPoint(t testing.TB, d []float32, n int, k *psf.Kernel, sk []float6
 }
 
 func newTestParticle(k *psf.Kernel, sk []float64, perPixel int, seed uint64) *ParticleEMS {
-	return &ParticleEMS{H: NewConv(k), PSF: k, SmoothX: sk, SmoothY: sk, Iterations: 200, PerPixel: perPixel,
+	return &ParticleEMS{H: conv.New(k), PSF: k, SmoothX: sk, SmoothY: sk, Iterations: 200, PerPixel: perPixel,
 		ESSThreshold: 0.5, BurnIn: 100, Batches: 10, Seed: seed}
 }
 
@@ -170,7 +171,7 @@ func TestParticleErrorBarsCalibrated(t *testing.T) {
 		{"replicates, smooth 0.2, 50 iterations", 0.2, 50, 25, 4},
 		{"batch means, smooth 0.5, 200 iterations", 0.5, 200, 100, 1},
 	} {
-		sk := SmoothingKernel(c.eps)
+		sk := conv.SmoothingKernel(c.eps)
 		grid := gridFixedPoint(t, d, n, k, sk)
 		K := 16
 		if c.reps == 1 {
@@ -208,7 +209,7 @@ func TestParticleGaussianFixedPoint(t *testing.T) {
 		var vs []float64
 		var ws Workspace
 		for s := 0; s < seeds; s++ {
-			pe := &ParticleEMS{H: NewConv(H), PSF: H, SmoothX: SmoothingKernel(c.eps * z), Iterations: 400, PerPixel: 32,
+			pe := &ParticleEMS{H: conv.New(H), PSF: H, SmoothX: conv.SmoothingKernel(c.eps * z), Iterations: 400, PerPixel: 32,
 				ESSThreshold: 0.5, BurnIn: 150, Batches: 10, Seed: uint64(s + 1)}
 			f, _ := particleSolve(t, pe, &ws, d, ones(n), n, 1, TileKey{})
 			vs = append(vs, variance1D(f)/(z*z))
@@ -320,7 +321,7 @@ func TestParticleFluxEveryStep(t *testing.T) {
 	const w, h = 37, 23
 	var pcg rand.PCG
 	pcg.Seed(3, 4)
-	pe := &ParticleEMS{SmoothX: SmoothingKernel(1.7), SmoothY: SmoothingKernel(0.4), Resampling: Stratified}
+	pe := &ParticleEMS{SmoothX: conv.SmoothingKernel(1.7), SmoothY: conv.SmoothingKernel(0.4), Resampling: Stratified}
 	pe.init()
 	pw := &particleWork{}
 	np := 8 * w * h
@@ -417,7 +418,7 @@ func TestParticleFluxEveryStep(t *testing.T) {
 // ~ sqrt(2/n) eps^2 for a near-normal law; common practice, no source).
 func TestMutationVariance(t *testing.T) {
 	for _, eps := range []float64{0.2, 0.5, 0.9, 2} {
-		m := newMoveTable(SmoothingKernel(eps))
+		m := newMoveTable(conv.SmoothingKernel(eps))
 		var pcg rand.PCG
 		pcg.Seed(11, uint64(eps*100))
 		const n = 200000
@@ -565,7 +566,7 @@ func TestParticleBlendedSE(t *testing.T) {
 func TestCloudMoveLaw(t *testing.T) {
 	const n, side = 400000, 4096
 	for _, c := range []struct{ ex, ey float64 }{{0.2, 0.2}, {0.3, 0.1}, {0.5, 0.5}, {0.9, 0.4}, {0.2, 0}} {
-		pe := &ParticleEMS{SmoothX: SmoothingKernel(c.ex), SmoothY: SmoothingKernel(c.ey)}
+		pe := &ParticleEMS{SmoothX: conv.SmoothingKernel(c.ex), SmoothY: conv.SmoothingKernel(c.ey)}
 		pe.init()
 		pw := &particleWork{x: make([]float32, n), y: make([]float32, n)}
 		pw.rng.Seed(9, uint64(100*c.ex+10*c.ey))

@@ -320,3 +320,11 @@ func isCancel(err error) bool {
 
 // nan is the value invalid pixels take in restored outputs.
 var nan = float32(math.NaN())
+
+// grow returns b resized to n, reallocated only when too small.
+func grow(b []float32, n int) []float32 {
+	if cap(b) < n {
+		return make([]float32, n)
+	}
+	return b[:n]
+}

@@ -48,7 +48,7 @@ func ParseResampling(s string) (Resampling, error) {
 }
 
 // ESS is the effective sample size (sum w)^2 / sum w^2 of unnormalised
-// weights (Kong, Liu & Wong, JASA 89:278, 1994; GUIDE section 2).
+// weights (Kong, Liu & Wong, JASA 89:278, 1994).
 func ESS(w []float32) float64 {
 	var s, s2 float64
 	for _, v := range w {

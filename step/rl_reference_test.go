@@ -7,6 +7,7 @@ import (
 	"testing"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 // Source: scikit-image 0.19.3 skimage.restoration.richardson_lucy (Debian
@@ -47,7 +48,7 @@ func TestRichardsonLucyMatchesScikitImage(t *testing.T) {
 		for i, v := range c.Image {
 			d[i] = float32(v)
 		}
-		g := &GridEMS{H: NewConv(k), Iterations: c.Iterations}
+		g := &GridEMS{H: conv.New(k), Iterations: c.Iterations}
 		f, _ := solve(t, g, d, ones(w*h), w, h, 0)
 		margin := 2 * max(k.Rx(), k.Ry()) * (c.Iterations + 1)
 		n := 0
@@ -56,7 +57,7 @@ func TestRichardsonLucyMatchesScikitImage(t *testing.T) {
 				i := y*w + x
 				want := c.Skimage[i]
 				if math.Abs(float64(f[i])-want) > tol*math.Abs(want) {
-					t.Fatalf("%s (%s): pixel (%d,%d) = %.7g, scikit-image %.7g", c.Name, NewConv(k).Kind(), x, y, f[i], want)
+					t.Fatalf("%s (%s): pixel (%d,%d) = %.7g, scikit-image %.7g", c.Name, conv.New(k).Kind(), x, y, f[i], want)
 				}
 				n++
 			}

@@ -13,6 +13,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // Version is limpid's version, recorded in outputs and reports.
@@ -91,11 +92,12 @@ type Config struct {
 
 // DefaultOverlap is the halo rule: 4 (r_H + r_S) rounded up to a multiple of
 // 8, at least 16, at most the tile size. Exact tile independence would need
-// K (2 r_H + r_S) after K iterations (GUIDE section 2); the influence of the
+// K (2 r_H + r_S) after K iterations (derived: each EMS iteration applies H,
+// H^T and S, so a pixel's influence spreads 2 r_H + r_S per iteration); the influence of the
 // tile border decays fast, and the tiled-vs-whole test measures that this
 // halo keeps the difference below 0.5 % of the data range.
 func DefaultOverlap(k *psf.Kernel, smooth float64, tile int) int {
-	rs := (len(SmoothingKernel(smooth)) - 1) / 2
+	rs := (len(conv.SmoothingKernel(smooth)) - 1) / 2
 	if rs < 0 {
 		rs = 0
 	}
@@ -350,9 +352,9 @@ func (cfg *Config) NewSolver() Solver {
 	if cfg.Method == MethodParticle {
 		return cfg.newParticleSolver()
 	}
-	g := &GridEMS{H: NewConv(cfg.PSF), Iterations: cfg.Iterations, Tolerance: cfg.Tolerance}
-	if k := SmoothingKernel(cfg.Smooth); k != nil {
-		g.S = NewSeparableConv(k, k)
+	g := &GridEMS{H: conv.New(cfg.PSF), Iterations: cfg.Iterations, Tolerance: cfg.Tolerance}
+	if k := conv.SmoothingKernel(cfg.Smooth); k != nil {
+		g.S = conv.NewSeparable(k, k)
 	}
 	if cfg.Stop == StopDiscrepancy && cfg.Noise != nil {
 		// Stateless per tile with a given noise model (tile streams);
@@ -425,7 +427,7 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 // newReport records the resolved job (bands are added by Restore).
 func newReport(cfg *Config, plan Plan, solver Solver) *Report {
 	rep := &Report{Version: Version, Method: solver.Name(), PSF: cfg.PSFSpec, PSFSize: [2]int{cfg.PSF.W, cfg.PSF.H},
-		ConvPath: NewConv(cfg.PSF).Kind(), Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
+		ConvPath: conv.New(cfg.PSF).Kind(), Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
 		Tile: cfg.Tile, Overlap: plan.Overlap, Blend: plan.Blend, Workers: cfg.Workers, Seed: cfg.Seed,
 		Width: plan.W, Height: plan.H}
 	if cfg.HasSaturated {

@@ -8,6 +8,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // valleyScene builds an observed in-memory scene of the demo scenario.
@@ -18,7 +19,7 @@ func valleyScene(t testing.TB, w, h int, sigma float64) (*raster.Mem, [][]float3
 	if err != nil {
 		t.Fatal(err)
 	}
-	H := NewConv(k)
+	H := conv.New(k)
 	rng := rand.New(rand.NewPCG(11, 12))
 	meta := raster.Meta{Width: w, Height: h, DataType: "Float32"}
 	for range ref {

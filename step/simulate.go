@@ -9,6 +9,7 @@ import (
 	"strings"
 
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // Simulation: the degradation that turns a sharp scene into an observation,
@@ -104,7 +105,7 @@ func ParseSimNoise(spec string) (SimNoise, error) {
 
 // SimConfig configures Simulate.
 type SimConfig struct {
-	H     *Conv
+	H     *conv.Operator
 	Noise SimNoise
 	// Seed selects the random streams; the stream of a pixel depends only on
 	// Seed, its band and its row, so the output is the same for any strip
@@ -148,7 +149,7 @@ func Simulate(ctx context.Context, src raster.Reader, dst raster.Writer, cfg Sim
 	for i := range bands {
 		bands[i] = i
 	}
-	var ws ConvWork
+	var ws conv.Work
 	maxExt := min(strip, Hh) + 2*ry
 	in := make([][]float32, nb)
 	for i := range in {

@@ -8,6 +8,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/conv"
 )
 
 // simLevels is an invented test scene: horizontal stripes of constant level,
@@ -36,7 +37,7 @@ func simRun(t *testing.T, src *raster.Mem, spec, noise, dtype string, seed uint6
 	}
 	m := src.Meta()
 	dst := raster.NewMem(m)
-	cfg := SimConfig{H: NewConv(k), Noise: nz, Seed: seed, DataType: dtype, Strip: strip,
+	cfg := SimConfig{H: conv.New(k), Noise: nz, Seed: seed, DataType: dtype, Strip: strip,
 		NoData: m.Bands[0].NoData, HasNoData: m.Bands[0].HasNoData,
 		OutNoData: m.Bands[0].NoData, HasOutNoData: m.Bands[0].HasNoData}
 	if err := Simulate(context.Background(), src, dst, cfg); err != nil {
@@ -131,9 +132,9 @@ func TestSimulateBlurAndDeterminism(t *testing.T) {
 	copy(src.Bands[0], ref[2])
 	for _, spec := range []string{"gaussian:sigma=1.5", "gaussian:sx=1.6,sy=0.7,angle=30"} {
 		k, _ := psf.Parse(spec, psf.Env{})
-		H := NewConv(k)
+		H := conv.New(k)
 		want := make([]float32, w*h)
-		var ws ConvWork
+		var ws conv.Work
 		H.Apply(&ws, want, src.Bands[0], w, h)
 		got := simRun(t, src, spec, "none", "Float32", 1, 10)
 		// Tolerance: float32 rounding of a sum of ~100 products of values

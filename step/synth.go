@@ -1,6 +1,7 @@
 package step
 
 import (
+	"limpid/step/conv"
 	"math"
 	"math/rand/v2"
 )
@@ -158,9 +159,9 @@ type Noise struct {
 
 // Degrade blurs the reference with the PSF operator (half-sample symmetric
 // boundaries) and adds noise; invalid pixels are left at 0.
-func Degrade(ref []float32, valid []bool, w, h int, H *Conv, nz Noise, rng *rand.Rand) []float32 {
+func Degrade(ref []float32, valid []bool, w, h int, H *conv.Operator, nz Noise, rng *rand.Rand) []float32 {
 	out := make([]float32, w*h)
-	var ws ConvWork
+	var ws conv.Work
 	H.Apply(&ws, out, ref, w, h)
 	for i, v := range out {
 		if !valid[i] {

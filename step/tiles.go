@@ -72,7 +72,8 @@ func (p Plan) OutSpan(spans []Span, i int) Span {
 // Weights fills wt (length OutSpan(spans, i).Len()) with the tile's blend
 // weights along one axis: sin^2 up across the left border, cos^2 down across
 // the right border, 1 elsewhere. Neighbouring tiles' weights sum to 1
-// (sin^2 + cos^2 = 1), so the separable 2-D products do too (GUIDE section 2).
+// (sin^2 + cos^2 = 1), so the separable 2-D products do too (derived: the
+// product of two partitions of unity is one).
 func (p Plan) Weights(wt []float32, spans []Span, i int) {
 	out := p.OutSpan(spans, i)
 	s := spans[i]

@@ -15,6 +15,7 @@ import (
 	"testing"
 
 	"limpid/psf"
+	"limpid/step/conv"
 )
 
 // townAt is an invented town (for the tuning scenes only): blocks of roofs
@@ -95,7 +96,7 @@ func tuneScenes(t *testing.T, n int) []tuneScene {
 				for i := range valid {
 					valid[i] = true
 				}
-				obs := Degrade(c.ref, valid, n, n, NewConv(k), nz, rng)
+				obs := Degrade(c.ref, valid, n, n, conv.New(k), nz, rng)
 				for i, v := range obs {
 					obs[i] = float32(math.Min(4095, math.Max(0, math.Round(float64(v)))))
 				}
@@ -159,9 +160,9 @@ func TestTuneDefaults(t *testing.T) {
 		for ei, eps := range epss {
 			curve := make([]float64, 0, maxIt)
 			stopped := false
-			g := &GridEMS{H: NewConv(k), Iterations: maxIt}
-			if sk := SmoothingKernel(eps); sk != nil {
-				g.S = NewSeparableConv(sk, sk)
+			g := &GridEMS{H: conv.New(k), Iterations: maxIt}
+			if sk := conv.SmoothingKernel(eps); sk != nil {
+				g.S = conv.NewSeparable(sk, sk)
 			}
 			g.Observe = func(it int, f []float32, change float64) {
 				if stopped {

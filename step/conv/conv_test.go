@@ -1,4 +1,4 @@
-package step
+package conv
 
 import (
 	"math"
@@ -85,12 +85,12 @@ func TestConvMatchesDefinition(t *testing.T) {
 	const tol = 1e-5
 	r := rand.New(rand.NewPCG(3, 4))
 	for name, k := range testKernels(t) {
-		c := NewConv(k)
+		c := New(k)
 		for _, sz := range [][2]int{{37, 23}, {8, 5}, {3, 2}} {
 			w, h := sz[0], sz[1]
 			src := randPlane(r, w*h)
 			dst := make([]float32, w*h)
-			var ws ConvWork
+			var ws Work
 			c.Apply(&ws, dst, src, w, h)
 			want := naiveConv(k, src, w, h)
 			for i := range dst {
@@ -109,12 +109,12 @@ func TestConvAdjoint(t *testing.T) {
 	const tol = 1e-5
 	r := rand.New(rand.NewPCG(5, 6))
 	for name, k := range testKernels(t) {
-		c := NewConv(k)
+		c := New(k)
 		for _, sz := range [][2]int{{37, 23}, {8, 5}, {4, 3}} {
 			w, h := sz[0], sz[1]
 			x, y := randPlane(r, w*h), randPlane(r, w*h)
 			hx, hty := make([]float32, w*h), make([]float32, w*h)
-			var ws ConvWork
+			var ws Work
 			c.Apply(&ws, hx, x, w, h)
 			c.Adjoint(&ws, hty, y, w, h)
 			var a, b float64
@@ -131,7 +131,7 @@ func TestConvAdjoint(t *testing.T) {
 
 func TestConvKindChoice(t *testing.T) {
 	for name, k := range testKernels(t) {
-		c := NewConv(k)
+		c := New(k)
 		want := name[:len(c.Kind())]
 		if c.Kind() != want {
 			t.Errorf("%s: chose %s", name, c.Kind())

@@ -1,4 +1,4 @@
-package step
+package conv
 
 import (
 	"math"
@@ -21,7 +21,7 @@ func TestDCT2Definition(t *testing.T) {
 			x[i] = float32(rng.NormFloat64())
 		}
 		got := make([]float64, w*h)
-		newDCT2(w, h).Forward(got, x)
+		NewDCT2(w, h).Forward(got, x)
 		ax, ay := dctScales(w), dctScales(h)
 		for ky := 0; ky < h; ky++ {
 			for kx := 0; kx < w; kx++ {
@@ -38,7 +38,7 @@ func TestDCT2Definition(t *testing.T) {
 			}
 		}
 		back := make([]float64, w*h)
-		newDCT2(w, h).Inverse(back, got)
+		NewDCT2(w, h).Inverse(back, got)
 		for i := range back {
 			if math.Abs(back[i]-float64(x[i])) > tol {
 				t.Fatalf("%dx%d: inverse differs at %d: %g vs %g", w, h, i, back[i], x[i])
@@ -55,20 +55,20 @@ func TestDCTDiagonalisesSymmetricPSF(t *testing.T) {
 	const w, h = 40, 32
 	const tol = 2e-5 // float32 convolution of O(1) values
 	k, _ := psf.GaussianAniso(1.3, 0.8, 0)
-	H := NewConv(k)
+	H := New(k)
 	rng := rand.New(rand.NewPCG(7, 8))
 	x := make([]float32, w*h)
 	for i := range x {
 		x[i] = float32(rng.Float64())
 	}
 	hx := make([]float32, w*h)
-	var cw ConvWork
+	var cw Work
 	H.Apply(&cw, hx, x, w, h)
-	d := newDCT2(w, h)
+	d := NewDCT2(w, h)
 	X, HX := make([]float64, w*h), make([]float64, w*h)
 	d.Forward(X, x)
 	d.Forward(HX, hx)
-	lam, ok := psfEigen(k, w, h)
+	lam, ok := Eigenvalues(k, w, h)
 	if !ok {
 		t.Fatal("a symmetric Gaussian was not found DCT-diagonal")
 	}
@@ -78,7 +78,7 @@ func TestDCTDiagonalisesSymmetricPSF(t *testing.T) {
 		}
 	}
 	skew := &psf.Kernel{W: 3, H: 3, Data: []float64{0, 0, 0, 0, 0.5, 0.5, 0, 0, 0}}
-	if _, ok := psfEigen(skew, w, h); ok {
+	if _, ok := Eigenvalues(skew, w, h); ok {
 		t.Fatal("an asymmetric kernel was called DCT-diagonal")
 	}
 }

@@ -1,4 +1,4 @@
-package step
+package conv
 
 import (
 	"gonum.org/v1/gonum/dsp/fourier"
@@ -7,7 +7,7 @@ import (
 	"limpid/raster"
 )
 
-// convKind is the implementation a Conv uses.
+// convKind is the implementation a Operator uses.
 type convKind int
 
 const (
@@ -21,12 +21,12 @@ func (k convKind) String() string {
 }
 
 // directMaxTaps is the largest non-separable kernel convolved directly; larger
-// ones go through the FFT. Measured on this machine class (GUIDE section 1):
-// direct 13x13 took 67 ms on 512x512 against 27-36 ms for the FFT; a 7x7
+// ones go through the FFT. Measured on this machine class (2 cores, gonum
+// v0.17 dsp/fourier, go1.26): direct 13x13 took 67 ms on 512x512 against 27-36 ms for the FFT; a 7x7
 // direct kernel costs about a quarter of the 13x13 one.
 const directMaxTaps = 81
 
-// Conv is the linear operator "convolve with kernel h under half-sample
+// Operator is the linear operator "convolve with kernel h under half-sample
 // symmetric extension" on w x h float32 planes, with its exact adjoint.
 //
 // Forward: H = V ∘ E, where E extends the plane by the kernel radius with
@@ -37,8 +37,8 @@ const directMaxTaps = 81
 // H^T exact for any kernel, which the EM flux identity sum(s*e) = sum(d)
 // (Shepp & Vardi 1982) needs.
 //
-// A Conv is immutable and shared by workers; each worker owns a ConvWork.
-type Conv struct {
+// A Operator is immutable and shared by workers; each worker owns a Work.
+type Operator struct {
 	kind   convKind
 	rx, ry int
 	// Separable: fwdX[t] = hx(rx - t) (reversed, forward correlation),
@@ -51,10 +51,10 @@ type Conv struct {
 	kern       *psf.Kernel
 }
 
-// NewConv chooses the implementation for a kernel: separable when the kernel
+// New chooses the implementation for a kernel: separable when the kernel
 // is rank one, direct for small kernels, FFT otherwise.
-func NewConv(k *psf.Kernel) *Conv {
-	c := &Conv{rx: k.Rx(), ry: k.Ry(), kw: k.W, kh: k.H, kern: k}
+func New(k *psf.Kernel) *Operator {
+	c := &Operator{rx: k.Rx(), ry: k.Ry(), kw: k.W, kh: k.H, kern: k}
 	switch {
 	case k.Separable():
 		c.kind = convSeparable
@@ -75,9 +75,9 @@ func NewConv(k *psf.Kernel) *Conv {
 	return c
 }
 
-// NewSeparableConv builds a separable operator from 1-D factors.
-func NewSeparableConv(x, y []float64) *Conv {
-	c := &Conv{kind: convSeparable, rx: (len(x) - 1) / 2, ry: (len(y) - 1) / 2, kw: len(x), kh: len(y)}
+// NewSeparable builds a separable operator from 1-D factors.
+func NewSeparable(x, y []float64) *Operator {
+	c := &Operator{kind: convSeparable, rx: (len(x) - 1) / 2, ry: (len(y) - 1) / 2, kw: len(x), kh: len(y)}
 	c.fwdX, c.adjX, c.symX = taps1(x)
 	c.fwdY, c.adjY, c.symY = taps1(y)
 	return c
@@ -99,14 +99,14 @@ func taps1(v []float64) (fwd, adj []float32, sym bool) {
 }
 
 // Kind names the implementation ("separable", "direct", "fft").
-func (c *Conv) Kind() string { return c.kind.String() }
+func (c *Operator) Kind() string { return c.kind.String() }
 
 // Radius returns the kernel radii.
-func (c *Conv) Radius() (rx, ry int) { return c.rx, c.ry }
+func (c *Operator) Radius() (rx, ry int) { return c.rx, c.ry }
 
-// ConvWork is a per-worker scratch space for Conv; reused across calls, it
+// Work is a per-worker scratch space for Conv; reused across calls, it
 // grows to the largest plane seen and never shrinks.
-type ConvWork struct {
+type Work struct {
 	tmp  []float32
 	ext  []float32
 	ext2 []float32
@@ -121,7 +121,7 @@ func grow(b []float32, n int) []float32 {
 }
 
 // Apply sets dst = H src for w x h planes (dst and src must not alias).
-func (c *Conv) Apply(ws *ConvWork, dst, src []float32, w, h int) {
+func (c *Operator) Apply(ws *Work, dst, src []float32, w, h int) {
 	switch c.kind {
 	case convSeparable:
 		ws.tmp = grow(ws.tmp, w*h)
@@ -138,7 +138,7 @@ func (c *Conv) Apply(ws *ConvWork, dst, src []float32, w, h int) {
 }
 
 // Adjoint sets dst = H^T src for w x h planes (dst and src must not alias).
-func (c *Conv) Adjoint(ws *ConvWork, dst, src []float32, w, h int) {
+func (c *Operator) Adjoint(ws *Work, dst, src []float32, w, h int) {
 	switch c.kind {
 	case convSeparable:
 		ws.tmp = grow(ws.tmp, w*h)
@@ -289,7 +289,7 @@ func colAdj(dst, src []float32, w, h int, k []float32, r int) {
 }
 
 // directFwd: dst = V(E(src)) with a 2-D kernel.
-func (c *Conv) directFwd(ws *ConvWork, dst, src []float32, w, h int) {
+func (c *Operator) directFwd(ws *Work, dst, src []float32, w, h int) {
 	ew := w + 2*c.rx
 	ws.ext = grow(ws.ext, ew*h)
 	for y := 0; y < h; y++ {
@@ -316,7 +316,7 @@ func (c *Conv) directFwd(ws *ConvWork, dst, src []float32, w, h int) {
 }
 
 // directAdj: dst = E^T(V^T(src)) with a 2-D kernel.
-func (c *Conv) directAdj(ws *ConvWork, dst, src []float32, w, h int) {
+func (c *Operator) directAdj(ws *Work, dst, src []float32, w, h int) {
 	gw := w + 4*c.rx
 	zw := w + 2*c.rx
 	ws.ext = grow(ws.ext, gw*h)
@@ -375,13 +375,14 @@ type fftWork struct {
 	col     []complex128
 	colOut  []complex128
 	grid    []float64 // p x q
-	forConv *Conv
+	forConv *Operator
 	forW    int
 	forH    int
 }
 
 // goodSize returns the smallest n' >= n whose only prime factors are 2, 3, 5
-// (gonum's FFT is slow for other factors; GUIDE section 1).
+// (gonum v0.17's FFTPACK-based FFT is about 25x slower on prime sizes,
+// measured).
 func goodSize(n int) int {
 	for m := n; ; m++ {
 		v := m
@@ -396,7 +397,7 @@ func goodSize(n int) int {
 	}
 }
 
-func (c *Conv) fftSetup(ws *ConvWork, w, h int) *fftWork {
+func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	if f := ws.fft; f != nil && f.forConv == c && f.forW == w && f.forH == h {
 		return f
 	}
@@ -472,7 +473,7 @@ func (f *fftWork) inverse2D(src []complex128) {
 
 // fftApply computes the forward or adjoint operator through the FFT on the
 // same extended/padded grids as the direct path.
-func (c *Conv) fftApply(ws *ConvWork, dst, src []float32, w, h int, adjoint bool) {
+func (c *Operator) fftApply(ws *Work, dst, src []float32, w, h int, adjoint bool) {
 	f := c.fftSetup(ws, w, h)
 	for i := range f.grid {
 		f.grid[i] = 0
@@ -526,7 +527,8 @@ func (c *Conv) fftApply(ws *ConvWork, dst, src []float32, w, h int, adjoint bool
 // SmoothingKernel returns the 1-D smoothing kernel of EMS for bandwidth eps
 // (pixels): nil for eps = 0 (Richardson-Lucy); for eps <= 0.5 the 3-tap
 // variance-matched kernel [a, 1-2a, a] with 2a = eps^2 (a point-sampled
-// Gaussian is numerically the identity below eps ~ 0.25; GUIDE section 2);
+// Gaussian is numerically the identity below eps ~ 0.25: its side weights
+// are exp(-1/(2 eps^2)), 4e-6 at eps = 0.2);
 // above, a point-sampled Gaussian whose width is adjusted so that its
 // discrete variance equals eps^2 exactly.
 func SmoothingKernel(eps float64) []float64 {

@@ -1,17 +1,18 @@
-package step
+package conv
 
 import (
+	"limpid/psf"
 	"math"
 
 	"gonum.org/v1/gonum/dsp/fourier"
 )
 
-// dct2 is the orthonormal 2-D DCT-II (Ahmed, Natarajan & Rao, IEEE Trans.
+// DCT2 is the orthonormal 2-D DCT-II (Ahmed, Natarajan & Rao, IEEE Trans.
 // Computers C-23:90, 1974) of a w x h plane, computed by rows then columns
 // with FFTPACK's quarter-wave transforms (gonum dsp/fourier). With
 // half-sample symmetric boundaries a symmetric convolution is diagonal in
 // this basis, which the risk estimate relies on.
-type dct2 struct {
+type DCT2 struct {
 	w, h   int
 	tx, ty *fourier.QuarterWaveFFT
 	ax, ay []float64 // orthonormal scales a_k per axis
@@ -21,8 +22,11 @@ type dct2 struct {
 
 const dctBlock = 16
 
-func newDCT2(w, h int) *dct2 {
-	d := &dct2{w: w, h: h, row: make([]float64, w), cols: make([]float64, dctBlock*h)}
+// Fits reports whether the transform is for w x h planes.
+func (d *DCT2) Fits(w, h int) bool { return d.w == w && d.h == h }
+
+func NewDCT2(w, h int) *DCT2 {
+	d := &DCT2{w: w, h: h, row: make([]float64, w), cols: make([]float64, dctBlock*h)}
 	if w > 1 {
 		d.tx = fourier.NewQuarterWaveFFT(w)
 	}
@@ -68,7 +72,7 @@ func inverse1(t *fourier.QuarterWaveFFT, a, v []float64) {
 }
 
 // Forward writes the DCT-II of src (row-major w x h) into dst.
-func (d *dct2) Forward(dst []float64, src []float32) {
+func (d *DCT2) Forward(dst []float64, src []float32) {
 	w, h := d.w, d.h
 	for y := 0; y < h; y++ {
 		r := d.row
@@ -82,7 +86,7 @@ func (d *dct2) Forward(dst []float64, src []float32) {
 }
 
 // Inverse writes the inverse DCT of src into dst (both float64).
-func (d *dct2) Inverse(dst, src []float64) {
+func (d *DCT2) Inverse(dst, src []float64) {
 	w, h := d.w, d.h
 	copy(dst[:w*h], src[:w*h])
 	for y := 0; y < h; y++ {
@@ -91,7 +95,7 @@ func (d *dct2) Inverse(dst, src []float64) {
 	d.columns(dst, inverse1)
 }
 
-func (d *dct2) columns(p []float64, f func(*fourier.QuarterWaveFFT, []float64, []float64)) {
+func (d *DCT2) columns(p []float64, f func(*fourier.QuarterWaveFFT, []float64, []float64)) {
 	w, h := d.w, d.h
 	// Columns in blocks of dctBlock so that the gather and scatter read
 	// and write contiguous runs of each row (cache-friendly).
@@ -113,4 +117,46 @@ func (d *dct2) columns(p []float64, f func(*fourier.QuarterWaveFFT, []float64, [
 			}
 		}
 	}
+}
+
+// Eigenvalues returns the DCT-II eigenvalues h(kx) h(ky) (generally
+// sum h(dx,dy) cos(pi kx dx / w) cos(pi ky dy / h)) of the kernel on a
+// w x h tile, and false when the kernel is not symmetric in x and in y
+// separately (then the DCT does not diagonalise it).
+func Eigenvalues(k *psf.Kernel, w, h int) ([]float64, bool) {
+	rx, ry := k.Rx(), k.Ry()
+	peak := 0.0
+	for _, v := range k.Data {
+		peak = math.Max(peak, math.Abs(v))
+	}
+	for dy := -ry; dy <= ry; dy++ {
+		for dx := -rx; dx <= rx; dx++ {
+			v := k.At(dx, dy)
+			if math.Abs(v-k.At(-dx, dy)) > 1e-9*peak || math.Abs(v-k.At(dx, -dy)) > 1e-9*peak {
+				return nil, false
+			}
+		}
+	}
+	// a[dy][kx] = sum_dx h(dx, dy) cos(pi kx dx / w), dy >= 0 only.
+	a := make([]float64, (ry+1)*w)
+	for dy := 0; dy <= ry; dy++ {
+		for kx := 0; kx < w; kx++ {
+			var s float64
+			for dx := -rx; dx <= rx; dx++ {
+				s += k.At(dx, dy) * math.Cos(math.Pi*float64(kx*dx)/float64(w))
+			}
+			a[dy*w+kx] = s
+		}
+	}
+	lam := make([]float64, w*h)
+	for ky := 0; ky < h; ky++ {
+		for kx := 0; kx < w; kx++ {
+			s := a[kx]
+			for dy := 1; dy <= ry; dy++ {
+				s += 2 * a[dy*w+kx] * math.Cos(math.Pi*float64(ky*dy)/float64(h))
+			}
+			lam[ky*w+kx] = s
+		}
+	}
+	return lam, true
 }
