@@ -6,6 +6,7 @@ import (
 
 	"limpid/psf"
 	"limpid/step/conv"
+	"limpid/step/noise"
 )
 
 // Assessment of a restoration: fidelity to a reference when one exists
@@ -13,7 +14,7 @@ import (
 // restoration did to noise, sharpness, ringing and flux.
 //
 // Definitions (README, "limpid assess"):
-//   - noise: sqrt of the Poisson-Gaussian noise model (NoiseSampler.Fit,
+//   - noise: sqrt of the Poisson-Gaussian noise model (noise.Sampler.Fit,
 //     after Foi et al. 2008) evaluated at the median valid intensity; when
 //     the fit has too few pixels, Immerkaer's (1996) sigma over the valid
 //     pixels.
@@ -118,7 +119,7 @@ func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
 	}
 	src, _ := conv.MeanFilled(p, valid, w*h)
 	if nv < 64 {
-		return ImmerkaerSigma(p, valid, w, h), "immerkaer"
+		return noise.Immerkaer(p, valid, w, h), "immerkaer"
 	}
 	g2, g4 := conv.GaussianTaps(2), conv.GaussianTaps(4)
 	lo, sm := conv.Blur64(src, w, h, g2), conv.Blur64(src, w, h, g4)
@@ -136,7 +137,7 @@ func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
 		}
 	}
 	if len(cand) < 256 {
-		return ImmerkaerSigma(p, valid, w, h), "immerkaer"
+		return noise.Immerkaer(p, valid, w, h), "immerkaer"
 	}
 	sort.Slice(cand, func(a, b int) bool { return cand[a].grad < cand[b].grad })
 	cand = cand[:len(cand)/4]
@@ -144,7 +145,7 @@ func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
 	for i, c := range cand {
 		res[i] = c.res
 	}
-	m := median(append([]float64(nil), res...))
+	m := noise.Median(append([]float64(nil), res...))
 	for i := range res {
 		res[i] = math.Abs(res[i] - m)
 	}
@@ -157,7 +158,7 @@ func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
 	r := (len(g2) - 1) / 2
 	c = g2[r] * g2[r]
 	gain := math.Sqrt(1 - 2*c + sq*sq)
-	return 1.4826 * median(res) / gain, "highpass"
+	return 1.4826 * noise.Median(res) / gain, "highpass"
 }
 
 // allValid reports whether the (2r+1)^2 window at (x, y) inside the plane
@@ -215,7 +216,7 @@ func edgeMetrics(obs, res []float32, valid []bool, w, h int) (n int, mtfO, mtfR,
 	if len(mo) == 0 {
 		return 0, nan, nan, nan, nan
 	}
-	return len(mo), median(mo), median(mr), median(ro), median(rr)
+	return len(mo), noise.Median(mo), noise.Median(mr), noise.Median(ro), noise.Median(rr)
 }
 
 // Ringing is the ringing indicator of an edge spread function (see the
@@ -236,7 +237,7 @@ func Ringing(esf []float64) float64 {
 	plateau := func(s []float64) float64 {
 		c := append([]float64(nil), s...)
 		sort.Float64s(c)
-		return median(c)
+		return noise.Median(c)
 	}
 	lo, hi := plateau(v[:k]), plateau(v[n-k:])
 	if !(hi > lo) {

@@ -6,6 +6,7 @@ import (
 
 	"limpid/psf"
 	"limpid/step/conv"
+	"limpid/step/noise"
 )
 
 // Automatic regularisation: the smoothing bandwidth eps and the stopping
@@ -60,6 +61,11 @@ const (
 	// diagonalisation no longer holds and the prediction-domain estimate is
 	// used.
 	riskMaskedFraction = 0.10
+	// NoiseInflation multiplies the estimated variance where the risk
+	// estimate uses it: underestimating the noise is the dangerous side
+	// (it makes the risk favour noise amplification; prototype value,
+	// common practice, no source).
+	NoiseInflation = 1.05
 	// DiscrepancyTau is Morozov's tau (Morozov, Soviet Math. Dokl. 7:414,
 	// 1966; recalled from memory: 1.01-1.1 is the usual range).
 	DiscrepancyTau = 1.05
@@ -162,7 +168,7 @@ type riskProblem struct {
 // setupRisk prepares the probe (PCG from the tile key and seed), the
 // variance map and, in DCT mode, gd = C^T G C (d - b) and
 // gv = c C^T G C (v delta).
-func setupRisk(aw *autoWork, p *Problem, nm *NoiseModel, rw *riskWeights, seed uint64, infl float64) *riskProblem {
+func setupRisk(aw *autoWork, p *Problem, nm *noise.Model, rw *riskWeights, seed uint64, infl float64) *riskProblem {
 	w, h := p.W, p.H
 	n := w * h
 	aw.reset(w, h)

@@ -9,6 +9,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/noise"
 )
 
 // ems64 is a float64 re-implementation of the EMS recursion and of its
@@ -246,7 +247,7 @@ func TestRiskUnbiasedGaussian(t *testing.T) {
 	dct := conv.NewDCT2(w, h)
 	X := make([]float64, n)
 	dct.Forward(X, x)
-	nm := &NoiseModel{B: sigma * sigma, Floor: 1e-6}
+	nm := &noise.Model{B: sigma * sigma, Floor: 1e-6}
 	rng := rand.New(rand.NewPCG(13, 14))
 	diff := make([][]float64, K)
 	g := &GridEMS{H: H}

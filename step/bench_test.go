@@ -8,6 +8,7 @@ import (
 
 	"limpid/psf"
 	"limpid/step/conv"
+	"limpid/step/noise"
 )
 
 // BenchmarkGridEMS512 measures grid EMS throughput on one 512x512 tile with
@@ -72,7 +73,7 @@ func BenchmarkRiskIteration512(b *testing.B) {
 	}
 	g := newGrid(k, conv.New(k), 0.3, iters, 0)
 	rw, _ := newRiskWeights(k, n, n)
-	nm := &NoiseModel{A: 0.4, B: 9}
+	nm := &noise.Model{A: 0.4, B: 9}
 	var ws Workspace
 	aw := &autoWork{}
 	p := &Problem{D: make([]float32, n*n), Mask: ones(n * n), W: n, H: n}

@@ -11,6 +11,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/noise"
 )
 
 // Stop is the rule that ends a tile's iterations; the zero value means
@@ -146,7 +147,7 @@ type noiseSolver struct {
 	plan    Plan
 	tiles   map[[2]int]bool
 	mu      sync.Mutex
-	samples map[TileKey]*NoiseSampler
+	samples map[TileKey]*noise.Sampler
 	limit   int
 }
 
@@ -173,7 +174,7 @@ func (s *noiseSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst 
 	// 64x64 scene before).
 	x0, x1 := max(cx.Start, 1)-ix.Start, min(cx.End, pl.W-1)-ix.Start
 	y0, y1 := max(cy.Start, 1)-iy.Start, min(cy.End, pl.H-1)-iy.Start
-	ns := &NoiseSampler{Limit: s.limit}
+	ns := &noise.Sampler{Limit: s.limit}
 	ns.Add(p.D, valid, p.W, p.H, x0, y0, x1, y1)
 	s.mu.Lock()
 	s.samples[k] = ns
@@ -182,13 +183,13 @@ func (s *noiseSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst 
 }
 
 // estimateNoise fits one noise model per band from the sample tiles.
-func (r *runner) estimateNoise(ctx context.Context) ([]NoiseModel, error) {
+func (r *runner) estimateNoise(ctx context.Context) ([]noise.Model, error) {
 	tiles := sampleTiles(r.plan)
-	ns := &noiseSolver{plan: r.plan, tiles: tiles, samples: map[TileKey]*NoiseSampler{}, limit: max(1, noiseSamplesPerBand/len(tiles))}
+	ns := &noiseSolver{plan: r.plan, tiles: tiles, samples: map[TileKey]*noise.Sampler{}, limit: max(1, noiseSamplesPerBand/len(tiles))}
 	if err := r.pass(ctx, ns, "estimating the noise model", tiles); err != nil {
 		return nil, err
 	}
-	out := make([]NoiseModel, len(r.bands))
+	out := make([]noise.Model, len(r.bands))
 	for b := range r.bands {
 		var keys []TileKey
 		for k := range ns.samples {
@@ -197,31 +198,11 @@ func (r *runner) estimateNoise(ctx context.Context) ([]NoiseModel, error) {
 			}
 		}
 		sortKeys(keys)
-		all := &NoiseSampler{}
+		all := &noise.Sampler{}
 		for _, k := range keys {
-			s := ns.samples[k]
-			all.mean = append(all.mean, s.mean...)
-			all.res = append(all.res, s.res...)
-			all.grad = append(all.grad, s.grad...)
+			all.Merge(ns.samples[k])
 		}
-		m, err := all.Fit()
-		if err != nil {
-			// Fallbacks: one constant variance from Immerkaer's estimate
-			// over the residuals there are; with none at all, no model
-			// (the band is then restored with the fixed settings).
-			m = NoiseModel{Source: "none: " + err.Error(), Samples: len(all.res)}
-			if len(all.res) >= 9 {
-				var s float64
-				for _, e := range all.res {
-					s += math.Abs(float64(e))
-				}
-				sig := math.Sqrt(math.Pi/2) * s / float64(len(all.res))
-				if math.IsInf(sig, 0) || math.IsNaN(sig) {
-					sig = 0
-				}
-				m = NoiseModel{B: sig * sig, Floor: math.Max(1e-6, 0.1*sig*sig), Source: "immerkaer (too few pixels for the intensity fit)", Samples: len(all.res)}
-			}
-		}
+		m := all.Model()
 		out[b] = m
 	}
 	return out, nil
@@ -243,7 +224,7 @@ func sortKeys(k []TileKey) {
 // EstimateNoise fits the per-band noise model of a scene the way Restore
 // does (sample tiles of the plan, invalid pixels excluded), for `limpid
 // noise`. Only Tile, Overlap, Workers, Saturated of cfg are used.
-func EstimateNoise(ctx context.Context, src raster.Reader, bands []int, cfg Config) ([]NoiseModel, error) {
+func EstimateNoise(ctx context.Context, src raster.Reader, bands []int, cfg Config) ([]noise.Model, error) {
 	if cfg.Tile == 0 {
 		cfg.Tile = DefaultTile
 	}
@@ -275,7 +256,7 @@ type chooser struct {
 	cfg     *Config
 	plan    Plan
 	tiles   map[[2]int]bool // nil: every tile
-	noise   []NoiseModel
+	noise   []noise.Model
 	grids   []*GridEMS // per candidate
 	smooths []float64
 	seed    uint64
@@ -635,11 +616,11 @@ func (b *bandSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst [
 // bandwidth) or the choice passes over the sample tiles (choosePasses) and
 // the chosen solvers (chosen).
 func (r *runner) regularise(ctx context.Context) (Solver, error) {
-	noise, err := r.bandNoise(ctx)
+	models, err := r.bandNoise(ctx)
 	if err != nil {
 		return nil, err
 	}
-	rg := &regulariser{runner: r, noise: noise, H: conv.New(r.cfg.PSF), bs: &bandSolver{byBand: make([]Solver, len(r.bands))},
+	rg := &regulariser{runner: r, noise: models, H: conv.New(r.cfg.PSF), bs: &bandSolver{byBand: make([]Solver, len(r.bands))},
 		particle: r.cfg.Method == MethodParticle, cache: map[[2]float64]Solver{}}
 	if !r.cfg.SmoothAuto && r.cfg.Stop != StopAuto {
 		return rg.discrepancy(), nil
@@ -653,31 +634,31 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 
 // bandNoise is the noise model of every band: the given one, or estimated
 // from the scene; the report records it.
-func (r *runner) bandNoise(ctx context.Context) ([]NoiseModel, error) {
-	noise := make([]NoiseModel, len(r.bands))
+func (r *runner) bandNoise(ctx context.Context) ([]noise.Model, error) {
+	models := make([]noise.Model, len(r.bands))
 	if r.cfg.Noise != nil {
-		for i := range noise {
-			noise[i] = *r.cfg.Noise
-			noise[i].Source = "given"
+		for i := range models {
+			models[i] = *r.cfg.Noise
+			models[i].Source = "given"
 		}
 	} else {
 		var err error
-		if noise, err = r.estimateNoise(ctx); err != nil {
+		if models, err = r.estimateNoise(ctx); err != nil {
 			return nil, err
 		}
 	}
-	for i := range noise {
-		m := noise[i]
+	for i := range models {
+		m := models[i]
 		r.rep.Bands[i].Noise = &m
 	}
-	return noise, nil
+	return models, nil
 }
 
 // regulariser is regularise's state: the bands' noise models and the
 // solvers it builds.
 type regulariser struct {
 	*runner
-	noise    []NoiseModel
+	noise    []noise.Model
 	H        *conv.Operator
 	bs       *bandSolver
 	particle bool

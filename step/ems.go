@@ -3,6 +3,7 @@ package step
 import (
 	"context"
 	"limpid/step/conv"
+	"limpid/step/noise"
 	"math"
 )
 
@@ -94,7 +95,7 @@ type GridEMS struct {
 	// Noise and Tau, when Noise is set, stop by Morozov's discrepancy
 	// principle: at the first iterate with sum_valid (d - H f - b)^2 <=
 	// Tau^2 sum_valid Var(d).
-	Noise *NoiseModel
+	Noise *noise.Model
 	Tau   float64
 }
 

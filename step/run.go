@@ -14,6 +14,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/noise"
 )
 
 // Version is limpid's version, recorded in outputs and reports.
@@ -76,7 +77,7 @@ type Config struct {
 	// Choose is ChooseGlobal (the zero value) or ChoosePerTile.
 	Choose Choose
 	// Noise, when set, replaces the estimated per-band noise model.
-	Noise *NoiseModel
+	Noise *noise.Model
 	// Progress, when set, is called after each strip with tiles done/total.
 	Progress func(done, total int)
 	// Stage, when set, is called when an extra pass over the scene starts
@@ -131,7 +132,7 @@ type BandReport struct {
 	MaxIterations  int     `json:"max_iterations"`
 	// Noise is the noise model used (estimated or given), when the stop or
 	// smoothing rule needed one.
-	Noise *NoiseModel `json:"noise,omitempty"`
+	Noise *noise.Model `json:"noise,omitempty"`
 	// Choice records the automatic smoothing/stop choice.
 	Choice *Choice      `json:"choice,omitempty"`
 	Tiles  []TileReport `json:"tiles"`

@@ -22,7 +22,7 @@ import (
 //
 //   - "poisson": DN = Gain * Poisson(s / Gain) + Normal(0, Read^2): mean s,
 //     variance Gain*s + Read^2 (a Poisson-Gaussian sensor with Gain DN per
-//     photo-electron; the same model as NoiseModel with A = Gain, B = Read^2).
+//     photo-electron; the same model as noise.Model with A = Gain, B = Read^2).
 //   - "gaussian": DN = s + Normal(0, Sigma^2).
 //   - "none": DN = s.
 type SimNoise struct {

@@ -14,6 +14,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/conv"
 )
 
 // The demo scenario: Brannock Vale, an invented farming valley. The
@@ -67,7 +68,7 @@ func DemoScene(dir string, n int) (refPath, obsPath string, err error) {
 	if err != nil {
 		return "", "", err
 	}
-	H := step.NewConv(k)
+	H := conv.New(k)
 	rng := rand.New(rand.NewPCG(2026, 12))
 	obs := make([][]float32, len(ref))
 	for b := range ref {

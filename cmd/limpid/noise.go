@@ -11,6 +11,7 @@ import (
 
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/noise"
 )
 
 // noiseCommand estimates the per-band noise model (var = a*DN + b) the way
@@ -72,7 +73,7 @@ or override them.`,
 			fmt.Fprintln(tw, "band\ta\ta stderr\tb\tb stderr\tsigma at b\tbins used\tsamples\t")
 			type bandOut struct {
 				Band int `json:"band"`
-				step.NoiseModel
+				noise.Model
 			}
 			var out []bandOut
 			for i, m := range models {
@@ -83,7 +84,7 @@ or override them.`,
 					}
 				}
 				fmt.Fprintf(tw, "%d\t%.4g\t%.2g\t%.4g\t%.2g\t%.3g\t%d/%d\t%d\t\n", bands[i]+1, m.A, m.SigmaA, m.B, m.SigmaB, math.Sqrt(math.Max(m.B, 0)), used, len(m.Bins), m.Samples)
-				out = append(out, bandOut{Band: bands[i] + 1, NoiseModel: m})
+				out = append(out, bandOut{Band: bands[i] + 1, Model: m})
 			}
 			tw.Flush()
 			if p := c.String("json"); p != "" {

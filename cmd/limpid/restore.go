@@ -19,6 +19,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/noise"
 )
 
 func env(name string) []string {
@@ -258,8 +259,8 @@ func parseRegularisation(c *cli.Context, cfg *step.Config) error {
 }
 
 // parseNoise reads "a=GAIN,b=READVAR".
-func parseNoise(s string) (*step.NoiseModel, error) {
-	m := &step.NoiseModel{Source: "given"}
+func parseNoise(s string) (*noise.Model, error) {
+	m := &noise.Model{Source: "given"}
 	seen := map[string]bool{}
 	for _, kv := range strings.Split(s, ",") {
 		k, v, ok := strings.Cut(strings.TrimSpace(kv), "=")

@@ -12,6 +12,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/conv"
 )
 
 // simulate: degrade a sharp raster into a simulated observation (blur with
@@ -143,7 +144,7 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	if err != nil {
 		return err
 	}
-	cfg := step.SimConfig{H: step.NewConv(k), Noise: nz, Seed: c.Uint64("seed"), DataType: q,
+	cfg := step.SimConfig{H: conv.New(k), Noise: nz, Seed: c.Uint64("seed"), DataType: q,
 		NoData: inND, HasNoData: inHas, OutNoData: outND, HasOutNoData: outHas}
 	fmt.Fprintf(stderr, "limpid: simulating %dx%d, %d bands: PSF %s, noise %s, %s, seed %d\n",
 		meta.Width, meta.Height, len(meta.Bands), spec, c.String("noise"), q, cfg.Seed)

@@ -1,4 +1,4 @@
-package step
+package noise
 
 import (
 	"math"
@@ -23,7 +23,7 @@ func TestImmerkaerGaussian(t *testing.T) {
 			d[y*w+x] = float32(1000 + 2*float64(x) - 1.5*float64(y) + sigma*rng.NormFloat64())
 		}
 	}
-	got := ImmerkaerSigma(d, nil, w, h)
+	got := Immerkaer(d, nil, w, h)
 	if math.Abs(got/sigma-1) > tol {
 		t.Fatalf("Immerkaer sigma %.4f, want %.1f within %.0f %%", got, sigma, 100*tol)
 	}
@@ -35,7 +35,7 @@ func TestImmerkaerGaussian(t *testing.T) {
 			d[i] = 1e9
 		}
 	}
-	got = ImmerkaerSigma(d, valid, w, h)
+	got = Immerkaer(d, valid, w, h)
 	if math.Abs(got/sigma-1) > tol {
 		t.Fatalf("masked Immerkaer sigma %.4f, want %.1f within %.0f %%", got, sigma, 100*tol)
 	}
@@ -73,7 +73,7 @@ func TestNoiseModelPoissonGaussian(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
 	for _, nz := range []Noise{{Gain: 0.1, Read: 10}, {Gain: 0.25, Read: 15}} {
 		d := noiseScene(t, n, nz, rng)
-		var s NoiseSampler
+		var s Sampler
 		s.Add(d, nil, n, n, 0, 0, n, n)
 		m, err := s.Fit()
 		if err != nil {
@@ -99,7 +99,7 @@ func TestNoiseModelPoissonGaussian(t *testing.T) {
 // Too few pixels is an error, not a panic or a made-up model.
 // Source: common practice, no source.
 func TestNoiseModelTooFewPixels(t *testing.T) {
-	var s NoiseSampler
+	var s Sampler
 	s.Add(make([]float32, 16), nil, 4, 4, 0, 0, 4, 4)
 	if _, err := s.Fit(); err == nil {
 		t.Fatal("a 4x4 plane gave a noise model")

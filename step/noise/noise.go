@@ -1,30 +1,21 @@
-package step
+package noise
 
 import (
 	"fmt"
-	"limpid/step/conv"
 	"math"
 	"sort"
-)
 
-// Noise estimation from the image itself.
-//
-// Immerkaer's estimator (Immerkaer, "Fast noise variance estimation", CVIU
-// 64(2):300-302, 1996) gives one Gaussian sigma for a plane. The per-scene
-// Poisson-Gaussian model var(d) = a*d + b follows the idea of Foi,
-// Trimeche, Katkovnik & Egiazarian (IEEE TIP 17(10):1737-1754, 2008),
-// simplified: local residuals of Immerkaer's mask, binned by local mean, a
-// robust (MAD) variance per bin over the smoother half of its pixels, and a
-// weighted least-squares line through the bins.
+	"limpid/step/conv"
+)
 
 // immerkaer is the 3x3 mask [[1,-2,1],[-2,4,-2],[1,-2,1]]: it annihilates
 // locally linear (and separable quadratic) intensity; its squared sum is 36.
 var immerkaer = [9]float32{1, -2, 1, -2, 4, -2, 1, -2, 1}
 
-// ImmerkaerSigma is Immerkaer's (1996) noise sigma of a w x h plane:
+// Immerkaer is Immerkaer's (1996) noise sigma of a w x h plane:
 // sqrt(pi/2) / (6 n) * sum |I * M| over the n positions whose whole 3x3
 // neighbourhood is valid (valid nil: all). It returns NaN with no position.
-func ImmerkaerSigma(d []float32, valid []bool, w, h int) float64 {
+func Immerkaer(d []float32, valid []bool, w, h int) float64 {
 	var sum float64
 	n := 0
 	for y := 1; y < h-1; y++ {
@@ -66,10 +57,10 @@ func mask3(d []float32, w, x, y int) float32 {
 	return float32(s)
 }
 
-// NoiseModel is the variance of an observed value d: Var = A*d + B (a
+// Model is the variance of an observed value d: Var = A*d + B (a
 // Poisson-Gaussian sensor: A is the gain in DN per electron, B the read
 // variance in DN^2 plus quantisation).
-type NoiseModel struct {
+type Model struct {
 	A float64 `json:"a"`
 	B float64 `json:"b"`
 	// SigmaA, SigmaB are the standard errors of the fit (from the weighted
@@ -81,14 +72,14 @@ type NoiseModel struct {
 	// Hi clips d before the model is evaluated (the brightest bin's mean).
 	Hi float64 `json:"clip_high"`
 	// Source is "estimated" or "given".
-	Source string     `json:"source"`
-	Bins   []NoiseBin `json:"bins,omitempty"`
+	Source string `json:"source"`
+	Bins   []Bin  `json:"bins,omitempty"`
 	// Samples is the number of pixels the bins were made from.
 	Samples int `json:"samples,omitempty"`
 }
 
-// NoiseBin is one intensity class of the fit.
-type NoiseBin struct {
+// Bin is one intensity class of the fit.
+type Bin struct {
 	Mean     float64 `json:"mean"`
 	Variance float64 `json:"variance"`
 	Pixels   int     `json:"pixels"`
@@ -97,7 +88,7 @@ type NoiseBin struct {
 
 // Variance is the model variance at observed value d, clipped to [0, Hi]
 // and floored.
-func (m *NoiseModel) Variance(d float32) float32 {
+func (m *Model) Variance(d float32) float32 {
 	x := float64(d)
 	if x < 0 {
 		x = 0
@@ -108,13 +99,13 @@ func (m *NoiseModel) Variance(d float32) float32 {
 	return float32(math.Max(m.A*x+m.B, m.Floor))
 }
 
-// NoiseSampler collects, plane by plane, the local statistics the
+// Sampler collects, plane by plane, the local statistics the
 // Poisson-Gaussian fit needs: for every pixel whose neighbourhood is valid,
 // the 3x3 mean, the Immerkaer residual e = (d * M) / 6 (variance equal to
 // the pixel's noise variance for white noise), and a smoothness score (the
 // gradient magnitude of d smoothed with a Gaussian of sigma 2). Planes from
 // several tiles of one band pool into one fit.
-type NoiseSampler struct {
+type Sampler struct {
 	mean, res, grad []float32
 	// Limit caps the number of samples kept (0: 4 million); extra pixels
 	// are taken with a regular stride.
@@ -129,7 +120,7 @@ const noiseSmoothSigma = 2.0
 // Add samples the pixels of plane d (w x h) inside [x0, x1) x [y0, y1)
 // whose 3x3 neighbourhood is valid and inside the plane (tiles pass the
 // window they own, without their halo).
-func (s *NoiseSampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) {
+func (s *Sampler) Add(d []float32, valid []bool, w, h, x0, y0, x1, y1 int) {
 	if w < 3 || h < 3 {
 		return
 	}
@@ -187,21 +178,16 @@ const (
 	noiseOutlier    = 1.5    // drop bins more than this factor above the fit
 	noiseMADToSigma = 0.6745 // median |N(0,1)| (standard normal quantile 0.75)
 	noisePasses     = 3
-	// NoiseInflation multiplies the estimated variance where the risk
-	// estimate uses it: underestimating the noise is the dangerous side
-	// (it makes the risk favour noise amplification; prototype value,
-	// common practice, no source).
-	NoiseInflation = 1.05
 )
 
-// ErrNoNoiseData is returned when too few smooth valid pixels exist.
-var ErrNoNoiseData = fmt.Errorf("too few valid pixels to estimate the noise")
+// ErrNoData is returned when too few smooth valid pixels exist.
+var ErrNoData = fmt.Errorf("too few valid pixels to estimate the noise")
 
 // Fit returns the Poisson-Gaussian model of the collected samples.
-func (s *NoiseSampler) Fit() (NoiseModel, error) {
+func (s *Sampler) Fit() (Model, error) {
 	n := len(s.mean)
 	if n < noiseBins*noiseMinPerBin/4 {
-		return NoiseModel{}, ErrNoNoiseData
+		return Model{}, ErrNoData
 	}
 	idx := make([]int, n)
 	for i := range idx {
@@ -210,7 +196,7 @@ func (s *NoiseSampler) Fit() (NoiseModel, error) {
 	sort.Slice(idx, func(a, b int) bool { return s.mean[idx[a]] < s.mean[idx[b]] })
 	nb := min(noiseBins, n/noiseMinPerBin)
 	nb = max(nb, 2)
-	var bins []NoiseBin
+	var bins []Bin
 	scratch := make([]float64, 0, n/nb+1)
 	for b := 0; b < nb; b++ {
 		part := idx[b*n/nb : (b+1)*n/nb]
@@ -219,7 +205,7 @@ func (s *NoiseSampler) Fit() (NoiseModel, error) {
 		for _, i := range part {
 			scratch = append(scratch, float64(s.grad[i]))
 		}
-		gmed := median(scratch)
+		gmed := Median(scratch)
 		scratch = scratch[:0]
 		var mu float64
 		for _, i := range part {
@@ -232,15 +218,15 @@ func (s *NoiseSampler) Fit() (NoiseModel, error) {
 			continue
 		}
 		mu /= float64(len(scratch))
-		sd := median(scratch) / noiseMADToSigma
-		bins = append(bins, NoiseBin{Mean: mu, Variance: sd * sd, Pixels: len(scratch), Used: true})
+		sd := Median(scratch) / noiseMADToSigma
+		bins = append(bins, Bin{Mean: mu, Variance: sd * sd, Pixels: len(scratch), Used: true})
 	}
 	if len(bins) < 2 {
-		return NoiseModel{}, ErrNoNoiseData
+		return Model{}, ErrNoData
 	}
 	m := fitAffine(bins)
 	if bad := func(v float64) bool { return math.IsNaN(v) || math.IsInf(v, 0) }; bad(m.A) || bad(m.B) || bad(bins[len(bins)-1].Mean) {
-		return NoiseModel{}, ErrNoNoiseData
+		return Model{}, ErrNoData
 	}
 	m.Source = "estimated"
 	m.Bins = bins
@@ -266,7 +252,7 @@ func (s *NoiseSampler) Fit() (NoiseModel, error) {
 // 1/(a mu + b)^2 (the variance of a variance estimate grows with its square),
 // noisePasses passes, dropping bins above noiseOutlier x the fit, a >= 0 and
 // b >= 0.
-func fitAffine(bins []NoiseBin) NoiseModel {
+func fitAffine(bins []Bin) Model {
 	a, b := 0.0, 0.0
 	for pass := 0; pass < noisePasses; pass++ {
 		var sw, sx, sy, sxx, sxy float64
@@ -337,7 +323,7 @@ func fitAffine(bins []NoiseBin) NoiseModel {
 		rss += w * r * r
 		used++
 	}
-	m := NoiseModel{A: a, B: b}
+	m := Model{A: a, B: b}
 	if det := sw*sxx - sx*sx; used > 2 && det > 0 {
 		s2 := rss / float64(used-2)
 		m.SigmaA = math.Sqrt(s2 * sw / det)
@@ -346,7 +332,9 @@ func fitAffine(bins []NoiseBin) NoiseModel {
 	return m
 }
 
-func median(v []float64) float64 {
+// Median is the median of v (the mean of the middle two for an even
+// count; NaN for none). It sorts v.
+func Median(v []float64) float64 {
 	if len(v) == 0 {
 		return math.NaN()
 	}
@@ -356,4 +344,35 @@ func median(v []float64) float64 {
 		return v[n/2]
 	}
 	return 0.5 * (v[n/2-1] + v[n/2])
+}
+
+// Merge appends o's samples to s (o's Limit is not applied again).
+func (s *Sampler) Merge(o *Sampler) {
+	s.mean = append(s.mean, o.mean...)
+	s.res = append(s.res, o.res...)
+	s.grad = append(s.grad, o.grad...)
+}
+
+// Model is the Poisson-Gaussian fit of the samples, with its fallbacks: one
+// constant variance from Immerkaer's estimate over the residuals there are
+// when the intensity fit fails; with fewer than 9 residuals, no model (A =
+// B = 0, Source says why; the caller then restores with fixed settings).
+func (s *Sampler) Model() Model {
+	m, err := s.Fit()
+	if err == nil {
+		return m
+	}
+	m = Model{Source: "none: " + err.Error(), Samples: len(s.res)}
+	if len(s.res) >= 9 {
+		var sum float64
+		for _, e := range s.res {
+			sum += math.Abs(float64(e))
+		}
+		sig := math.Sqrt(math.Pi/2) * sum / float64(len(s.res))
+		if math.IsInf(sig, 0) || math.IsNaN(sig) {
+			sig = 0
+		}
+		m = Model{B: sig * sig, Floor: math.Max(1e-6, 0.1*sig*sig), Source: "immerkaer (too few pixels for the intensity fit)", Samples: len(s.res)}
+	}
+	return m
 }
