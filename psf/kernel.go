@@ -34,19 +34,6 @@ func (k *Kernel) At(dx, dy int) float64 {
 // Separable reports whether the kernel carries exact 1-D factors.
 func (k *Kernel) Separable() bool { return k.X != nil && k.Y != nil }
 
-// Symmetric reports whether h(dx, dy) == h(-dx, -dy) for every offset (to a
-// relative 1e-12; kernels built from text files are rounded values).
-func (k *Kernel) Symmetric() bool {
-	n := len(k.Data)
-	for i := 0; i < n/2; i++ {
-		a, b := k.Data[i], k.Data[n-1-i]
-		if math.Abs(a-b) > 1e-12*math.Max(math.Abs(a), math.Abs(b)) {
-			return false
-		}
-	}
-	return true
-}
-
 // Variance returns the second central moments (vx, vy) of the kernel.
 func (k *Kernel) Variance() (vx, vy float64) {
 	var mx, my float64

@@ -75,7 +75,7 @@ func TestAutoRegularisation(t *testing.T) {
 		k, _ := psf.GaussianIso(s.sigma)
 		bestP, bestE, bestK := math.Inf(-1), 0.0, 0
 		for _, eps := range AutoSmooths {
-			g := newGrid(k, conv.New(k), eps, maxIt, 0)
+			g := newGrid(conv.New(k), eps, maxIt, 0)
 			g.Observe = func(it int, f []float32, _ float64) {
 				if v := PSNR(s.ref, f, interior, 4095); v > bestP {
 					bestP, bestE, bestK = v, eps, it

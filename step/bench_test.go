@@ -71,7 +71,7 @@ func BenchmarkRiskIteration512(b *testing.B) {
 	for i := range d {
 		d[i] = 500 + 1000*r.Float32()
 	}
-	g := newGrid(k, conv.New(k), 0.3, iters, 0)
+	g := newGrid(conv.New(k), 0.3, iters, 0)
 	rw, _ := newRiskWeights(k, n, n)
 	nm := &noise.Model{A: 0.4, B: 9}
 	var ws Workspace

@@ -8,7 +8,6 @@ import (
 	"sort"
 	"sync"
 
-	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
 	"limpid/step/noise"
@@ -584,7 +583,9 @@ func lowMedian(v []float64) float64 {
 }
 
 // newGrid builds a plain GridEMS for (eps, k).
-func newGrid(k *psf.Kernel, H *conv.Operator, eps float64, iters int, tol float64) *GridEMS {
+// newGrid is a GridEMS with PSF operator H, smoothing bandwidth eps,
+// iteration cap iters and change tolerance tol.
+func newGrid(H *conv.Operator, eps float64, iters int, tol float64) *GridEMS {
 	g := &GridEMS{H: H, Iterations: iters, Tolerance: tol}
 	if sk := conv.SmoothingKernel(eps); sk != nil {
 		g.S = conv.NewSeparable(sk, sk)
@@ -670,7 +671,7 @@ func (rg *regulariser) usable(b int) bool { return rg.noise[b].A+rg.noise[b].B >
 // fixed gives band b the fixed fallback (no noise model).
 func (rg *regulariser) fixed(b int) {
 	cfg := &rg.cfg
-	rg.bs.byBand[b] = newGrid(cfg.PSF, rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
+	rg.bs.byBand[b] = newGrid(rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
 	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
 		Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", rg.noise[b].Source, DefaultTolerance)}
 }
@@ -683,7 +684,7 @@ func (rg *regulariser) discrepancy() Solver {
 			rg.fixed(b)
 			continue
 		}
-		g := newGrid(cfg.PSF, rg.H, cfg.Smooth, cfg.Iterations, 0)
+		g := newGrid(rg.H, cfg.Smooth, cfg.Iterations, 0)
 		g.Noise, g.Tau = &rg.noise[b], DiscrepancyTau
 		rg.bs.byBand[b] = g
 		rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
@@ -721,7 +722,7 @@ func (rg *regulariser) newChooser() *chooser {
 	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle
 	c.kept = make([]*keptTile, nb)
 	for _, e := range smooths {
-		c.grids = append(c.grids, newGrid(cfg.PSF, rg.H, e, ccfg.Iterations, 0))
+		c.grids = append(c.grids, newGrid(rg.H, e, ccfg.Iterations, 0))
 	}
 	return c
 }
@@ -799,7 +800,7 @@ func (rg *regulariser) solverFor(eps float64, k int) Solver {
 		pc.Smooth = eps
 		s = pc.newParticleSolver()
 	} else {
-		s = newGrid(cfg.PSF, rg.H, eps, it, tol)
+		s = newGrid(rg.H, eps, it, tol)
 	}
 	rg.cache[key] = s
 	return s

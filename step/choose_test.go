@@ -37,7 +37,7 @@ func TestAutoChoiceMatchesBruteForce(t *testing.T) {
 	}
 	best := math.Inf(-1)
 	for _, eps := range AutoSmooths {
-		g := newGrid(k, H, eps, capK, 0)
+		g := newGrid(H, eps, capK, 0)
 		g.Observe = func(_ int, f []float32, _ float64) { best = math.Max(best, PSNR(ref, f, interior, 4095)) }
 		g.Solve(context.Background(), &Workspace{}, &Problem{D: append([]float32(nil), obs...), Mask: ones(n * n), W: n, H: n}, make([]float32, n*n))
 	}

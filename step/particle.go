@@ -11,6 +11,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/resample"
 )
 
 // Potential selects how the particle method evaluates the EMS potential.
@@ -143,7 +144,7 @@ type ParticleEMS struct {
 	// PerPixel is K, the number of particles per valid pixel (>= 1).
 	PerPixel   int
 	Potential  Potential
-	Resampling Resampling
+	Resampling resample.Scheme
 	// ESSThreshold: resample when ESS < ESSThreshold x N (0 never, 1 always
 	// unless the weights are equal).
 	ESSThreshold float64
@@ -368,7 +369,7 @@ func (pe *ParticleEMS) startCloud(pw *particleWork, ws *Workspace, p *Problem, K
 			mass[i] = v
 			msum += float64(v)
 		}
-		Systematic.Counts(pw.cnt[:w*h], mass, msum, np, nil, &pw.rng)
+		resample.Systematic.Counts(pw.cnt[:w*h], mass, msum, np, nil, &pw.rng)
 		for i, c := range pw.cnt[:w*h] {
 			place(i, int(c))
 		}
@@ -503,7 +504,7 @@ func newJumpTable(kx, ky []float64) jumpTable {
 
 // gap draws the number of particles that stay before the next one moves.
 func (j *jumpTable) gap(r *rand.PCG) int {
-	g := math.Log(1-uniform53(r)) / j.logq
+	g := math.Log(1-resample.Uniform(r)) / j.logq
 	if g > 1<<40 {
 		return 1 << 40
 	}
@@ -588,8 +589,8 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 func (pe *ParticleEMS) resample(pw *particleWork, wsum float64) {
 	np := len(pw.x)
 	x2, y2 := pw.x2[:np], pw.y2[:np]
-	if pe.Resampling == Stratified || pe.Resampling == Systematic {
-		mergeResample(x2, y2, pw.x, pw.y, pw.w, wsum, pe.Resampling == Stratified, &pw.rng)
+	if pe.Resampling == resample.Stratified || pe.Resampling == resample.Systematic {
+		resample.Merge(x2, y2, pw.x, pw.y, pw.w, wsum, pe.Resampling == resample.Stratified, &pw.rng)
 	} else {
 		pe.Resampling.Counts(pw.cnt[:np], pw.w, wsum, np, pw.x2, &pw.rng)
 		j := 0
@@ -893,43 +894,4 @@ func tm0(t *ParticleTiming) *ParticleTiming {
 		return &discardTiming
 	}
 	return t
-}
-
-// mergeResample writes the stratified (or systematic) offspring of (x, y, w)
-// into (x2, y2) in one pass: the same points, the same random numbers and
-// the same offspring as Counts followed by copying, without the counts.
-func mergeResample(x2, y2, x, y, w []float32, wsum float64, stratified bool, r *rand.PCG) {
-	n := len(x2)
-	step := wsum / float64(n)
-	u0 := uniform53(r)
-	j := 0
-	next := u0 * step
-	var cum float64
-	y, w = y[:len(x)], w[:len(x)]
-	for i, xi := range x {
-		cum += float64(w[i])
-		if next >= cum {
-			continue
-		}
-		yi := y[i]
-		for j < n && next < cum {
-			x2[j], y2[j] = xi, yi
-			j++
-			if stratified {
-				next = (float64(j) + uniform53(r)) * step
-			} else {
-				next = (float64(j) + u0) * step
-			}
-		}
-	}
-	if j < n {
-		for i := len(w) - 1; i >= 0; i-- {
-			if w[i] > 0 {
-				for ; j < n; j++ {
-					x2[j], y2[j] = x[i], y[i]
-				}
-				break
-			}
-		}
-	}
 }

@@ -7,6 +7,7 @@ import (
 
 	"limpid/psf"
 	"limpid/step/conv"
+	"limpid/step/resample"
 )
 
 // BenchmarkParticleEMS512 measures the particle method on one 512x512 tile
@@ -39,7 +40,7 @@ func benchParticle(b *testing.B, pot Potential, ess float64, reps int) {
 	sk := conv.SmoothingKernel(DefaultSmooth)
 	var tm ParticleTiming
 	pe := &ParticleEMS{H: conv.New(k), PSF: k, SmoothX: sk, SmoothY: sk, Iterations: iters, PerPixel: K,
-		Potential: pot, Resampling: Stratified, ESSThreshold: ess, BurnIn: iters / 2, Batches: 5, Replicates: reps, Seed: 1}
+		Potential: pot, Resampling: resample.Stratified, ESSThreshold: ess, BurnIn: iters / 2, Batches: 5, Replicates: reps, Seed: 1}
 	var ws Workspace
 	dst, se := make([]float32, n*n), make([]float32, n*n)
 	p := &Problem{D: make([]float32, n*n), Mask: ones(n * n), W: n, H: n, SE: se}

@@ -3,6 +3,7 @@ package step
 import (
 	"fmt"
 	"limpid/step/conv"
+	"limpid/step/resample"
 	"math"
 )
 
@@ -12,7 +13,7 @@ const (
 	DefaultPerPixel     = 16
 	DefaultESSThreshold = 0.5 // common practice, no source
 	DefaultBatches      = 10
-	DefaultResampling   = Stratified
+	DefaultResampling   = resample.Stratified
 	DefaultPotential    = PotentialExact
 	DefaultStart        = StartFlat
 	// maxParticlesPerTile bounds one tile's cloud (resampling counts are
@@ -28,8 +29,8 @@ type ParticleConfig struct {
 	PerPixel int
 	// Potential is how the potential is evaluated (zero: PotentialExact).
 	Potential Potential
-	// Resampling is the resampling scheme (zero: Stratified).
-	Resampling Resampling
+	// Resampling is the resampling scheme (zero: resample.Stratified).
+	Resampling resample.Scheme
 	// ESSThreshold in [0, 1]: resample when ESS < ESSThreshold x N.
 	ESSThreshold float64
 	// BurnIn iterations are discarded before averaging; < 0 means half the
@@ -86,7 +87,7 @@ func (cfg *Config) resolveParticle() error {
 	if pc.Potential != PotentialExact && pc.Potential != PotentialSampled {
 		return fieldErrorf("Particle.Potential", "{Particle.Potential} %d is not a Potential", pc.Potential)
 	}
-	if pc.Resampling < 0 || int(pc.Resampling) >= len(resamplingNames) {
+	if !pc.Resampling.Valid() {
 		return fieldErrorf("Particle.Resampling", "{Particle.Resampling} %d is not a Resampling", pc.Resampling)
 	}
 	if pc.Start != StartFlat && pc.Start != StartObserved {

@@ -13,6 +13,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/resample"
 )
 
 // measureScene is one scene of the particle measurements.
@@ -129,9 +130,9 @@ func variance(t *testing.T, md *strings.Builder, scenes []measureScene) {
 	vs := []variant{
 		{"baseline: exact potential, stratified, ESS 0.5, burn-in 25 of 50, Rao-Blackwellised estimate, one cloud", func(pe *ParticleEMS) {}},
 		{"sampled potential", func(pe *ParticleEMS) { pe.Potential = PotentialSampled }},
-		{"systematic resampling", func(pe *ParticleEMS) { pe.Resampling = Systematic }},
-		{"residual resampling", func(pe *ParticleEMS) { pe.Resampling = Residual }},
-		{"multinomial resampling", func(pe *ParticleEMS) { pe.Resampling = Multinomial }},
+		{"systematic resampling", func(pe *ParticleEMS) { pe.Resampling = resample.Systematic }},
+		{"residual resampling", func(pe *ParticleEMS) { pe.Resampling = resample.Residual }},
+		{"multinomial resampling", func(pe *ParticleEMS) { pe.Resampling = resample.Multinomial }},
 		{"resample every iteration (ESS threshold 1)", func(pe *ParticleEMS) { pe.ESSThreshold = 1 }},
 		{"never resample (ESS threshold 0)", func(pe *ParticleEMS) { pe.ESSThreshold = 0 }},
 		{"window: burn-in 10 (average 40 iterations)", func(pe *ParticleEMS) { pe.BurnIn = 10 }},

@@ -10,6 +10,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/resample"
 )
 
 // particleProblem is the fixed small problem of the particle tests: a 32x32
@@ -237,11 +238,11 @@ func TestParticleGaussianFixedPoint(t *testing.T) {
 // JASA 89:278, 1994): W = [0.5, 0.25, 0.125, 0.125] -> ESS = 2.909.
 func TestESSCheckValue(t *testing.T) {
 	const tol = 5e-4 // the GUIDE gives 3 decimals (exact 32/11 = 2.90909...)
-	if got := ESS([]float32{0.5, 0.25, 0.125, 0.125}); math.Abs(got-2.909) > tol {
+	if got := resample.ESS([]float32{0.5, 0.25, 0.125, 0.125}); math.Abs(got-2.909) > tol {
 		t.Errorf("ESS = %.5f, want 2.909", got)
 	}
 	// Unnormalised weights give the same value (scale invariance).
-	if got := ESS([]float32{4, 2, 1, 1}); math.Abs(got-32.0/11) > 1e-12 {
+	if got := resample.ESS([]float32{4, 2, 1, 1}); math.Abs(got-32.0/11) > 1e-12 {
 		t.Errorf("ESS of scaled weights = %.6f", got)
 	}
 }
@@ -267,7 +268,7 @@ func TestResamplingUnbiased(t *testing.T) {
 	}
 	var pcg rand.PCG
 	pcg.Seed(1, 2)
-	for _, scheme := range []Resampling{Multinomial, Stratified, Systematic, Residual} {
+	for _, scheme := range []resample.Scheme{resample.Multinomial, resample.Stratified, resample.Systematic, resample.Residual} {
 		for si, w := range sets {
 			n := len(w)
 			var wsum float64
@@ -321,7 +322,7 @@ func TestParticleFluxEveryStep(t *testing.T) {
 	const w, h = 37, 23
 	var pcg rand.PCG
 	pcg.Seed(3, 4)
-	pe := &ParticleEMS{SmoothX: conv.SmoothingKernel(1.7), SmoothY: conv.SmoothingKernel(0.4), Resampling: Stratified}
+	pe := &ParticleEMS{SmoothX: conv.SmoothingKernel(1.7), SmoothY: conv.SmoothingKernel(0.4), Resampling: resample.Stratified}
 	pe.init()
 	pw := &particleWork{}
 	np := 8 * w * h
@@ -331,7 +332,7 @@ func TestParticleFluxEveryStep(t *testing.T) {
 		u := pw.rng.Uint64()
 		pw.x[i] = float32(int(u%w)) + subpixel(u>>20)
 		pw.y[i] = float32(int((u>>8)%h)) + subpixel(u>>40)
-		pw.w[i] = float32(uniform53(&pcg) + 0.01)
+		pw.w[i] = float32(resample.Uniform(&pcg) + 0.01)
 	}
 	sumf := func(f []float32) float64 {
 		var s float64
@@ -352,7 +353,7 @@ func TestParticleFluxEveryStep(t *testing.T) {
 	c := pw.c[:w*h]
 	var gridMass float64
 	for i := range c {
-		c[i] = float32(0.5 + uniform53(&pcg))
+		c[i] = float32(0.5 + resample.Uniform(&pcg))
 		gridMass += float64(pw.fhat[i]) * float64(c[i])
 	}
 	alpha := float32(float64(np) / wsum)
@@ -638,16 +639,16 @@ func TestMergeResampleMatchesCounts(t *testing.T) {
 	for i := range x {
 		x[i], y[i] = float32(i), float32(-i)
 		if i%7 != 0 {
-			w[i] = float32(math.Exp(2 * (uniform53(&pcg) - 0.5)))
+			w[i] = float32(math.Exp(2 * (resample.Uniform(&pcg) - 0.5)))
 		}
 		wsum += float64(w[i])
 	}
-	for _, s := range []Resampling{Stratified, Systematic} {
+	for _, s := range []resample.Scheme{resample.Stratified, resample.Systematic} {
 		a, b := pcg, pcg
 		cnt := make([]uint32, n)
 		s.Counts(cnt, w, wsum, n, nil, &a)
 		x2, y2 := make([]float32, n), make([]float32, n)
-		mergeResample(x2, y2, x, y, w, wsum, s == Stratified, &b)
+		resample.Merge(x2, y2, x, y, w, wsum, s == resample.Stratified, &b)
 		j := 0
 		for i, c := range cnt {
 			for ; c > 0; c-- {

@@ -115,8 +115,10 @@ type TileReport struct {
 	Iterations int     `json:"iterations"`
 	Change     float64 `json:"final_relative_change"`
 	Flat       bool    `json:"flat,omitempty"`
-	// Changes is the relative change per iteration, kept for up to
-	// RecordedTiles tiles of the first band (the convergence plot).
+	// Changes is the relative change per iteration, kept for the tiles of
+	// the first band nearest the quarter points of the tile plan (all tiles
+	// of a plan with at most 2 per axis; runner.recorded), for the
+	// convergence plot.
 	Changes []float64 `json:"changes,omitempty"`
 }
 
@@ -353,10 +355,7 @@ func (cfg *Config) NewSolver() Solver {
 	if cfg.Method == MethodParticle {
 		return cfg.newParticleSolver()
 	}
-	g := &GridEMS{H: conv.New(cfg.PSF), Iterations: cfg.Iterations, Tolerance: cfg.Tolerance}
-	if k := conv.SmoothingKernel(cfg.Smooth); k != nil {
-		g.S = conv.NewSeparable(k, k)
-	}
+	g := newGrid(conv.New(cfg.PSF), cfg.Smooth, cfg.Iterations, cfg.Tolerance)
 	if cfg.Stop == StopDiscrepancy && cfg.Noise != nil {
 		// Stateless per tile with a given noise model (tile streams);
 		// Restore builds the same solver per band in regularise.
@@ -835,11 +834,6 @@ func (w *rowWriter) close() error {
 	<-w.done
 	return w.failed()
 }
-
-// RecordedTiles is how many tiles of the first band keep their per-iteration
-// change history in the report: the tiles nearest the quarter points of the
-// tile plan (all tiles of a plan with at most 4).
-const RecordedTiles = 4
 
 // recorded reports whether tile k keeps its change history.
 func (r *runner) recorded(k TileKey) bool {

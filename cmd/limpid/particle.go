@@ -12,6 +12,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/resample"
 )
 
 // particleFlags are restore's flags for --method particle.
@@ -44,7 +45,7 @@ func parseParticle(c *cli.Context, cfg *step.Config, j *restoreJob) error {
 	if pc.Potential, err = step.ParsePotential(c.String("potential")); err != nil {
 		return fmt.Errorf("%w: --potential %v", step.ErrConfig, err)
 	}
-	if pc.Resampling, err = step.ParseResampling(c.String("resampling")); err != nil {
+	if pc.Resampling, err = resample.Parse(c.String("resampling")); err != nil {
 		return fmt.Errorf("%w: --resampling %v", step.ErrConfig, err)
 	}
 	if pc.Start, err = step.ParseStart(c.String("start")); err != nil {

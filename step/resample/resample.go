@@ -1,4 +1,4 @@
-package step
+package resample
 
 import (
 	"fmt"
@@ -6,7 +6,7 @@ import (
 	"math/rand/v2"
 )
 
-// Resampling is a resampling scheme of the particle method. Each draws N
+// Scheme is a resampling scheme of a particle method. Each draws N
 // offspring from N weighted particles so that the expected number of copies
 // of particle i is N W_i / sum(W) (unbiased); they differ in variance:
 //
@@ -19,29 +19,29 @@ import (
 //     orders (Douc, Cappé & Moulines, ISPA 2005).
 //   - Residual (Liu & Chen, JASA 93:1032, 1998): floor(N W_i) copies kept,
 //     the remainder drawn multinomially from the residual weights.
-type Resampling int
+type Scheme int
 
 const (
-	Stratified Resampling = iota
+	Stratified Scheme = iota
 	Systematic
 	Residual
 	Multinomial
 )
 
-var resamplingNames = [...]string{"stratified", "systematic", "residual", "multinomial"}
+var schemeNames = [...]string{"stratified", "systematic", "residual", "multinomial"}
 
-func (r Resampling) String() string {
-	if r < 0 || int(r) >= len(resamplingNames) {
-		return fmt.Sprintf("Resampling(%d)", int(r))
+func (r Scheme) String() string {
+	if r < 0 || int(r) >= len(schemeNames) {
+		return fmt.Sprintf("Scheme(%d)", int(r))
 	}
-	return resamplingNames[r]
+	return schemeNames[r]
 }
 
-// ParseResampling maps a name to a scheme.
-func ParseResampling(s string) (Resampling, error) {
-	for i, n := range resamplingNames {
+// Parse maps a name to a scheme.
+func Parse(s string) (Scheme, error) {
+	for i, n := range schemeNames {
 		if s == n {
-			return Resampling(i), nil
+			return Scheme(i), nil
 		}
 	}
 	return 0, fmt.Errorf("%q: use stratified, systematic, residual or multinomial", s)
@@ -61,23 +61,23 @@ func ESS(w []float32) float64 {
 	return s * s / s2
 }
 
-// uniform53 is a uniform float64 in [0, 1) from 53 random bits.
-func uniform53(r *rand.PCG) float64 { return float64(r.Uint64()>>11) * 0x1p-53 }
+// Uniform is a uniform float64 in [0, 1) from 53 random bits.
+func Uniform(r *rand.PCG) float64 { return float64(r.Uint64()>>11) * 0x1p-53 }
 
 // exp1 is a standard exponential variate (inversion; 1 - U avoids log 0).
-func exp1(r *rand.PCG) float64 { return -math.Log(1 - uniform53(r)) }
+func exp1(r *rand.PCG) float64 { return -math.Log(1 - Uniform(r)) }
 
 // Counts fills cnt[i] (len(w)) with the number of offspring of particle i
 // under scheme s for n offspring in total and unnormalised weights w with
 // sum wsum > 0. scratch (len >= len(w)) is used by Residual. It allocates
 // nothing.
-func (s Resampling) Counts(cnt []uint32, w []float32, wsum float64, n int, scratch []float32, r *rand.PCG) {
+func (s Scheme) Counts(cnt []uint32, w []float32, wsum float64, n int, scratch []float32, r *rand.PCG) {
 	cnt = cnt[:len(w)]
 	switch s {
 	case Stratified, Systematic:
 		// Merge the sorted points u_j = (j + U_j)/n with the running CDF.
 		step := wsum / float64(n)
-		u0 := uniform53(r)
+		u0 := Uniform(r)
 		j := 0
 		next := u0 * step
 		var cum float64
@@ -88,7 +88,7 @@ func (s Resampling) Counts(cnt []uint32, w []float32, wsum float64, n int, scrat
 				c++
 				j++
 				if s == Stratified {
-					next = (float64(j) + uniform53(r)) * step
+					next = (float64(j) + Uniform(r)) * step
 				} else {
 					next = (float64(j) + u0) * step
 				}
@@ -193,3 +193,45 @@ func addSortedUniformCounts(cnt []uint32, w []float32, wsum float64, n int, r *r
 	}
 	*r = after
 }
+
+// Merge writes the stratified (or systematic) offspring of (x, y, w)
+// into (x2, y2) in one pass: the same points, the same random numbers and
+// the same offspring as Counts followed by copying, without the counts.
+func Merge(x2, y2, x, y, w []float32, wsum float64, stratified bool, r *rand.PCG) {
+	n := len(x2)
+	step := wsum / float64(n)
+	u0 := Uniform(r)
+	j := 0
+	next := u0 * step
+	var cum float64
+	y, w = y[:len(x)], w[:len(x)]
+	for i, xi := range x {
+		cum += float64(w[i])
+		if next >= cum {
+			continue
+		}
+		yi := y[i]
+		for j < n && next < cum {
+			x2[j], y2[j] = xi, yi
+			j++
+			if stratified {
+				next = (float64(j) + Uniform(r)) * step
+			} else {
+				next = (float64(j) + u0) * step
+			}
+		}
+	}
+	if j < n {
+		for i := len(w) - 1; i >= 0; i-- {
+			if w[i] > 0 {
+				for ; j < n; j++ {
+					x2[j], y2[j] = x[i], y[i]
+				}
+				break
+			}
+		}
+	}
+}
+
+// Valid reports whether s is one of the schemes.
+func (s Scheme) Valid() bool { return s >= 0 && int(s) < len(schemeNames) }
