@@ -244,7 +244,7 @@ func EstimateNoise(ctx context.Context, src raster.Reader, bands []int, cfg Conf
 			return nil, fmt.Errorf("%w: band %d does not exist (input has %d)", ErrConfig, b+1, len(meta.Bands))
 		}
 		bi := meta.Bands[b]
-		r.valid = append(r.valid, makeValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated))
+		r.valid = append(r.valid, NewValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated))
 		r.rep.Bands = append(r.rep.Bands, BandReport{})
 	}
 	return r.estimateNoise(ctx)

@@ -12,21 +12,21 @@ import (
 // The one tile pipeline. Both routes, the raster route (Restore and its
 // noise and choice passes) and the tile-stream route (RestoreTiles, then
 // Assembler), cut the same Problems with Plan.problem, run them through
-// runOrdered's worker pool under one first-error rule, and blend the
-// weighted output windows (Plan.weigh) with one blender in one order: tile
+// RunOrdered's worker pool under one first-error rule, and blend the
+// weighted output windows (Plan.weigh) with one Blender in one order: tile
 // row, band, column. Their outputs are therefore equal bit for bit by
 // construction.
 
-// window is a block of one band's scene pixels: pix holds rows y, y+1, ...
-// of columns [x, x+w) (row stride w).
-type window struct {
-	pix     []float32
-	x, y, w int
+// Window is a block of one band's scene pixels: Pix holds rows Y, Y+1, ...
+// of columns [X, X+W) (row stride W).
+type Window struct {
+	Pix     []float32
+	X, Y, W int
 }
 
-// tileWork is one worker's reusable memory: the solver's workspace and the
+// TileWork is one worker's reusable memory: the solver's workspace and the
 // tile buffers. It grows to the largest tile and is never shared.
-type tileWork struct {
+type TileWork struct {
 	ws             Workspace
 	d, mask, f, se []float32
 	wx, wy         []float32
@@ -35,7 +35,7 @@ type tileWork struct {
 // problem copies tile key's input window (Plan.InSpan, mirrored at the scene
 // edges) out of src into wk.d and wk.mask and returns the tile's Problem.
 // valid decides the mask; bg is the band's background.
-func (p Plan) problem(wk *tileWork, key TileKey, src window, valid validFn, bg float32) *Problem {
+func (p Plan) problem(wk *TileWork, key TileKey, src Window, valid ValidFunc, bg float32) *Problem {
 	ix, iy := p.InSpan(p.Cols, key.Col), p.InSpan(p.Rows, key.Row)
 	tw, th := ix.Len(), iy.Len()
 	n := tw * th
@@ -43,12 +43,12 @@ func (p Plan) problem(wk *tileWork, key TileKey, src window, valid validFn, bg f
 	wk.mask = grow(wk.mask, n)
 	wk.f = grow(wk.f, n)
 	for y := 0; y < th; y++ {
-		sy := raster.Mirror(iy.Start+y, p.H) - src.y
-		srow := src.pix[sy*src.w : (sy+1)*src.w]
+		sy := raster.Mirror(iy.Start+y, p.H) - src.Y
+		srow := src.Pix[sy*src.W : (sy+1)*src.W]
 		drow := wk.d[y*tw : (y+1)*tw]
 		mrow := wk.mask[y*tw : (y+1)*tw]
 		for x := 0; x < tw; x++ {
-			v := srow[raster.Mirror(ix.Start+x, p.W)-src.x]
+			v := srow[raster.Mirror(ix.Start+x, p.W)-src.X]
 			drow[x] = v
 			if valid(v) {
 				mrow[x] = 1
@@ -60,10 +60,40 @@ func (p Plan) problem(wk *tileWork, key TileKey, src window, valid validFn, bg f
 	return &Problem{D: wk.d, Mask: wk.mask, W: tw, H: th, Background: bg, Key: key}
 }
 
-// weigh writes tile key's blend-weighted output window (OutSpan x OutSpan,
+// Solved is a tile's solution in a worker's memory, each plane on the tile's
+// input window: the object F (background excluded), the validity Mask (1
+// valid, 0 invalid) and, when the solver reports one, the Monte Carlo
+// standard error SE. It is valid until the worker's next tile.
+type Solved struct {
+	F, Mask, SE Window
+	Result
+}
+
+// SolveTile cuts tile key's Problem out of src (Plan.problem's rule: the
+// input window, mirrored at the scene's edges), solves it with solver in
+// wk's memory and returns the solution. record asks the solver for its
+// per-iteration history; withSE hands it a standard-error plane.
+func (p Plan) SolveTile(ctx context.Context, solver Solver, wk *TileWork, key TileKey, src Window, valid ValidFunc, bg float32, record, withSE bool) (Solved, error) {
+	prob := p.problem(wk, key, src, valid, bg)
+	prob.Record = record
+	if withSE {
+		wk.se = grow(wk.se, prob.W*prob.H)
+		prob.SE = wk.se
+	}
+	res, err := solver.Solve(ctx, &wk.ws, prob, wk.f)
+	if err != nil {
+		return Solved{}, err
+	}
+	ix, iy := p.InSpan(p.Cols, key.Col), p.InSpan(p.Rows, key.Row)
+	at := func(pix []float32) Window { return Window{Pix: pix, X: ix.Start, Y: iy.Start, W: ix.Len()} }
+	return Solved{F: at(wk.f), Mask: at(wk.mask), SE: at(wk.se), Result: res}, nil
+}
+
+// Weigh writes tile key's blend-weighted output window (OutSpan x OutSpan,
 // row-major) into out, grown as needed: w_y w_x (f + bg), with f read from
-// the window f covers. wk holds the weights afterwards (weighSE reuses them).
-func (p Plan) weigh(out []float32, wk *tileWork, key TileKey, f window, bg float32) (_ []float32, ox, oy Span) {
+// the window f covers. wk holds the weights afterwards (the standard error's
+// weighting reuses them).
+func (p Plan) Weigh(out []float32, wk *TileWork, key TileKey, f Window, bg float32) (_ []float32, ox, oy Span) {
 	ox, oy = p.OutSpan(p.Cols, key.Col), p.OutSpan(p.Rows, key.Row)
 	ow, oh := ox.Len(), oy.Len()
 	out = grow(out, ow*oh)
@@ -72,7 +102,7 @@ func (p Plan) weigh(out []float32, wk *tileWork, key TileKey, f window, bg float
 	p.Weights(wk.wx, p.Cols, key.Col)
 	p.Weights(wk.wy, p.Rows, key.Row)
 	for y := 0; y < oh; y++ {
-		frow := f.pix[(oy.Start+y-f.y)*f.w+ox.Start-f.x:]
+		frow := f.Pix[(oy.Start+y-f.Y)*f.W+ox.Start-f.X:]
 		orow := out[y*ow : (y+1)*ow]
 		wy := wk.wy[y]
 		for x := range orow {
@@ -82,31 +112,37 @@ func (p Plan) weigh(out []float32, wk *tileWork, key TileKey, f window, bg float
 	return out, ox, oy
 }
 
-// blender adds the output windows of one tile row after another into
+// Blender adds the output windows of one tile row after another into
 // per-band accumulator strips and releases the scene rows that no later
 // tile row touches. Windows must be added in (tile row, band, column) order
 // for the sums to be the same bits on every route.
-type blender struct {
+type Blender struct {
 	plan  Plan
 	cores bool        // observed streams: tiles give their cores, copied
 	acc   [][]float32 // per band, scene rows [y, y + len/W)
 	y     int
 }
 
-// newBlender allocates nb accumulator strips for plan. With cores, each
+// Y is the first scene row the Blender still holds.
+func (b *Blender) Y() int { return b.y }
+
+// Rows is band's first n accumulated rows (W x n, starting at scene row Y).
+func (b *Blender) Rows(band, n int) []float32 { return b.acc[band][:n*b.plan.W] }
+
+// NewBlender allocates nb accumulator strips for plan. With cores, each
 // tile contributes its core (no blending).
-func newBlender(plan Plan, nb int, cores bool) *blender {
-	b := &blender{plan: plan, cores: cores, acc: make([][]float32, nb)}
-	rows := b.stripRows()
+func NewBlender(plan Plan, nb int, cores bool) *Blender {
+	b := &Blender{plan: plan, cores: cores, acc: make([][]float32, nb)}
+	rows := b.StripRows()
 	for i := range b.acc {
 		b.acc[i] = make([]float32, plan.W*rows)
 	}
 	return b
 }
 
-// stripRows is the height of the accumulator strips: the tallest output
+// StripRows is the height of the accumulator strips: the tallest output
 // window.
-func (b *blender) stripRows() int {
+func (b *Blender) StripRows() int {
 	n := 0
 	for i := range b.plan.Rows {
 		n = max(n, b.span(b.plan.Rows, i).Len())
@@ -115,16 +151,16 @@ func (b *blender) stripRows() int {
 }
 
 // span is the window tile i contributes along one axis.
-func (b *blender) span(spans []Span, i int) Span {
+func (b *Blender) span(spans []Span, i int) Span {
 	if b.cores {
 		return spans[i]
 	}
 	return b.plan.OutSpan(spans, i)
 }
 
-// add adds (or, for cores, copies) a tile's window out (ox x oy) into band's
+// Add adds (or, for cores, copies) a tile's window out (ox x oy) into band's
 // accumulator.
-func (b *blender) add(band int, ox, oy Span, out []float32) {
+func (b *Blender) Add(band int, ox, oy Span, out []float32) {
 	acc := b.acc[band]
 	W := b.plan.W
 	ow := ox.Len()
@@ -141,10 +177,10 @@ func (b *blender) add(band int, ox, oy Span, out []float32) {
 	}
 }
 
-// rowEnd is the end of the scene rows complete once tile row `row` is
+// RowEnd is the end of the scene rows complete once tile row `row` is
 // added: the row's core end, less the blend ramp that the next tile row
 // still adds to.
-func (b *blender) rowEnd(row int) int {
+func (b *Blender) RowEnd(row int) int {
 	end := b.plan.Rows[row].End
 	if row < len(b.plan.Rows)-1 && !b.cores {
 		end -= b.plan.Blend
@@ -152,9 +188,9 @@ func (b *blender) rowEnd(row int) int {
 	return end
 }
 
-// shift drops the first n accumulated rows (written by the caller) and
+// Shift drops the first n accumulated rows (written by the caller) and
 // carries the rest to the top of the strips.
-func (b *blender) shift(n int) {
+func (b *Blender) Shift(n int) {
 	W := b.plan.W
 	for _, acc := range b.acc {
 		rest := len(acc)/W - n
@@ -164,9 +200,9 @@ func (b *blender) shift(n int) {
 	b.y += n
 }
 
-// runOrdered is the tile pipeline's one worker pool. produce runs on the
+// RunOrdered is the tile pipeline's one worker pool. produce runs on the
 // calling goroutine and returns the next job (false at the end); solve runs
-// on one of workers goroutines, each with its own tileWork; finish receives
+// on one of workers goroutines, each with its own TileWork; finish receives
 // every produced job in production order on one goroutine, with failed set
 // once the run has failed (it must then only release the job's resources).
 // At most inflight jobs are between produce and finish.
@@ -175,9 +211,9 @@ func (b *blender) shift(n int) {
 // failure before the cancellations it caused; it cancels the rest. When only
 // cancellations remain and the caller's context is done, its error is
 // returned.
-func runOrdered[J any](ctx context.Context, workers, inflight int,
+func RunOrdered[J any](ctx context.Context, workers, inflight int,
 	produce func(ctx context.Context) (J, bool, error),
-	solve func(ctx context.Context, wk *tileWork, j J) error,
+	solve func(ctx context.Context, wk *TileWork, j J) error,
 	finish func(j J, failed bool) error) error {
 	run, cancel := context.WithCancel(ctx)
 	defer cancel()
@@ -218,7 +254,7 @@ type item[J any] struct {
 	err error
 }
 
-// pipe is runOrdered's state. sem holds a token per job between produce
+// pipe is RunOrdered's state. sem holds a token per job between produce
 // and finish.
 type pipe[J any] struct {
 	run     context.Context
@@ -257,8 +293,8 @@ func (pl *pipe[J]) feed(produce func(ctx context.Context) (J, bool, error)) {
 }
 
 // work solves jobs with one worker's memory.
-func (pl *pipe[J]) work(solve func(ctx context.Context, wk *tileWork, j J) error) {
-	wk := &tileWork{}
+func (pl *pipe[J]) work(solve func(ctx context.Context, wk *TileWork, j J) error) {
+	wk := &TileWork{}
 	for it := range pl.jobs {
 		if it.err = pl.run.Err(); it.err == nil {
 			it.err = solve(pl.run, wk, it.j)
@@ -287,7 +323,7 @@ func (pl *pipe[J]) consume(finish func(j J, failed bool) error) {
 	}
 }
 
-// firstErr keeps the pipeline's first failure (runOrdered's rule).
+// firstErr keeps the pipeline's first failure (RunOrdered's rule).
 type firstErr struct {
 	mu  sync.Mutex
 	seq int
@@ -320,6 +356,9 @@ func isCancel(err error) bool {
 
 // nan is the value invalid pixels take in restored outputs.
 var nan = float32(math.NaN())
+
+// IsCancel reports whether err is a cancellation (of a context).
+func IsCancel(err error) bool { return isCancel(err) }
 
 // grow returns b resized to n, reallocated only when too small.
 func grow(b []float32, n int) []float32 {

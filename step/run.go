@@ -382,17 +382,17 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	}
 	solver := cfg.NewSolver()
 	rep := newReport(&cfg, plan, solver)
-	validity := make([]validFn, len(bands))
+	validity := make([]ValidFunc, len(bands))
 	for i, b := range bands {
 		if b < 0 || b >= len(meta.Bands) {
 			return nil, fmt.Errorf("%w: band %d does not exist (input has %d)", ErrConfig, b+1, len(meta.Bands))
 		}
 		bi := meta.Bands[b]
-		validity[i] = makeValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated)
+		validity[i] = NewValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated)
 		rep.Bands = append(rep.Bands, BandReport{Band: i + 1, SourceBand: b + 1, Background: cfg.Background, BackgroundRule: "given"})
 	}
 	if cfg.BackgroundAuto {
-		bg, err := autoBackground(src, bands, validity)
+		bg, err := AutoBackground(src, bands, validity)
 		if err != nil {
 			return nil, err
 		}
@@ -463,15 +463,17 @@ func finishReport(rep *Report) {
 	}
 }
 
-type validFn func(v float32) bool
+// ValidFunc tells a valid sample from nodata, saturated and non-finite ones.
+type ValidFunc func(v float32) bool
 
-func makeValid(nodata float64, hasND bool, sat float64, hasSat bool) validFn {
+// NewValid is the ValidFunc of a band (raster.Valid's rule).
+func NewValid(nodata float64, hasND bool, sat float64, hasSat bool) ValidFunc {
 	return func(v float32) bool { return raster.Valid(v, nodata, hasND, sat, hasSat) }
 }
 
-// autoBackground samples every k-th row (at most ~2000 rows) and returns the
+// AutoBackground samples every k-th row (at most ~2000 rows) and returns the
 // BackgroundPercentile of each band's valid pixels, floored at 0.
-func autoBackground(src raster.Reader, bands []int, valid []validFn) ([]float64, error) {
+func AutoBackground(src raster.Reader, bands []int, valid []ValidFunc) ([]float64, error) {
 	m := src.Meta()
 	step := max(1, m.Height/2000)
 	row := make([][]float32, len(bands))
@@ -513,7 +515,7 @@ type runner struct {
 	src    raster.Reader
 	dst    raster.Writer
 	bands  []int
-	valid  []validFn
+	valid  []ValidFunc
 	rep    *Report
 	solver Solver
 
@@ -549,8 +551,8 @@ type scan struct {
 	*runner
 	strips  chan *strip // free strips: one is read while the other is solved
 	jobs    []rasterJob // two tile rows of job slots, reused
-	blend   *blender    // weighted outputs
-	blendSE *blender    // weighted standard errors (withSE)
+	blend   *Blender    // weighted outputs
+	blendSE *Blender    // weighted standard errors (withSE)
 	out     *rowWriter  // finished rows, written on their own goroutine
 	row     int         // producer position: tile row, band, column
 	band    int
@@ -575,15 +577,15 @@ func (r *runner) run(ctx context.Context) error {
 		sc.strips <- st
 	}
 	if r.need == nil {
-		sc.blend = newBlender(p, nb, false)
+		sc.blend = NewBlender(p, nb, false)
 		if r.withSE {
-			sc.blendSE = newBlender(p, nb, false)
+			sc.blendSE = NewBlender(p, nb, false)
 			r.seSum, r.seFlux = make([]float64, nb), make([]float64, nb)
 		}
-		sc.out = newRowWriter(r.dst, r.cfg.Uncertainty, nb, p.W*sc.blend.stripRows(), r.withSE)
+		sc.out = newRowWriter(r.dst, r.cfg.Uncertainty, nb, p.W*sc.blend.StripRows(), r.withSE)
 	}
 	nw := min(r.cfg.Workers, nb*len(p.Cols))
-	err := runOrdered(ctx, nw, len(sc.jobs), sc.produce, sc.solve, sc.finish)
+	err := RunOrdered(ctx, nw, len(sc.jobs), sc.produce, sc.solve, sc.finish)
 	if sc.out != nil {
 		if werr := sc.out.close(); err == nil {
 			err = werr
@@ -664,28 +666,22 @@ func (sc *scan) readStrip(ctx context.Context) error {
 
 // solve restores one tile and weights its output window (a pass keeps only
 // the solver's side effects).
-func (sc *scan) solve(ctx context.Context, wk *tileWork, j *rasterJob) error {
+func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 	p := sc.plan
 	k := j.key
 	bg := float32(sc.rep.Bands[k.Band].Background)
-	prob := p.problem(wk, k, window{pix: j.strip.rows[k.Band], y: j.strip.y, w: p.W}, sc.valid[k.Band], bg)
-	prob.Record = sc.recorded(k)
-	if sc.withSE {
-		wk.se = grow(wk.se, prob.W*prob.H)
-		prob.SE = wk.se
-	}
-	res, err := sc.solver.Solve(ctx, &wk.ws, prob, wk.f)
+	src := Window{Pix: j.strip.rows[k.Band], Y: j.strip.y, W: p.W}
+	s, err := p.SolveTile(ctx, sc.solver, wk, k, src, sc.valid[k.Band], bg, sc.recorded(k), sc.withSE)
 	if err != nil {
 		return &TileError{Band: k.Band, Col: k.Col, Row: k.Row, Err: err}
 	}
-	j.res = res
+	j.res = s.Result
 	if sc.need != nil {
 		return nil
 	}
-	ix, iy := p.InSpan(p.Cols, k.Col), p.InSpan(p.Rows, k.Row)
-	j.out, j.ox, j.oy = p.weigh(j.out, wk, k, window{pix: wk.f, x: ix.Start, y: iy.Start, w: ix.Len()}, bg)
+	j.out, j.ox, j.oy = p.Weigh(j.out, wk, k, s.F, bg)
 	if sc.withSE {
-		j.seOut = weighSE(j.seOut, wk, res, j.ox.Len(), j.oy.Len(), window{pix: wk.se, x: ix.Start, y: iy.Start, w: ix.Len()}, j.ox, j.oy)
+		j.seOut = weighSE(j.seOut, wk, s.Result, j.ox.Len(), j.oy.Len(), s.SE, j.ox, j.oy)
 	}
 	return nil
 }
@@ -695,9 +691,9 @@ func (sc *scan) solve(ctx context.Context, wk *tileWork, j *rasterJob) error {
 func (sc *scan) finish(j *rasterJob, failed bool) error {
 	var err error
 	if !failed && sc.need == nil {
-		sc.blend.add(j.key.Band, j.ox, j.oy, j.out)
+		sc.blend.Add(j.key.Band, j.ox, j.oy, j.out)
 		if sc.withSE {
-			sc.blendSE.add(j.key.Band, j.ox, j.oy, j.seOut)
+			sc.blendSE.Add(j.key.Band, j.ox, j.oy, j.seOut)
 		}
 		br := &sc.rep.Bands[j.key.Band]
 		br.Tiles = append(br.Tiles, TileReport{Col: j.key.Col, Row: j.key.Row, Iterations: j.res.Iterations, Change: j.res.Change, Flat: j.res.Flat, Changes: j.res.Changes})
@@ -715,17 +711,17 @@ func (sc *scan) finish(j *rasterJob, failed bool) error {
 // where the input is invalid, with the flux bookkeeping over valid pixels.
 func (sc *scan) writeRow(row int, st *strip) error {
 	W := sc.plan.W
-	end := sc.blend.rowEnd(row)
-	n := end - sc.blend.y
+	end := sc.blend.RowEnd(row)
+	n := end - sc.blend.Y()
 	bufs, err := sc.out.buffer()
 	if err != nil {
 		return err
 	}
 	for b := range bufs {
-		acc, out := sc.blend.acc[b][:n*W], bufs[b][:n*W]
+		acc, out := sc.blend.Rows(b, n), bufs[b][:n*W]
 		br := &sc.rep.Bands[b]
 		for y := 0; y < n; y++ {
-			sy := sc.blend.y + y - st.y
+			sy := sc.blend.Y() + y - st.y
 			srow := st.rows[b][sy*W : (sy+1)*W]
 			arow, orow := acc[y*W:(y+1)*W], out[y*W:(y+1)*W]
 			for x, v := range srow {
@@ -743,10 +739,10 @@ func (sc *scan) writeRow(row int, st *strip) error {
 	var se [][]float32
 	if sc.withSE {
 		se = sc.outputSE(n, st)
-		sc.blendSE.shift(n)
+		sc.blendSE.Shift(n)
 	}
-	sc.out.write(writeJob{y0: sc.blend.y, y1: end, bufs: bufs, se: se})
-	sc.blend.shift(n)
+	sc.out.write(writeJob{y0: sc.blend.Y(), y1: end, bufs: bufs, se: se})
+	sc.blend.Shift(n)
 	sc.done += len(sc.bands) * len(sc.plan.Cols)
 	if sc.cfg.Progress != nil {
 		sc.cfg.Progress(sc.done, len(sc.bands)*sc.plan.NTiles())

@@ -12,8 +12,8 @@ import "math"
 
 // weighSE returns w^2 se^2 over a tile's output window ox x oy (ow x oh),
 // grown into out, with se read from the window it covers and the weights
-// Plan.weigh left in wk; zeros when the solver reported no standard error.
-func weighSE(out []float32, wk *tileWork, res Result, ow, oh int, se window, ox, oy Span) []float32 {
+// Plan.Weigh left in wk; zeros when the solver reported no standard error.
+func weighSE(out []float32, wk *TileWork, res Result, ow, oh int, se Window, ox, oy Span) []float32 {
 	out = grow(out, ow*oh)
 	for y := 0; y < oh; y++ {
 		orow := out[y*ow : (y+1)*ow]
@@ -21,7 +21,7 @@ func weighSE(out []float32, wk *tileWork, res Result, ow, oh int, se window, ox,
 			clear(orow)
 			continue
 		}
-		serow := se.pix[(oy.Start+y-se.y)*se.w+ox.Start-se.x:]
+		serow := se.Pix[(oy.Start+y-se.Y)*se.W+ox.Start-se.X:]
 		wy := wk.wy[y]
 		for x := range orow {
 			w := wy * wk.wx[x]
@@ -37,11 +37,11 @@ func (sc *scan) outputSE(n int, st *strip) [][]float32 {
 	W := sc.plan.W
 	bufs := <-sc.out.freeSE
 	for b := range bufs {
-		acc, img := sc.blendSE.acc[b][:n*W], sc.blend.acc[b][:n*W]
+		acc, img := sc.blendSE.Rows(b, n), sc.blend.Rows(b, n)
 		out := bufs[b][:n*W]
 		bg := sc.rep.Bands[b].Background
 		for y := 0; y < n; y++ {
-			sy := sc.blend.y + y - st.y
+			sy := sc.blend.Y() + y - st.y
 			srow := st.rows[b][sy*W : (sy+1)*W]
 			for x, v := range srow {
 				i := y*W + x

@@ -11,7 +11,7 @@ import (
 
 	"limpid/arrowio"
 	"limpid/raster"
-	"limpid/step"
+	"limpid/step/stream"
 )
 
 // synthScene is a raster.Reader that makes its rows on the fly (an invented
@@ -50,7 +50,7 @@ func BenchmarkStreamRSS200(b *testing.B) {
 		b.Fatalf("build: %v %s", err, out)
 	}
 	meta := raster.Meta{Width: 20 * 512, Height: 10 * 512, DataType: "UInt16", Bands: []raster.BandInfo{{Description: "pan"}}}
-	h, err := step.ObservedHeader(meta, []int{0}, "glenmorrow-strip", 512, 16)
+	h, err := stream.ObservedHeader(meta, []int{0}, "glenmorrow-strip", 512, 16)
 	if err != nil {
 		b.Fatal(err)
 	}
@@ -68,7 +68,7 @@ func BenchmarkStreamRSS200(b *testing.B) {
 			feedErr <- func() error {
 				defer stdin.Close()
 				bw := bufio.NewWriterSize(stdin, 1<<20)
-				tiler, err := step.NewSceneTiler(synthScene{meta}, []int{0}, h)
+				tiler, err := stream.NewSceneTiler(synthScene{meta}, []int{0}, h)
 				if err != nil {
 					return err
 				}

@@ -17,6 +17,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/stream"
 )
 
 // DefaultPackOverlap is the halo limpid tiles pack cuts when --overlap is not
@@ -220,11 +221,11 @@ func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	if err != nil {
 		return err
 	}
-	hdr, err := step.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), in), c.Int("tile"), c.Int("overlap"))
+	hdr, err := stream.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), in), c.Int("tile"), c.Int("overlap"))
 	if err != nil {
 		return err
 	}
-	tiler, err := step.NewSceneTiler(src, bands, hdr)
+	tiler, err := stream.NewSceneTiler(src, bands, hdr)
 	if err != nil {
 		return err
 	}
@@ -310,7 +311,7 @@ func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	h := r.Header()
 	var rep *step.Report
 	if h.Kind == arrowio.KindRestored {
-		if rep, err = step.ReportFromHeader(h); err != nil {
+		if rep, err = stream.ReportFromHeader(h); err != nil {
 			return streamErr(in, err)
 		}
 	}
@@ -318,7 +319,7 @@ func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	if err != nil {
 		return err
 	}
-	asm, err := step.NewAssembler(h, dst)
+	asm, err := stream.NewAssembler(h, dst)
 	if err != nil {
 		dst.Abort()
 		return err
@@ -377,7 +378,7 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 	}
 	var (
 		hdr    *arrowio.Header
-		src    step.TileSource
+		src    stream.TileSource
 		rsrc   raster.Reader
 		bands  []int
 		inName = j.in
@@ -416,19 +417,19 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 		if bands, err = parseBands(j.bandSpec, len(meta.Bands)); err != nil {
 			return err
 		}
-		if hdr, err = step.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), j.in), cfg.Tile, cfg.Halo()); err != nil {
+		if hdr, err = stream.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), j.in), cfg.Tile, cfg.Halo()); err != nil {
 			return err
 		}
-		if src, err = step.NewSceneTiler(s, bands, hdr); err != nil {
+		if src, err = stream.NewSceneTiler(s, bands, hdr); err != nil {
 			return err
 		}
 		rsrc = s
 	}
-	bgs, err := step.StreamBackgrounds(cfg, hdr, rsrc, bands)
+	bgs, err := stream.StreamBackgrounds(cfg, hdr, rsrc, bands)
 	if err != nil {
 		return err
 	}
-	outHdr, err := step.RestoredHeader(hdr, cfg, bgs)
+	outHdr, err := stream.RestoredHeader(hdr, cfg, bgs)
 	if err != nil {
 		return err
 	}
@@ -444,7 +445,7 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 			o.abort()
 			return err
 		}
-		if err := step.RestoreTiles(ctx, hdr, bgs, src, w, cfg); err != nil {
+		if err := stream.RestoreTiles(ctx, hdr, bgs, src, w, cfg); err != nil {
 			w.Abandon()
 			o.abort()
 			return streamErr(inName, err)
@@ -459,7 +460,7 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 		fmt.Fprintf(stderr, "limpid: restored %d tiles\n", tiles)
 		return nil
 	}
-	rep, err := step.ReportFromHeader(outHdr)
+	rep, err := stream.ReportFromHeader(outHdr)
 	if err != nil {
 		return err
 	}
@@ -467,13 +468,13 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 	if err != nil {
 		return err
 	}
-	asm, err := step.NewAssembler(outHdr, dst)
+	asm, err := stream.NewAssembler(outHdr, dst)
 	if err != nil {
 		dst.Abort()
 		return err
 	}
 	asm.Report = rep
-	if err := step.RestoreTiles(ctx, hdr, bgs, src, asm, cfg); err != nil {
+	if err := stream.RestoreTiles(ctx, hdr, bgs, src, asm, cfg); err != nil {
 		dst.Abort()
 		return streamErr(inName, err)
 	}

@@ -1,4 +1,4 @@
-package step
+package stream
 
 import (
 	"context"
@@ -9,6 +9,7 @@ import (
 
 	"limpid/arrowio"
 	"limpid/raster"
+	"limpid/step"
 )
 
 // Tile streams (arrowio): the same tiles, halos, solver and blend weights as
@@ -32,14 +33,14 @@ type TileSink interface {
 // ObservedHeader describes the stream limpid tiles pack cuts from a scene:
 // bands (0-based, stream order) of meta, tile core size and halo.
 func ObservedHeader(meta raster.Meta, bands []int, sceneID string, tile, overlap int) (*arrowio.Header, error) {
-	if _, err := NewPlan(meta.Width, meta.Height, tile, overlap); err != nil {
-		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+	if _, err := step.NewPlan(meta.Width, meta.Height, tile, overlap); err != nil {
+		return nil, fmt.Errorf("%w: %v", step.ErrConfig, err)
 	}
 	h := &arrowio.Header{Kind: arrowio.KindObserved, SceneID: sceneID, Width: meta.Width, Height: meta.Height,
 		DataType: meta.DataType, Geo: meta.Geo, Metadata: meta.Metadata, Tile: tile, Overlap: overlap}
 	for _, b := range bands {
 		if b < 0 || b >= len(meta.Bands) {
-			return nil, fmt.Errorf("%w: band %d does not exist (input has %d)", ErrConfig, b+1, len(meta.Bands))
+			return nil, fmt.Errorf("%w: band %d does not exist (input has %d)", step.ErrConfig, b+1, len(meta.Bands))
 		}
 		bi := meta.Bands[b]
 		h.Bands = append(h.Bands, arrowio.Band{SourceBand: b + 1, BandInfo: bi})
@@ -48,7 +49,7 @@ func ObservedHeader(meta raster.Meta, bands []int, sceneID string, tile, overlap
 		}
 	}
 	// Widest buffer: the longest core (a merged last tile) plus two halos.
-	p, _ := NewPlan(meta.Width, meta.Height, tile, overlap)
+	p, _ := step.NewPlan(meta.Width, meta.Height, tile, overlap)
 	bw, bh := 0, 0
 	for i := range p.Cols {
 		bw = max(bw, clipSpan(p.InSpan(p.Cols, i), p.W).Len())
@@ -57,32 +58,32 @@ func ObservedHeader(meta raster.Meta, bands []int, sceneID string, tile, overlap
 		bh = max(bh, clipSpan(p.InSpan(p.Rows, i), p.H).Len())
 	}
 	if int64(bw)*int64(bh) > arrowio.MaxTilePixels {
-		return nil, fmt.Errorf("%w: tile %d with overlap %d makes %dx%d buffers, more than %d pixels per batch: lower --tile", ErrConfig, tile, overlap, bw, bh, arrowio.MaxTilePixels)
+		return nil, fmt.Errorf("%w: tile %d with overlap %d makes %dx%d buffers, more than %d pixels per batch: lower --tile", step.ErrConfig, tile, overlap, bw, bh, arrowio.MaxTilePixels)
 	}
 	return h, nil
 }
 
-func clipSpan(s Span, n int) Span { return Span{max(0, s.Start), min(n, s.End)} }
+func clipSpan(s step.Span, n int) step.Span { return step.Span{max(0, s.Start), min(n, s.End)} }
 
 // streamParams are the restoration parameters a restored stream records
 // (the same keys as the LIMPID_PARAMETERS metadata of a restored raster).
 type streamParams struct {
-	Smooth     float64  `json:"smooth"`
-	SmoothRule string   `json:"smooth_rule"`
-	Stop       Stop     `json:"stop"`
-	Choose     Choose   `json:"choose"`
-	Iterations int      `json:"iterations"`
-	Tolerance  float64  `json:"tolerance"`
-	Tile       int      `json:"tile"`
-	Overlap    int      `json:"overlap"`
-	Blend      int      `json:"blend"`
-	Seed       uint64   `json:"seed"`
-	Saturated  *float64 `json:"saturated"`
+	Smooth     float64     `json:"smooth"`
+	SmoothRule string      `json:"smooth_rule"`
+	Stop       step.Stop   `json:"stop"`
+	Choose     step.Choose `json:"choose"`
+	Iterations int         `json:"iterations"`
+	Tolerance  float64     `json:"tolerance"`
+	Tile       int         `json:"tile"`
+	Overlap    int         `json:"overlap"`
+	Blend      int         `json:"blend"`
+	Seed       uint64      `json:"seed"`
+	Saturated  *float64    `json:"saturated"`
 }
 
 // RestoredHeader is the header of the stream RestoreTiles makes from in with
 // a resolved cfg and per-band backgrounds.
-func RestoredHeader(in *arrowio.Header, cfg Config, backgrounds []float64) (*arrowio.Header, error) {
+func RestoredHeader(in *arrowio.Header, cfg step.Config, backgrounds []float64) (*arrowio.Header, error) {
 	out := *in
 	out.Kind = arrowio.KindRestored
 	out.Bands = append([]arrowio.Band(nil), in.Bands...)
@@ -97,16 +98,16 @@ func RestoredHeader(in *arrowio.Header, cfg Config, backgrounds []float64) (*arr
 	}
 	b, err := json.Marshal(p)
 	if err != nil {
-		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+		return nil, fmt.Errorf("%w: %v", step.ErrConfig, err)
 	}
-	out.Restored = &arrowio.Restoration{SoftwareVersion: Version, Method: cfg.NewSolver().Name(), PSF: cfg.PSFSpec, Parameters: string(b)}
+	out.Restored = &arrowio.Restoration{SoftwareVersion: step.Version, Method: cfg.NewSolver().Name(), PSF: cfg.PSFSpec, Parameters: string(b)}
 	return &out, nil
 }
 
-// ReportFromHeader rebuilds the Report fields a restored stream records
+// ReportFromHeader rebuilds the step.Report fields a restored stream records
 // (for the metadata of the raster Assembler writes). Tiles and
 // MaxIterations are filled by the Assembler.
-func ReportFromHeader(h *arrowio.Header) (*Report, error) {
+func ReportFromHeader(h *arrowio.Header) (*step.Report, error) {
 	if h.Restored == nil {
 		return nil, errors.New("not a restored stream")
 	}
@@ -114,11 +115,11 @@ func ReportFromHeader(h *arrowio.Header) (*Report, error) {
 	if err := json.Unmarshal([]byte(h.Restored.Parameters), &p); err != nil {
 		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("metadata %s: %v", arrowio.KeyParameters, err)}
 	}
-	rep := &Report{Version: h.Restored.SoftwareVersion, Method: h.Restored.Method, PSF: h.Restored.PSF,
+	rep := &step.Report{Version: h.Restored.SoftwareVersion, Method: h.Restored.Method, PSF: h.Restored.PSF,
 		Smooth: p.Smooth, SmoothRule: p.SmoothRule, Stop: p.Stop, Choose: p.Choose, Iterations: p.Iterations, Tolerance: p.Tolerance, Tile: p.Tile, Overlap: p.Overlap,
 		Blend: p.Blend, Seed: p.Seed, Saturated: p.Saturated, Width: h.Width, Height: h.Height}
 	for i, b := range h.Bands {
-		rep.Bands = append(rep.Bands, BandReport{Band: i + 1, SourceBand: b.SourceBand, Background: b.Background, BackgroundRule: "recorded in the stream"})
+		rep.Bands = append(rep.Bands, step.BandReport{Band: i + 1, SourceBand: b.SourceBand, Background: b.Background, BackgroundRule: "recorded in the stream"})
 	}
 	return rep, nil
 }
@@ -126,7 +127,7 @@ func ReportFromHeader(h *arrowio.Header) (*Report, error) {
 // StreamBackgrounds returns the background of each band of h: cfg.Background,
 // or with cfg.BackgroundAuto the percentile rule of Restore over src (which
 // must then be the whole scene; nil for a stream input is an error).
-func StreamBackgrounds(cfg Config, h *arrowio.Header, src raster.Reader, bands []int) ([]float64, error) {
+func StreamBackgrounds(cfg step.Config, h *arrowio.Header, src raster.Reader, bands []int) ([]float64, error) {
 	out := make([]float64, len(h.Bands))
 	if !cfg.BackgroundAuto {
 		for i := range out {
@@ -135,18 +136,18 @@ func StreamBackgrounds(cfg Config, h *arrowio.Header, src raster.Reader, bands [
 		return out, nil
 	}
 	if src == nil {
-		return nil, fmt.Errorf("%w: --background auto needs the whole scene; a tile-stream input is restored tile by tile: give a value", ErrConfig)
+		return nil, fmt.Errorf("%w: --background auto needs the whole scene; a tile-stream input is restored tile by tile: give a value", step.ErrConfig)
 	}
-	valid := make([]validFn, len(bands))
+	valid := make([]step.ValidFunc, len(bands))
 	for i, b := range h.Bands {
-		valid[i] = makeValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated)
+		valid[i] = step.NewValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated)
 	}
-	return autoBackground(src, bands, valid)
+	return step.AutoBackground(src, bands, valid)
 }
 
 // CheckPlan checks that t is a tile of plan: its column and row exist and
 // its buffer is the tile's input window clipped to the scene.
-func CheckPlan(p Plan, t *arrowio.Tile) error {
+func CheckPlan(p step.Plan, t *arrowio.Tile) error {
 	if t.Col >= len(p.Cols) {
 		return arrowio.TileErrorf(t, arrowio.ColTileColumn, "is %d; the tiling has %d columns (scene width %d, tile %d)", t.Col, len(p.Cols), p.W, p.Tile)
 	}
@@ -154,7 +155,7 @@ func CheckPlan(p Plan, t *arrowio.Tile) error {
 		return arrowio.TileErrorf(t, arrowio.ColTileRow, "is %d; the tiling has %d rows (scene height %d, tile %d)", t.TileRow, len(p.Rows), p.H, p.Tile)
 	}
 	for _, ax := range []struct {
-		spans                 []Span
+		spans                 []step.Span
 		i, n                  int
 		pos, size, lo, hi     int
 		cPos, cSize, cLo, cHi string
@@ -185,8 +186,8 @@ type SceneTiler struct {
 	src      raster.Reader
 	bands    []int
 	hdr      *arrowio.Header
-	plan     Plan
-	valid    []validFn
+	plan     step.Plan
+	valid    []step.ValidFunc
 	row, b   int
 	col      int
 	strip    []float32
@@ -197,13 +198,13 @@ type SceneTiler struct {
 
 // NewSceneTiler tiles bands (0-based, stream order) of src as h describes.
 func NewSceneTiler(src raster.Reader, bands []int, h *arrowio.Header) (*SceneTiler, error) {
-	p, err := NewPlan(h.Width, h.Height, h.Tile, h.Overlap)
+	p, err := step.NewPlan(h.Width, h.Height, h.Tile, h.Overlap)
 	if err != nil {
-		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+		return nil, fmt.Errorf("%w: %v", step.ErrConfig, err)
 	}
 	s := &SceneTiler{src: src, bands: bands, hdr: h, plan: p}
 	for _, b := range h.Bands {
-		s.valid = append(s.valid, makeValid(b.NoData, b.HasNoData, 0, false))
+		s.valid = append(s.valid, step.NewValid(b.NoData, b.HasNoData, 0, false))
 	}
 	return s, nil
 }
@@ -232,7 +233,6 @@ func (s *SceneTiler) Next(t *arrowio.Tile) (bool, error) {
 		Pix: t.Pix, Uncertainty: nil}
 	t.Pix = grow(t.Pix, t.W*t.H)
 	valid := s.valid[s.b]
-	nan := float32(math.NaN())
 	for y := 0; y < t.H; y++ {
 		src := s.strip[(iy.Start+y-s.stripY)*p.W+ix.Start:][:t.W]
 		dst := t.Pix[y*t.W : (y+1)*t.W]
@@ -261,14 +261,13 @@ func (s *SceneTiler) Next(t *arrowio.Tile) (bool, error) {
 	return true, nil
 }
 
-// streamWorker is one worker's memory, reused across tiles.
 // RestoreTiles restores every tile of src (an observed stream described by
 // in) and writes the restored tiles to dst in input order. Each tile is
 // independent (stateless); at most 2 x workers + 2 tiles are in memory; the
 // result does not depend on cfg.Workers (random streams come from
 // Problem.Key). The first error (in stream order) stops the run; nothing is
 // written to dst after it is known.
-func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64, src TileSource, dst TileSink, cfg Config) error {
+func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64, src TileSource, dst TileSink, cfg step.Config) error {
 	if in.Kind != arrowio.KindObserved {
 		return &arrowio.StreamError{Row: -1, Err: fmt.Errorf("metadata %s is %q: restore needs an observed stream (limpid tiles pack)", arrowio.KeyKind, in.Kind)}
 	}
@@ -276,27 +275,27 @@ func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64
 	if err := cfg.Resolve(); err != nil {
 		return err
 	}
-	plan, err := NewPlan(in.Width, in.Height, in.Tile, in.Overlap)
+	plan, err := step.NewPlan(in.Width, in.Height, in.Tile, in.Overlap)
 	if err != nil {
-		return fmt.Errorf("%w: %v", ErrConfig, err)
+		return fmt.Errorf("%w: %v", step.ErrConfig, err)
 	}
 	st := &streamRun{plan: plan, solver: cfg.NewSolver(), backgrounds: backgrounds, src: src, dst: dst, progress: cfg.Progress}
 	for _, b := range in.Bands {
-		st.valid = append(st.valid, makeValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated))
+		st.valid = append(st.valid, step.NewValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated))
 	}
 	nbuf := 2*cfg.Workers + 2
 	st.free = make(chan *arrowio.Tile, nbuf)
 	for i := 0; i < nbuf; i++ {
 		st.free <- &arrowio.Tile{}
 	}
-	return runOrdered(ctx, cfg.Workers, nbuf, st.produce, st.solve, st.finish)
+	return step.RunOrdered(ctx, cfg.Workers, nbuf, st.produce, st.solve, st.finish)
 }
 
 // streamRun is RestoreTiles' side of the tile pipeline.
 type streamRun struct {
-	plan        Plan
-	solver      Solver
-	valid       []validFn
+	plan        step.Plan
+	solver      step.Solver
+	valid       []step.ValidFunc
 	backgrounds []float64
 	src         TileSource
 	dst         TileSink
@@ -324,9 +323,9 @@ func (st *streamRun) produce(ctx context.Context) (*arrowio.Tile, bool, error) {
 	return t, true, nil
 }
 
-func (st *streamRun) solve(ctx context.Context, wk *tileWork, t *arrowio.Tile) error {
+func (st *streamRun) solve(ctx context.Context, wk *step.TileWork, t *arrowio.Tile) error {
 	if err := restoreTile(ctx, st.solver, st.plan, wk, t, st.valid[t.Band], float32(st.backgrounds[t.Band])); err != nil {
-		return &TileError{Band: t.Band, Col: t.Col, Row: t.TileRow, Err: err}
+		return &step.TileError{Band: t.Band, Col: t.Col, Row: t.TileRow, Err: err}
 	}
 	return nil
 }
@@ -341,28 +340,25 @@ func (st *streamRun) finish(t *arrowio.Tile, failed bool) error {
 	return err
 }
 
-// restoreTile rebuilds the tile's Problem (its input window with the
-// mirrored positions outside the scene), solves it and overwrites t's pixels
-// with the restored object plus background (NaN where the input is invalid).
-func restoreTile(ctx context.Context, solver Solver, p Plan, wk *tileWork, t *arrowio.Tile, valid validFn, bg float32) error {
-	key := TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}
-	prob := p.problem(wk, key, window{pix: t.Pix, x: t.X, y: t.Y, w: t.W}, valid, bg)
-	wk.se = grow(wk.se, prob.W*prob.H)
-	prob.SE = wk.se
-	res, err := solver.Solve(ctx, &wk.ws, prob, wk.f)
+// restoreTile solves the tile's Problem (the tile pipeline's: its input
+// window with the mirrored positions outside the scene) and overwrites t's
+// pixels with the restored object plus background (NaN where the input is
+// invalid), and its uncertainty with the standard error when the solver
+// reports one.
+func restoreTile(ctx context.Context, solver step.Solver, p step.Plan, wk *step.TileWork, t *arrowio.Tile, valid step.ValidFunc, bg float32) error {
+	key := step.TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}
+	s, err := p.SolveTile(ctx, solver, wk, key, step.Window{Pix: t.Pix, X: t.X, Y: t.Y, W: t.W}, valid, bg, false, true)
 	if err != nil {
 		return err
 	}
-	ix, iy := p.InSpan(p.Cols, t.Col), p.InSpan(p.Rows, t.TileRow)
-	tw := ix.Len()
-	if res.HasSE {
+	if s.HasSE {
 		t.Uncertainty = make([]float32, t.W*t.H)
 	} else {
 		t.Uncertainty = nil
 	}
 	for by := 0; by < t.H; by++ {
-		o := (t.Y+by-iy.Start)*tw + t.X - ix.Start
-		frow, mrow := wk.f[o:o+t.W], wk.mask[o:o+t.W]
+		o := (t.Y+by-s.F.Y)*s.F.W + t.X - s.F.X
+		frow, mrow := s.F.Pix[o:o+t.W], s.Mask.Pix[o:o+t.W]
 		orow := t.Pix[by*t.W : (by+1)*t.W]
 		for x := range orow {
 			if mrow[x] != 0 {
@@ -371,8 +367,8 @@ func restoreTile(ctx context.Context, solver Solver, p Plan, wk *tileWork, t *ar
 				orow[x] = nan
 			}
 		}
-		if res.HasSE {
-			srow, urow := wk.se[o:o+t.W], t.Uncertainty[by*t.W:(by+1)*t.W]
+		if s.HasSE {
+			srow, urow := s.SE.Pix[o:o+t.W], t.Uncertainty[by*t.W:(by+1)*t.W]
 			for x := range urow {
 				if mrow[x] != 0 {
 					urow[x] = srow[x]
@@ -382,12 +378,23 @@ func restoreTile(ctx context.Context, solver Solver, p Plan, wk *tileWork, t *ar
 			}
 		}
 	}
-	t.Iterations, t.Change = res.Iterations, res.Change
+	t.Iterations, t.Change = s.Iterations, s.Change
 	return nil
 }
 
+// nan is the value invalid pixels take in streams.
+var nan = float32(math.NaN())
+
+// grow returns b resized to n, reallocated only when too small.
+func grow(b []float32, n int) []float32 {
+	if cap(b) < n {
+		return make([]float32, n)
+	}
+	return b[:n]
+}
+
 // Assembler writes the scene a stream describes to a raster.Writer. For a
-// restored stream it weights the tiles' output windows (Plan.weigh) and
+// restored stream it weights the tiles' output windows (step.Plan.Weigh) and
 // blends them with the tile pipeline's blender in Restore's order (tile row,
 // band, column), so the result equals Restore's bit for bit; for an observed
 // stream it copies the tile cores. Tiles may arrive in any order; a tile row
@@ -395,19 +402,19 @@ func restoreTile(ctx context.Context, solver Solver, p Plan, wk *tileWork, t *ar
 // memory).
 type Assembler struct {
 	hdr      *arrowio.Header
-	plan     Plan
+	plan     step.Plan
 	dst      raster.Writer
 	restored bool
 	nb       int
 	rows     map[int][]*asmTile
 	counts   map[int]int
 	nextRow  int
-	blend    *blender
+	blend    *step.Blender
 	buf      [][]float32
-	wk       tileWork // blend weights
+	wk       step.TileWork // blend weights
 	// Report, when set (restored streams), receives per-tile records and the
 	// per-band maximum iteration count.
-	Report *Report
+	Report *step.Report
 }
 
 // maxAssemblerBytes bounds the strips an Assembler allocates (16 GiB: a
@@ -416,26 +423,26 @@ const maxAssemblerBytes = 16 << 30
 
 type asmTile struct {
 	out    []float32
-	ox, oy Span
+	ox, oy step.Span
 	iters  int
 	change float64
 }
 
 // NewAssembler prepares writing h's scene to dst (bands in stream order).
 func NewAssembler(h *arrowio.Header, dst raster.Writer) (*Assembler, error) {
-	p, err := NewPlan(h.Width, h.Height, h.Tile, h.Overlap)
+	p, err := step.NewPlan(h.Width, h.Height, h.Tile, h.Overlap)
 	if err != nil {
-		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
+		return nil, fmt.Errorf("%w: %v", step.ErrConfig, err)
 	}
 	a := &Assembler{hdr: h, plan: p, dst: dst, restored: h.Kind == arrowio.KindRestored, nb: len(h.Bands),
 		rows: map[int][]*asmTile{}, counts: map[int]int{}}
 	// Two strips (accumulator and write buffer) per band: refuse what a
 	// stream's header cannot honestly need on one machine.
-	maxOut := (&blender{plan: p, cores: !a.restored}).stripRows()
+	maxOut := step.NewBlender(p, 0, !a.restored).StripRows()
 	if need := 2 * int64(a.nb) * int64(p.W) * int64(maxOut) * 4; need > maxAssemblerBytes {
 		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("%d bands of a %d-pixel-wide scene in strips of %d rows need %d GiB: more than the %d GiB limit", a.nb, p.W, maxOut, need>>30, maxAssemblerBytes>>30)}
 	}
-	a.blend = newBlender(p, a.nb, !a.restored)
+	a.blend = step.NewBlender(p, a.nb, !a.restored)
 	a.buf = make([][]float32, a.nb)
 	for i := range a.buf {
 		a.buf[i] = make([]float32, p.W*maxOut)
@@ -458,10 +465,10 @@ func (a *Assembler) Write(t *arrowio.Tile) error {
 		a.rows[t.TileRow] = slots
 	}
 	at := &asmTile{iters: t.Iterations, change: t.Change}
-	pix := window{pix: t.Pix, x: t.X, y: t.Y, w: t.W}
+	pix := step.Window{Pix: t.Pix, X: t.X, Y: t.Y, W: t.W}
 	if a.restored {
 		// The stream carries f + bg: weigh it with a zero background.
-		at.out, at.ox, at.oy = p.weigh(nil, &a.wk, TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}, pix, 0)
+		at.out, at.ox, at.oy = p.Weigh(nil, &a.wk, step.TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}, pix, 0)
 	} else {
 		at.ox, at.oy = p.Cols[t.Col], p.Rows[t.TileRow]
 		ow, oh := at.ox.Len(), at.oy.Len()
@@ -490,22 +497,22 @@ func (a *Assembler) flushRow(row int) error {
 	W := p.W
 	for i, s := range a.rows[row] {
 		b, col := i/len(p.Cols), i%len(p.Cols)
-		a.blend.add(b, s.ox, s.oy, s.out)
+		a.blend.Add(b, s.ox, s.oy, s.out)
 		if a.Report != nil {
 			br := &a.Report.Bands[b]
-			br.Tiles = append(br.Tiles, TileReport{Col: col, Row: row, Iterations: s.iters, Change: s.change})
+			br.Tiles = append(br.Tiles, step.TileReport{Col: col, Row: row, Iterations: s.iters, Change: s.change})
 			br.MaxIterations = max(br.MaxIterations, s.iters)
 		}
 	}
-	end := a.blend.rowEnd(row)
-	n := end - a.blend.y
+	end := a.blend.RowEnd(row)
+	n := end - a.blend.Y()
 	for b := 0; b < a.nb; b++ {
-		copy(a.buf[b][:n*W], a.blend.acc[b][:n*W])
+		copy(a.buf[b][:n*W], a.blend.Rows(b, n))
 	}
-	if err := a.dst.WriteRows(a.blend.y, end, a.buf); err != nil {
+	if err := a.dst.WriteRows(a.blend.Y(), end, a.buf); err != nil {
 		return err
 	}
-	a.blend.shift(n)
+	a.blend.Shift(n)
 	return nil
 }
 

@@ -1,4 +1,4 @@
-package step
+package stream
 
 import (
 	"bytes"
@@ -9,6 +9,7 @@ import (
 
 	"limpid/arrowio"
 	"limpid/raster"
+	"limpid/step"
 )
 
 // packMem cuts src into an observed stream (the bytes limpid tiles pack
@@ -48,7 +49,7 @@ func packMem(t *testing.T, src raster.Reader, bands []int, tile, overlap int) []
 }
 
 // restoreStream runs RestoreTiles from stream bytes to stream bytes.
-func restoreStream(t *testing.T, in []byte, cfg Config) []byte {
+func restoreStream(t *testing.T, in []byte, cfg step.Config) []byte {
 	t.Helper()
 	r, err := arrowio.NewReader(bytes.NewReader(in))
 	if err != nil {
@@ -84,7 +85,7 @@ func restoreStream(t *testing.T, in []byte, cfg Config) []byte {
 
 // unpackStream assembles a stream into an in-memory scene; shuffle feeds
 // the tiles in a random order.
-func unpackStream(t *testing.T, in []byte, shuffle bool) (*raster.Mem, *Report) {
+func unpackStream(t *testing.T, in []byte, shuffle bool) (*raster.Mem, *step.Report) {
 	t.Helper()
 	r, err := arrowio.NewReader(bytes.NewReader(in))
 	if err != nil {
@@ -177,7 +178,7 @@ func TestStreamMatchesRestore(t *testing.T) {
 		sameBits(t, "stream vs raster", direct.Bands, got.Bands)
 		for i := range rep.Bands {
 			if grep.Bands[i].MaxIterations != rep.Bands[i].MaxIterations || len(grep.Bands[i].Tiles) != len(rep.Bands[i].Tiles) {
-				t.Errorf("band %d: max iterations %d / %d tiles, Restore says %d / %d", i+1, grep.Bands[i].MaxIterations,
+				t.Errorf("band %d: max iterations %d / %d tiles, step.Restore says %d / %d", i+1, grep.Bands[i].MaxIterations,
 					len(grep.Bands[i].Tiles), rep.Bands[i].MaxIterations, len(rep.Bands[i].Tiles))
 			}
 		}
@@ -193,19 +194,19 @@ type seSolver struct{}
 
 func (seSolver) Name() string { return "se-probe" }
 
-func (seSolver) Solve(_ context.Context, _ *Workspace, p *Problem, dst []float32) (Result, error) {
+func (seSolver) Solve(_ context.Context, _ *step.Workspace, p *step.Problem, dst []float32) (step.Result, error) {
 	for i := range dst[:p.W*p.H] {
 		dst[i] = 1
 		p.SE[i] = float32(p.Key.Band*1000+p.Key.Col*100+p.Key.Row) + float32(i)/float32(p.W*p.H)
 	}
-	return Result{Iterations: 1, HasSE: true}, nil
+	return step.Result{Iterations: 1, HasSE: true}, nil
 }
 
 // Source: the contract (README): a solver's standard error goes to the
 // uncertainty column at the buffer's pixels, NaN where the input is
-// invalid; the Problem's Key is (band, column, row) from the tile.
+// invalid; the step.Problem's Key is (band, column, row) from the tile.
 func TestRestoreTileUncertainty(t *testing.T) {
-	p, _ := NewPlan(100, 80, 32, 8)
+	p, _ := step.NewPlan(100, 80, 32, 8)
 	tl := &arrowio.Tile{Band: 1, Col: 1, TileRow: 2, X: 24, Y: 56, W: 48, H: 24, HaloLeft: 8, HaloRight: 8, HaloTop: 8}
 	if err := CheckPlan(p, tl); err != nil {
 		t.Fatal(err)
@@ -215,7 +216,7 @@ func TestRestoreTileUncertainty(t *testing.T) {
 		tl.Pix[i] = 10
 	}
 	tl.Pix[7] = float32(math.NaN())
-	wk := &tileWork{}
+	wk := &step.TileWork{}
 	valid := makeValid(0, false, 0, false)
 	if err := restoreTile(context.Background(), seSolver{}, p, wk, tl, valid, 2); err != nil {
 		t.Fatal(err)
@@ -247,7 +248,7 @@ func TestRestoreTileUncertainty(t *testing.T) {
 // Source: the contract: tiles whose geometry is not the tiling's are refused
 // naming the column (halo and buffer rules in README).
 func TestCheckPlan(t *testing.T) {
-	p, _ := NewPlan(100, 80, 32, 8)
+	p, _ := step.NewPlan(100, 80, 32, 8)
 	good := arrowio.Tile{Col: 0, TileRow: 0, X: 0, Y: 0, W: 40, H: 40, HaloRight: 8, HaloBottom: 8}
 	if err := CheckPlan(p, &good); err != nil {
 		t.Fatal(err)
