@@ -26,8 +26,9 @@ import (
 // error) has its own 0 to 98th percentile grey stretch. Each panel carries a
 // scale bar in map units from the geotransform.
 
-// qlCrop is the largest panel side in pixels.
-const qlCrop = 320
+// qlCropSide is the largest panel side in pixels (the crop is at most
+// qlCropSide x qlCropSide).
+const qlCropSide = 320
 
 // qlScene is what a quicklook shows: channel planes of a cw x ch crop.
 type qlScene struct {
@@ -268,8 +269,8 @@ func writeFileAtomic(flag, path string, data []byte) error {
 	return nil
 }
 
-// cropScene reads the centre crop (at most qlCrop square) of the observed
-// and restored rasters (and the uncertainty when uncPath is not "");
+// cropScene reads the centre crop (at most qlCropSide x qlCropSide) of the
+// observed and restored rasters (and the uncertainty when uncPath is not "");
 // obsBands are the 0-based observed bands that became the output's bands.
 func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScene, error) {
 	ro, err := raster.Open(obsPath)
@@ -285,7 +286,7 @@ func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScen
 	mr := rr.Meta()
 	mo := ro.Meta()
 	W, H := mr.Width, mr.Height
-	cw, ch := min(W, qlCrop), min(H, qlCrop)
+	cw, ch := min(W, qlCropSide), min(H, qlCropSide)
 	x0, y0 := (W-cw)/2, (H-ch)/2
 	disp := displayBands(mr.Bands)
 	read := func(r *raster.GDALReader, bands []int) ([][]float32, error) {

@@ -23,9 +23,9 @@ import (
 // restore --report-html: one self-contained page (images inline as base64
 // PNG data URLs, no script, no network) describing a finished restoration.
 
-// reportMetricCrop bounds the centre window (pixels a side) on which the
+// reportMetricSide bounds the centre window (pixels a side) on which the
 // page's per-band metrics are measured (whole-band flux comes from the run).
-const reportMetricCrop = 1024
+const reportMetricSide = 1024
 
 type htmlBand struct {
 	Band, Source                      int
@@ -164,7 +164,7 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 }
 
 // cropMetrics runs step.Assess (no reference) on the centre window of at most
-// reportMetricCrop pixels a side of every output band.
+// reportMetricSide pixels a side of every output band.
 func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessment, string, error) {
 	ro, err := raster.Open(inPath)
 	if err != nil {
@@ -177,7 +177,7 @@ func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessm
 	}
 	defer rr.Close()
 	mo, mr := ro.Meta(), rr.Meta()
-	cw, ch := min(mr.Width, reportMetricCrop), min(mr.Height, reportMetricCrop)
+	cw, ch := min(mr.Width, reportMetricSide), min(mr.Height, reportMetricSide)
 	x0, y0 := (mr.Width-cw)/2, (mr.Height-ch)/2
 	out := make([]step.BandAssessment, len(bands))
 	for i, b := range bands {
