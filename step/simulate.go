@@ -98,15 +98,18 @@ func (n SimNoise) Variance(s float64) float64 {
 }
 
 // SimError is a simulation setting that cannot be used. Field names the
-// setting ("Noise": the noise specification ParseSimNoise reads;
+// setting ("Noise": the noise specification ParseSimNoise reads; "H",
 // "DataType" and "NoData": the SimConfig fields), Value is the value given
-// (the specification, the type name, the nodata value as %g) and Reason
-// says what is wrong. It wraps ErrConfig.
+// (the specification, the type name, the nodata value as %g; "" for H) and
+// Reason says what is wrong. It wraps ErrConfig.
 type SimError struct {
 	Field, Value, Reason string
 }
 
 func (e *SimError) Error() string {
+	if e.Value == "" {
+		return fmt.Sprintf("%v: %s: %s", ErrConfig, e.Field, e.Reason)
+	}
 	return fmt.Sprintf("%v: %s %q: %s", ErrConfig, e.Field, e.Value, e.Reason)
 }
 
@@ -209,6 +212,7 @@ func CheckSimDataType(t string) error {
 // SimConfig configures Simulate. Its zero value adds no noise, keeps float
 // values and reads DefaultSimStrip rows at a time; H must be set.
 type SimConfig struct {
+	// H is the PSF operator (required).
 	H     *Conv
 	Noise SimNoise
 	// Seed selects the random streams; the stream of a pixel depends only on
@@ -302,6 +306,9 @@ func SimMetadata(psfSpec, noiseSpec string, seed uint64) [][2]string {
 // with no invalid pixel this is H v. Memory: about (Strip + 2 ry) x width x
 // bands x 3 float32.
 func Simulate(ctx context.Context, src raster.Reader, dst raster.Writer, cfg SimConfig) error {
+	if cfg.H == nil {
+		return &SimError{Field: "H", Reason: "no PSF operator (NewConv)"}
+	}
 	s := newSimulator(src.Meta(), &cfg)
 	for y0 := 0; y0 < s.h; y0 += s.strip {
 		if err := ctx.Err(); err != nil {
