@@ -339,11 +339,12 @@ type simulator struct {
 	lo, hi      float64
 	integer     bool // the output type is an integer type of range [lo, hi]
 	bands       []int
-	in, out     [][]float32
-	ext, mask   []float32
-	bl, wbl     []float32
+	in          [][]float32 // per band: the scene rows a strip reads
+	out         [][]float32 // per band: the strip's output rows
+	ext, mask   []float32   // one band's strip with its halo, and its validity
+	bl, wbl     []float32   // ext and mask blurred
 	ws          ConvWork
-	pcg         *rand.PCG
+	pcg         *rand.PCG // reset per row (simStream)
 	rng         *rand.Rand
 }
 
