@@ -336,8 +336,7 @@ type simulator struct {
 	cfg         *SimConfig
 	w, h, strip int
 	ry          int // the PSF's row radius: the halo above and below a strip
-	lo, hi      float64
-	integer     bool // the output type is an integer type of range [lo, hi]
+	q           simQuantizer
 	bands       []int
 	in          [][]float32 // per band: the scene rows a strip reads
 	out         [][]float32 // per band: the strip's output rows
@@ -354,7 +353,8 @@ func newSimulator(m raster.Meta, cfg *SimConfig) *simulator {
 		s.strip = DefaultSimStrip
 	}
 	_, s.ry = cfg.H.Radius()
-	s.lo, s.hi, s.integer = raster.TypeRange(cfg.DataType)
+	s.q.lo, s.q.hi, s.q.integer = raster.TypeRange(cfg.DataType)
+	s.q.nodata, s.q.hasNoData = cfg.OutNoData, cfg.HasOutNoData
 	nb, W := len(m.Bands), s.w
 	s.bands = make([]int, nb)
 	for i := range s.bands {
@@ -431,6 +431,7 @@ func (s *simulator) blur(rows []float32, y0, y1, r0 int) (bl, mk []float32) {
 // them into s.out[b]; each row draws from its own stream (simStream).
 func (s *simulator) degrade(b, y0, y1 int, bl, mk []float32) {
 	W := s.w
+	nz, q := s.cfg.Noise, s.q
 	o := s.out[b][:(y1-y0)*W]
 	for j := 0; j < y1-y0; j++ {
 		y := y0 + j
@@ -441,33 +442,47 @@ func (s *simulator) degrade(b, y0, y1 int, bl, mk []float32) {
 				o[j*W+x] = float32(math.NaN())
 				continue
 			}
-			o[j*W+x] = float32(s.pixel(float64(bl[k])))
+			o[j*W+x] = float32(q.quantize(nz.add(s.rng, float64(bl[k]))))
 		}
 	}
 }
 
-// pixel adds the configured noise to the blurred value v and quantises it
-// to the output type.
-func (s *simulator) pixel(v float64) float64 {
-	nz := &s.cfg.Noise
-	switch nz.Kind {
+// add returns the blurred value v with the model's noise drawn from rng.
+func (n SimNoise) add(rng *rand.Rand, v float64) float64 {
+	switch n.Kind {
 	case NoisePoisson:
-		v = nz.Gain * float64(Poisson(s.rng, math.Max(v, 0)/nz.Gain))
-		if nz.Read > 0 {
-			v += nz.Read * s.rng.NormFloat64()
+		v = n.Gain * float64(Poisson(rng, math.Max(v, 0)/n.Gain))
+		if n.Read > 0 {
+			v += n.Read * rng.NormFloat64()
 		}
 	case NoiseGaussian:
-		v += nz.Sigma * s.rng.NormFloat64()
+		v += n.Sigma * rng.NormFloat64()
 	}
-	if s.integer {
-		v = math.RoundToEven(v)
-		v = math.Min(s.hi, math.Max(s.lo, v))
-		if s.cfg.HasOutNoData && v == s.cfg.OutNoData {
-			if v < s.hi {
-				v++
-			} else {
-				v--
-			}
+	return v
+}
+
+// simQuantizer rounds to an integer output type (integer: the type's range
+// is [lo, hi]): to nearest (ties to even), clamped, and off the output
+// nodata value.
+type simQuantizer struct {
+	lo, hi    float64
+	integer   bool
+	nodata    float64
+	hasNoData bool
+}
+
+// quantize returns v as the output type stores it (float types: v).
+func (q simQuantizer) quantize(v float64) float64 {
+	if !q.integer {
+		return v
+	}
+	v = math.RoundToEven(v)
+	v = math.Min(q.hi, math.Max(q.lo, v))
+	if q.hasNoData && v == q.nodata {
+		if v < q.hi {
+			v++
+		} else {
+			v--
 		}
 	}
 	return v
