@@ -1,23 +1,25 @@
 package step
 
 import (
+	"fmt"
 	"math"
 	"sort"
 
 	"limpid/psf"
+	"limpid/raster"
 	"limpid/step/conv"
 	"limpid/step/noise"
 )
 
 // Assessment of a restoration: fidelity to a reference when one exists
-// (PSNR, SSIM of Wang et al. 2004, RMSE, MAE, bias) and, always, what the
-// restoration did to noise, sharpness, ringing and flux.
+// (PSNR, SSIM of Wang, Bovik, Sheikh & Simoncelli, IEEE TIP 13(4):600-612,
+// 2004, RMSE, MAE, bias) and, always, what the restoration did to noise,
+// sharpness, ringing and flux.
 //
 // Definitions (README, "limpid assess"):
-//   - noise: sqrt of the Poisson-Gaussian noise model (noise.Sampler.Fit,
-//     after Foi et al. 2008) evaluated at the median valid intensity; when
-//     the fit has too few pixels, Immerkaer's (1996) sigma over the valid
-//     pixels.
+//   - noise: PlaneNoise, the robust sigma of a Gaussian high-pass residual
+//     over the smoothest quarter of the valid pixels; Immerkaer's sigma
+//     (CVIU 64(2):300-302, 1996) when too few pixels qualify.
 //   - sharpness: ISO 12233 slanted-edge e-SFR (psf.MeasureEdge) on the edges
 //     psf.FindEdges detects in the observation, measured in the same windows
 //     of both images; MTF50 is the median over edges measured in both, the
@@ -52,6 +54,34 @@ type BandAssessment struct {
 	SharpnessGain                    float64
 	RingingObserved, RingingRestored float64
 	FluxChange                       float64
+}
+
+// AssessPeak is the default peak L of PSNR and SSIM for a reference plane of
+// data type dtype: the type's range for integer types, else max - min of
+// the valid reference pixels (1 when they do not differ).
+func AssessPeak(dtype string, ref []float32, valid []bool) float64 {
+	if lo, hi, integer := raster.TypeRange(dtype); integer {
+		return hi - lo
+	}
+	lo, hi := math.Inf(1), math.Inf(-1)
+	for i, ok := range valid {
+		if ok {
+			lo, hi = math.Min(lo, float64(ref[i])), math.Max(hi, float64(ref[i]))
+		}
+	}
+	if !(hi > lo) {
+		return 1
+	}
+	return hi - lo
+}
+
+// CheckDataRange returns an error wrapping ErrConfig that names DataRange
+// unless L, a peak given for PSNR and SSIM, is positive and finite.
+func CheckDataRange(L float64) error {
+	if L > 0 && !math.IsInf(L, 0) {
+		return nil
+	}
+	return fmt.Errorf("%w: DataRange %g must be positive and finite", ErrConfig, L)
 }
 
 // Assess compares the restored plane res with the observed plane obs (and
@@ -108,8 +138,8 @@ func Assess(obs, res, ref []float32, valid []bool, w, h int, L float64) BandAsse
 // residual keeps frequencies above about 0.08 cycles/pixel, where a
 // restoration amplifies noise; an estimator of the finest scale only
 // (Immerkaer's mask, the noise model) misses that and reads a restored
-// image as less noisy. Falls back to Immerkaer (1996) when fewer than 64
-// pixels qualify ("immerkaer").
+// image as less noisy. Falls back to Immerkaer's sigma (CVIU
+// 64(2):300-302, 1996) when too few pixels qualify ("immerkaer").
 func PlaneNoise(p []float32, valid []bool, w, h int) (float64, string) {
 	nv := 0
 	for _, ok := range valid[:w*h] {

@@ -19,7 +19,7 @@ func BenchmarkSimulate1024(b *testing.B) {
 	copy(src.Bands[0], ref[2])
 	dst := raster.NewMem(src.Meta())
 	k, _ := psf.Parse("gaussian:sigma=1.4", psf.Env{})
-	cfg := SimConfig{H: conv.New(k), Noise: SimNoise{Kind: "poisson", Gain: 0.4, Read: 3}, Seed: 1, DataType: "UInt16"}
+	cfg := SimConfig{H: conv.New(k), Noise: SimNoise{Kind: NoisePoisson, Gain: 0.4, Read: 3}, Seed: 1, DataType: "UInt16"}
 	b.SetBytes(n * n * 4)
 	b.ReportAllocs()
 	b.ResetTimer()

@@ -186,10 +186,10 @@ func TestSimulateBlurAndDeterminism(t *testing.T) {
 // parameter named. Source: common practice, no source (input rules).
 func TestParseSimNoise(t *testing.T) {
 	good := map[string]SimNoise{
-		"poisson:gain=0.4,read=3": {Kind: "poisson", Gain: 0.4, Read: 3},
-		"poisson:gain=2":          {Kind: "poisson", Gain: 2},
-		"gaussian:sigma=5":        {Kind: "gaussian", Sigma: 5},
-		"none":                    {Kind: "none"},
+		"poisson:gain=0.4,read=3": {Kind: NoisePoisson, Gain: 0.4, Read: 3},
+		"poisson:gain=2":          {Kind: NoisePoisson, Gain: 2},
+		"gaussian:sigma=5":        {Kind: NoiseGaussian, Sigma: 5},
+		"none":                    {Kind: NoiseNone},
 	}
 	for s, want := range good {
 		got, err := ParseSimNoise(s)

@@ -180,9 +180,12 @@ func Degrade(ref []float32, valid []bool, w, h int, H *conv.Operator, nz Noise, 
 	return out
 }
 
-// Poisson draws a Poisson variate of mean lam: multiplication of uniforms
-// below 10 (Knuth, TAOCP vol. 2), the transformed rejection PTRS of Hörmann
-// (Insurance: Mathematics and Economics 12:39, 1993) above.
+// Poisson draws a Poisson variate of mean lam: below 10, the product of
+// uniforms (Knuth, The Art of Computer Programming vol. 2, 3rd ed., sec.
+// 3.4.1); above, the transformed rejection with squeeze PTRS of Hörmann
+// ("The transformed rejection method for generating Poisson random
+// variables", Insurance: Mathematics and Economics 12(1):39-45, 1993), with
+// the paper's constants.
 func Poisson(r *rand.Rand, lam float64) int64 {
 	if lam <= 0 {
 		return 0

@@ -39,7 +39,7 @@ else the reference's max - min over valid pixels, per band.`,
 			if c.NArg() != 2 {
 				return usagef("assess needs OBSERVED and RESTORED after the flags (got %d arguments); flags after the arguments are not read", c.NArg())
 			}
-			if c.IsSet("data-range") && !(c.Float64("data-range") > 0 && !math.IsInf(c.Float64("data-range"), 0)) {
+			if c.IsSet("data-range") && step.CheckDataRange(c.Float64("data-range")) != nil {
 				return usagef("--data-range %g must be a positive number", c.Float64("data-range"))
 			}
 			rep, err := assessFiles(c.Args().Get(0), c.Args().Get(1), c.String("reference"), c.Float64("data-range"))
@@ -141,7 +141,7 @@ func assessFiles(obsPath, resPath, refPath string, L float64) (*assessReport, er
 		if ref != nil {
 			rb = ref[b]
 			if peak <= 0 {
-				peak = defaultPeak(mf.DataType, rb, valid)
+				peak = step.AssessPeak(mf.DataType, rb, valid)
 			}
 		}
 		a := step.Assess(obs[b], res[b], rb, valid, w, h, peak)
@@ -159,24 +159,6 @@ func assessFiles(obsPath, resPath, refPath string, L float64) (*assessReport, er
 		rep.Bands = append(rep.Bands, row)
 	}
 	return rep, nil
-}
-
-// defaultPeak: the data type's range for integer types, else max - min of
-// the valid reference pixels.
-func defaultPeak(dtype string, ref []float32, valid []bool) float64 {
-	if lo, hi, integer := raster.TypeRange(dtype); integer {
-		return hi - lo
-	}
-	lo, hi := math.Inf(1), math.Inf(-1)
-	for i, ok := range valid {
-		if ok {
-			lo, hi = math.Min(lo, float64(ref[i])), math.Max(hi, float64(ref[i]))
-		}
-	}
-	if !(hi > lo) {
-		return 1
-	}
-	return hi - lo
 }
 
 func printAssessment(w io.Writer, rep *assessReport) {

@@ -20,14 +20,14 @@ import (
 // The demo scenario: Brannock Vale, an invented farming valley. The
 // location, CRS zone and every feature are fictional test content.
 const (
-	demoPSF      = "gaussian:sigma=1.4"
-	demoEPSG     = 32632 // WGS 84 / UTM zone 32N (a real projected CRS; the place is invented)
-	demoOriginX  = 438200.0
-	demoOriginY  = 5287600.0
-	demoPixel    = 10.0
-	demoDataMax  = 4095 // 12-bit data in a UInt16 container
-	demoGain     = 0.4  // DN per electron
-	demoReadNois = 3.0  // DN
+	demoPSF       = "gaussian:sigma=1.4"
+	demoEPSG      = 32632 // WGS 84 / UTM zone 32N (a real projected CRS; the place is invented)
+	demoOriginX   = 438200.0
+	demoOriginY   = 5287600.0
+	demoPixel     = 10.0
+	demoDataMax   = 4095 // 12-bit data in a UInt16 container
+	demoGain      = 0.4  // DN per electron
+	demoReadNoise = 3.0  // DN
 )
 
 func demoCommand(stderr, stdout io.Writer) *cli.Command {
@@ -72,7 +72,7 @@ func DemoScene(dir string, n int) (refPath, obsPath string, err error) {
 	rng := rand.New(rand.NewPCG(2026, 12))
 	obs := make([][]float32, len(ref))
 	for b := range ref {
-		obs[b] = step.Degrade(ref[b], valid, n, n, H, step.Noise{Gain: demoGain, Read: demoReadNois}, rng)
+		obs[b] = step.Degrade(ref[b], valid, n, n, H, step.Noise{Gain: demoGain, Read: demoReadNoise}, rng)
 		for i, v := range obs[b] {
 			if valid[i] {
 				obs[b][i] = float32(math.Min(demoDataMax, math.Max(1, math.Round(float64(v)))))

@@ -15,7 +15,10 @@ import (
 )
 
 // noiseCommand estimates the per-band noise model (var = a*DN + b) the way
-// restore does for --smooth auto, --stop auto and --stop discrepancy.
+// restore does for --smooth auto, --stop auto and --stop discrepancy
+// (step.EstimateNoise: Immerkaer's residual, CVIU 64(2):300-302, 1996, in a
+// Poisson-Gaussian fit simplified from Foi, Trimeche, Katkovnik & Egiazarian,
+// IEEE TIP 17(10):1737-1754, 2008).
 func noiseCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
 	return &cli.Command{
 		Name:      "noise",
@@ -34,63 +37,74 @@ or override them.`,
 			&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile size of the sampling grid"},
 			&cli.StringFlag{Name: "json", Usage: "write the models with their bins to this JSON file"},
 		},
-		Action: func(c *cli.Context) error {
-			if c.NArg() != 1 {
-				return usagef("noise takes one INPUT after the flags (got %d arguments)", c.NArg())
-			}
-			in := c.Args().Get(0)
-			path, done, err := spoolInput(in, stdin)
-			if err != nil {
-				return err
-			}
-			defer done()
-			if t := c.Int("tile"); t < 16 || t > 16384 {
-				return usagef("--tile %d must be between 16 and 16384", t)
-			}
-			src, err := gdal.Open(path)
-			if err != nil {
-				return err
-			}
-			defer src.Close()
-			meta := src.Meta()
-			bands, err := parseBands(c.String("bands"), len(meta.Bands))
-			if err != nil {
-				return err
-			}
-			cfg := step.Config{Tile: c.Int("tile"), Overlap: 16, Workers: 0}
-			if s := c.String("saturated"); s != "" {
-				v, err := strconv.ParseFloat(s, 64)
-				if err != nil || math.IsNaN(v) {
-					return usagef("--saturated %q is not a number", s)
-				}
-				cfg.Saturated, cfg.HasSaturated = v, true
-			}
-			models, err := step.EstimateNoise(c.Context, src, bands, cfg)
-			if err != nil {
-				return err
-			}
-			tw := tabwriter.NewWriter(stdout, 0, 0, 2, ' ', tabwriter.AlignRight)
-			fmt.Fprintln(tw, "band\ta\ta stderr\tb\tb stderr\tsigma at b\tbins used\tsamples\t")
-			type bandOut struct {
-				Band int `json:"band"`
-				noise.Model
-			}
-			var out []bandOut
-			for i, m := range models {
-				used := 0
-				for _, b := range m.Bins {
-					if b.Used {
-						used++
-					}
-				}
-				fmt.Fprintf(tw, "%d\t%.4g\t%.2g\t%.4g\t%.2g\t%.3g\t%d/%d\t%d\t\n", bands[i]+1, m.A, m.SigmaA, m.B, m.SigmaB, math.Sqrt(math.Max(m.B, 0)), used, len(m.Bins), m.Samples)
-				out = append(out, bandOut{Band: bands[i] + 1, Model: m})
-			}
-			tw.Flush()
-			if p := c.String("json"); p != "" {
-				return writeJSON("--json", p, map[string]any{"input": in, "model": "variance = a * DN + b", "bands": out})
-			}
-			return nil
-		},
+		Action: func(c *cli.Context) error { return noiseAction(c, stdin, stdout) },
 	}
+}
+
+func noiseAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
+	if c.NArg() != 1 {
+		return usagef("noise takes one INPUT after the flags (got %d arguments)", c.NArg())
+	}
+	in := c.Args().Get(0)
+	path, done, err := spoolInput(in, stdin)
+	if err != nil {
+		return err
+	}
+	defer done()
+	if t := c.Int("tile"); t < 16 || t > 16384 {
+		return usagef("--tile %d must be between 16 and 16384", t)
+	}
+	src, err := gdal.Open(path)
+	if err != nil {
+		return err
+	}
+	defer src.Close()
+	meta := src.Meta()
+	bands, err := parseBands(c.String("bands"), len(meta.Bands))
+	if err != nil {
+		return err
+	}
+	cfg := step.Config{Tile: c.Int("tile"), Overlap: 16, Workers: 0}
+	if s := c.String("saturated"); s != "" {
+		v, err := strconv.ParseFloat(s, 64)
+		if err != nil || math.IsNaN(v) {
+			return usagef("--saturated %q is not a number", s)
+		}
+		cfg.Saturated, cfg.HasSaturated = v, true
+	}
+	models, err := step.EstimateNoise(c.Context, src, bands, cfg)
+	if err != nil {
+		return err
+	}
+	out := printNoiseModels(stdout, bands, models)
+	if p := c.String("json"); p != "" {
+		return writeJSON("--json", p, map[string]any{"input": in, "model": "variance = a * DN + b", "bands": out})
+	}
+	return nil
+}
+
+// noiseBand is one band of noise's JSON output.
+type noiseBand struct {
+	Band int `json:"band"`
+	noise.Model
+}
+
+// printNoiseModels prints the table of the models of the 0-based bands and
+// returns them as noise's JSON rows.
+func printNoiseModels(w io.Writer, bands []int, models []noise.Model) []noiseBand {
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "band\ta\ta stderr\tb\tb stderr\tsigma at b\tbins used\tsamples\t")
+	var out []noiseBand
+	for i, m := range models {
+		used := 0
+		for _, b := range m.Bins {
+			if b.Used {
+				used++
+			}
+		}
+		fmt.Fprintf(tw, "%d\t%.4g\t%.2g\t%.4g\t%.2g\t%.3g\t%d/%d\t%d\t\n", bands[i]+1, m.A, m.SigmaA, m.B, m.SigmaB, math.Sqrt(math.Max(m.B, 0)), used, len(m.Bins), m.Samples)
+		out = append(out, noiseBand{Band: bands[i] + 1, Model: m})
+	}
+	tw.Flush()
+	return out
 }

@@ -26,8 +26,9 @@ import (
 // error) has its own 0 to 98th percentile grey stretch. Each panel carries a
 // scale bar in map units from the geotransform.
 
-// qlCrop is the largest panel side in pixels.
-const qlCrop = 320
+// qlCropSide is the largest panel side in pixels (the crop is at most
+// qlCropSide x qlCropSide).
+const qlCropSide = 320
 
 // qlScene is what a quicklook shows: channel planes of a cw x ch crop.
 type qlScene struct {
@@ -104,17 +105,33 @@ func percentile(v []float64, q float64) float64 {
 	return v[min(len(v)-1, int(q*float64(len(v))))]
 }
 
+// Quicklook layout: pixels between panels and the title strip's height.
+const qlGap, qlHead = 8, 18
+
 // render draws the quicklook.
 func (s *qlScene) render() *image.RGBA {
-	const gap, head = 8, 18
 	panels := 2
 	if s.unc != nil {
 		panels = 3
 	}
-	img := image.NewRGBA(image.Rect(0, 0, panels*s.cw+(panels-1)*gap, s.ch+head))
+	img := image.NewRGBA(image.Rect(0, 0, panels*s.cw+(panels-1)*qlGap, s.ch+qlHead))
 	draw.Draw(img, img.Bounds(), image.NewUniform(color.RGBA{255, 255, 255, 255}), image.Point{}, draw.Src)
+	lo, hi := s.stretch()
+	s.drawColour(img, lo, hi)
+	titles := []string{"observed", "restored", "Monte Carlo std. error"}
+	if s.unc != nil {
+		top := s.drawUncertainty(img)
+		titles[2] = fmt.Sprintf("Monte Carlo std. error (0-%.3g DN)", top)
+	}
+	s.drawLabels(img, titles[:panels])
+	return img
+}
+
+// stretch returns each display channel's 2 and 98 percentiles over the
+// valid pixels of both crops ([0, 1] when they do not differ).
+func (s *qlScene) stretch() (lo, hi []float64) {
 	nc := len(s.obs)
-	lo, hi := make([]float64, nc), make([]float64, nc)
+	lo, hi = make([]float64, nc), make([]float64, nc)
 	for c := 0; c < nc; c++ {
 		var vals []float64
 		for _, p := range [][]float32{s.obs[c], s.res[c]} {
@@ -130,13 +147,22 @@ func (s *qlScene) render() *image.RGBA {
 			lo[c], hi[c] = 0, 1
 		}
 	}
-	to8 := func(v, a, b float64) uint8 {
-		t := (v - a) / (b - a)
-		if math.IsNaN(t) {
-			return 0
-		}
-		return uint8(math.Round(255 * math.Min(1, math.Max(0, t))))
+	return lo, hi
+}
+
+// to8 maps v from [a, b] to 0-255, clamped (NaN: 0).
+func to8(v, a, b float64) uint8 {
+	t := (v - a) / (b - a)
+	if math.IsNaN(t) {
+		return 0
 	}
+	return uint8(math.Round(255 * math.Min(1, math.Max(0, t))))
+}
+
+// drawColour draws the observed and restored panels with the shared
+// stretch; a grey scene repeats its one channel.
+func (s *qlScene) drawColour(img *image.RGBA, lo, hi []float64) {
+	nc := len(s.obs)
 	for k, planes := range [][][]float32{s.obs, s.res} {
 		for y := 0; y < s.ch; y++ {
 			for x := 0; x < s.cw; x++ {
@@ -148,74 +174,76 @@ func (s *qlScene) render() *image.RGBA {
 						px[c] = to8(float64(planes[cc][i]), lo[cc], hi[cc])
 					}
 				}
-				img.SetRGBA(k*(s.cw+gap)+x, head+y, color.RGBA{px[0], px[1], px[2], 255})
+				img.SetRGBA(k*(s.cw+qlGap)+x, qlHead+y, color.RGBA{px[0], px[1], px[2], 255})
 			}
 		}
 	}
-	titles := []string{"observed", "restored", "Monte Carlo std. error"}
-	if s.unc != nil {
-		var vals []float64
-		for i, v := range s.unc {
-			if s.valid[i] && !math.IsNaN(float64(v)) {
-				vals = append(vals, float64(v))
-			}
+}
+
+// drawUncertainty draws the third panel, the standard error in grey from 0
+// to its 98th percentile over the valid pixels, and returns that top.
+func (s *qlScene) drawUncertainty(img *image.RGBA) float64 {
+	var vals []float64
+	for i, v := range s.unc {
+		if s.valid[i] && !math.IsNaN(float64(v)) {
+			vals = append(vals, float64(v))
 		}
-		sort.Float64s(vals)
-		top := percentile(vals, 0.98)
-		if !(top > 0) {
-			top = 1
-		}
-		for y := 0; y < s.ch; y++ {
-			for x := 0; x < s.cw; x++ {
-				i := y*s.cw + x
-				g := uint8(0)
-				if s.valid[i] {
-					g = to8(float64(s.unc[i]), 0, top)
-				}
-				img.SetRGBA(2*(s.cw+gap)+x, head+y, color.RGBA{g, g, g, 255})
-			}
-		}
-		titles[2] = fmt.Sprintf("Monte Carlo std. error (0-%.3g DN)", top)
 	}
+	sort.Float64s(vals)
+	top := percentile(vals, 0.98)
+	if !(top > 0) {
+		top = 1
+	}
+	for y := 0; y < s.ch; y++ {
+		for x := 0; x < s.cw; x++ {
+			i := y*s.cw + x
+			g := uint8(0)
+			if s.valid[i] {
+				g = to8(float64(s.unc[i]), 0, top)
+			}
+			img.SetRGBA(2*(s.cw+qlGap)+x, qlHead+y, color.RGBA{g, g, g, 255})
+		}
+	}
+	return top
+}
+
+// drawLabels writes each panel's title and, when it fits, a scale bar of
+// about a quarter of the panel width with its length in map units.
+func (s *qlScene) drawLabels(img *image.RGBA, titles []string) {
 	face := basicfont.Face7x13
 	text := func(x, y int, str string, col color.Color) {
 		d := font.Drawer{Dst: img, Src: image.NewUniform(col), Face: face, Dot: fixed.P(x, y)}
 		d.DrawString(str)
 	}
-	// Scale bar: about a quarter of the panel width.
 	length := niceLength(float64(s.cw) / 4 * s.pixel)
 	barPx := int(math.Round(length / s.pixel))
 	label := fmt.Sprintf("%g %s", length, s.unit)
 	if s.unit == "m" && length >= 1000 {
 		label = fmt.Sprintf("%g km", length/1000)
 	}
-	for k := 0; k < panels; k++ {
-		x0 := k * (s.cw + gap)
-		text(x0+2, 13, titles[k], color.Black)
+	for k, title := range titles {
+		x0 := k * (s.cw + qlGap)
+		text(x0+2, 13, title, color.Black)
 		if barPx < 2 || barPx > s.cw-8 {
 			continue
 		}
-		bx, by := x0+6, head+s.ch-8
-		for y := by - 1; y <= by+4; y++ {
-			for x := bx - 1; x <= bx+barPx; x++ {
-				img.SetRGBA(x, y, color.RGBA{0, 0, 0, 255})
-			}
-		}
-		for y := by; y <= by+3; y++ {
-			for x := bx; x < bx+barPx; x++ {
-				img.SetRGBA(x, y, color.RGBA{255, 255, 255, 255})
-			}
-		}
+		bx, by := x0+6, qlHead+s.ch-8
+		fillRect(img, bx-1, by-1, bx+barPx+1, by+5, color.RGBA{0, 0, 0, 255})
+		fillRect(img, bx, by, bx+barPx, by+4, color.RGBA{255, 255, 255, 255})
 		// Label on a dark box above the bar.
 		lw := font.MeasureString(face, label).Ceil()
-		for y := by - 15; y < by-2; y++ {
-			for x := bx - 1; x < bx+lw+2; x++ {
-				img.SetRGBA(x, y, color.RGBA{0, 0, 0, 255})
-			}
-		}
+		fillRect(img, bx-1, by-15, bx+lw+2, by-2, color.RGBA{0, 0, 0, 255})
 		text(bx, by-5, label, color.White)
 	}
-	return img
+}
+
+// fillRect sets the pixels of [x0, x1) x [y0, y1) to c.
+func fillRect(img *image.RGBA, x0, y0, x1, y1 int, c color.RGBA) {
+	for y := y0; y < y1; y++ {
+		for x := x0; x < x1; x++ {
+			img.SetRGBA(x, y, c)
+		}
+	}
 }
 
 // encodePNG returns the PNG bytes of img.
@@ -227,8 +255,8 @@ func encodePNG(img image.Image) ([]byte, error) {
 	return b.Bytes(), nil
 }
 
-// cropScene reads the centre crop (at most qlCrop square) of the observed
-// and restored rasters (and the uncertainty when uncPath is not "");
+// cropScene reads the centre crop (at most qlCropSide x qlCropSide) of the
+// observed and restored rasters (and the uncertainty when uncPath is not "");
 // obsBands are the 0-based observed bands that became the output's bands.
 func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScene, error) {
 	ro, err := gdal.Open(obsPath)
@@ -244,7 +272,7 @@ func cropScene(obsPath string, obsBands []int, resPath, uncPath string) (*qlScen
 	mr := rr.Meta()
 	mo := ro.Meta()
 	W, H := mr.Width, mr.Height
-	cw, ch := min(W, qlCrop), min(H, qlCrop)
+	cw, ch := min(W, qlCropSide), min(H, qlCropSide)
 	x0, y0 := (W-cw)/2, (H-ch)/2
 	disp := displayBands(mr.Bands)
 	read := func(r *gdal.Reader, bands []int) ([][]float32, error) {

@@ -24,9 +24,9 @@ import (
 // restore --report-html: one self-contained page (images inline as base64
 // PNG data URLs, no script, no network) describing a finished restoration.
 
-// reportMetricCrop bounds the centre window (pixels a side) on which the
+// reportMetricSide bounds the centre window (pixels a side) on which the
 // page's per-band metrics are measured (whole-band flux comes from the run).
-const reportMetricCrop = 1024
+const reportMetricSide = 1024
 
 type htmlBand struct {
 	Band, Source                      int
@@ -165,7 +165,7 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 }
 
 // cropMetrics runs step.Assess (no reference) on the centre window of at most
-// reportMetricCrop pixels a side of every output band.
+// reportMetricSide pixels a side of every output band.
 func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessment, string, error) {
 	ro, err := gdal.Open(inPath)
 	if err != nil {
@@ -178,7 +178,7 @@ func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessm
 	}
 	defer rr.Close()
 	mo, mr := ro.Meta(), rr.Meta()
-	cw, ch := min(mr.Width, reportMetricCrop), min(mr.Height, reportMetricCrop)
+	cw, ch := min(mr.Width, reportMetricSide), min(mr.Height, reportMetricSide)
 	x0, y0 := (mr.Width-cw)/2, (mr.Height-ch)/2
 	out := make([]step.BandAssessment, len(bands))
 	for i, b := range bands {
@@ -292,10 +292,31 @@ func psfPlotPNG(k *psf.Kernel, spec string) ([]byte, error) {
 	return plotPNG([]*plot.Plot{pp, pm}, 900, 340)
 }
 
-// convergencePNG: left, per tile and band, iterations against the final
-// relative change (log scale); right, band 1's risk curves per candidate
-// when the automatic choice ran.
+// convergencePNG draws the report's convergence figure and reports whether
+// it shows risk curves. Left, the first of these that has points: the
+// relative change per iteration of the first band's tiles that kept their
+// history (a few per scene, when the solver records one); else each tile's
+// iterations against its final relative change, for the first band with a
+// positive finite final change; else (stop rules that record no change)
+// each tile's iteration count, per band. Right: the first band's risk curve
+// per candidate bandwidth when the automatic choice ran.
 func convergencePNG(rep *step.Report) ([]byte, bool, error) {
+	pt, err := tilesPlot(rep)
+	if err != nil {
+		return nil, false, err
+	}
+	pr, hasRisk, err := riskPlot(rep)
+	if err != nil {
+		return nil, false, err
+	}
+	pt.Add(plotter.NewGrid())
+	pr.Add(plotter.NewGrid())
+	png, err := plotPNG([]*plot.Plot{pt, pr}, 900, 340)
+	return png, hasRisk, err
+}
+
+// tilesPlot is convergencePNG's left panel.
+func tilesPlot(rep *step.Report) (*plot.Plot, error) {
 	pt := plot.New()
 	pt.Title.Text = "tiles: iterations and final change"
 	pt.X.Label.Text = "iterations"
@@ -303,40 +324,53 @@ func convergencePNG(rep *step.Report) ([]byte, bool, error) {
 	pt.Y.Scale = plot.LogScale{}
 	pt.Y.Tick.Marker = plot.LogTicks{Prec: -1}
 	pt.Legend.Top = true
-	any := false
-	// Per-iteration histories of the recorded tiles (first band), when the
-	// solver kept them.
-	if len(rep.Bands) > 0 {
+	drawn, err := addChangeHistories(pt, rep)
+	if err != nil || drawn {
+		return pt, err
+	}
+	drawn, err = addFinalChanges(pt, rep)
+	if err != nil || drawn {
+		return pt, err
+	}
+	return iterationsPlot(rep)
+}
+
+// addChangeHistories draws the per-iteration relative change of the first
+// band's tiles that kept a history of at least two positive finite values,
+// and reports whether it drew any (the plot's titles are set only then).
+func addChangeHistories(pt *plot.Plot, rep *step.Report) (bool, error) {
+	if len(rep.Bands) == 0 {
+		return false, nil
+	}
+	n := 0
+	for _, t := range rep.Bands[0].Tiles {
+		var xy plotter.XYs
+		for k, c := range t.Changes {
+			if c > 0 && !math.IsInf(c, 0) {
+				xy = append(xy, plotter.XY{X: float64(k + 1), Y: c})
+			}
+		}
+		if len(xy) < 2 {
+			continue
+		}
+		if err := line(pt, xy, n, false, fmt.Sprintf("tile (%d,%d)", t.Col, t.Row)); err != nil {
+			return false, err
+		}
+		n++
+	}
+	if n > 0 {
 		pt.Title.Text = fmt.Sprintf("band %d: relative change per iteration (recorded tiles)", rep.Bands[0].Band)
 		pt.X.Label.Text = "iteration"
 		pt.Y.Label.Text = "relative L1 change"
-		n := 0
-		for _, t := range rep.Bands[0].Tiles {
-			var xy plotter.XYs
-			for k, c := range t.Changes {
-				if c > 0 && !math.IsInf(c, 0) {
-					xy = append(xy, plotter.XY{X: float64(k + 1), Y: c})
-				}
-			}
-			if len(xy) < 2 {
-				continue
-			}
-			if err := line(pt, xy, n, false, fmt.Sprintf("tile (%d,%d)", t.Col, t.Row)); err != nil {
-				return nil, false, err
-			}
-			n++
-			any = true
-		}
-		if !any {
-			pt.Title.Text = "tiles: iterations and final change"
-			pt.X.Label.Text = "iterations"
-			pt.Y.Label.Text = "final relative L1 change"
-		}
 	}
+	return n > 0, nil
+}
+
+// addFinalChanges draws each tile's iterations against its final relative
+// change for the first band that has a positive finite one, and reports
+// whether it drew any.
+func addFinalChanges(pt *plot.Plot, rep *step.Report) (bool, error) {
 	for i, b := range rep.Bands {
-		if any {
-			break
-		}
 		var xy plotter.XYs
 		for _, t := range b.Tiles {
 			if t.Change > 0 && !math.IsInf(t.Change, 0) {
@@ -348,39 +382,47 @@ func convergencePNG(rep *step.Report) ([]byte, bool, error) {
 		}
 		s, err := plotter.NewScatter(xy)
 		if err != nil {
-			return nil, false, err
+			return false, err
 		}
 		s.Color = plotutil.Color(i)
 		s.Shape = plotutil.Shape(i)
 		pt.Add(s)
 		pt.Legend.Add(fmt.Sprintf("band %d", b.Band), s)
-		any = true
+		return true, nil
 	}
-	if !any {
-		// The stop rule recorded no change (auto and discrepancy stops):
-		// show each tile's iteration count instead.
-		pt = plot.New()
-		pt.Title.Text = "tiles: iterations run"
-		pt.X.Label.Text = "tile (plan order)"
-		pt.Y.Label.Text = "iterations"
-		pt.Legend.Top = true
-		for i, b := range rep.Bands {
-			var xy plotter.XYs
-			for k, t := range b.Tiles {
-				xy = append(xy, plotter.XY{X: float64(k), Y: float64(t.Iterations)})
-			}
-			if len(xy) == 0 {
-				continue
-			}
-			s, err := plotter.NewScatter(xy)
-			if err != nil {
-				return nil, false, err
-			}
-			s.Color, s.Shape = plotutil.Color(i), plotutil.Shape(i)
-			pt.Add(s)
-			pt.Legend.Add(fmt.Sprintf("band %d", b.Band), s)
+	return false, nil
+}
+
+// iterationsPlot shows each tile's iteration count per band, for stop rules
+// that record no change (auto and discrepancy stops).
+func iterationsPlot(rep *step.Report) (*plot.Plot, error) {
+	pt := plot.New()
+	pt.Title.Text = "tiles: iterations run"
+	pt.X.Label.Text = "tile (plan order)"
+	pt.Y.Label.Text = "iterations"
+	pt.Legend.Top = true
+	for i, b := range rep.Bands {
+		var xy plotter.XYs
+		for k, t := range b.Tiles {
+			xy = append(xy, plotter.XY{X: float64(k), Y: float64(t.Iterations)})
 		}
+		if len(xy) == 0 {
+			continue
+		}
+		s, err := plotter.NewScatter(xy)
+		if err != nil {
+			return nil, err
+		}
+		s.Color, s.Shape = plotutil.Color(i), plotutil.Shape(i)
+		pt.Add(s)
+		pt.Legend.Add(fmt.Sprintf("band %d", b.Band), s)
 	}
+	return pt, nil
+}
+
+// riskPlot is convergencePNG's right panel: the first band's risk curve per
+// candidate of the automatic choice; it reports whether it drew any.
+func riskPlot(rep *step.Report) (*plot.Plot, bool, error) {
 	pr := plot.New()
 	pr.X.Label.Text = "iteration"
 	pr.Y.Label.Text = "risk estimate (summed, relative)"
@@ -421,8 +463,5 @@ func convergencePNG(rep *step.Report) ([]byte, bool, error) {
 	if !hasRisk {
 		pr.Title.Text = "no risk curves (fixed smoothing and stop)"
 	}
-	pt.Add(plotter.NewGrid())
-	pr.Add(plotter.NewGrid())
-	png, err := plotPNG([]*plot.Plot{pt, pr}, 900, 340)
-	return png, hasRisk, err
+	return pr, hasRisk, nil
 }

@@ -1,15 +1,14 @@
 package main
 
 import (
+	"errors"
 	"fmt"
 	"io"
-	"math"
 	"strings"
 
 	"github.com/urfave/cli/v2"
 
 	"limpid/psf"
-	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
 	"limpid/step/conv"
@@ -49,43 +48,81 @@ Example:
 	}
 }
 
-func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
+// simulateJob is a parsed simulate command line.
+type simulateJob struct {
+	in, out   string
+	psfSpec   string // as given, trimmed
+	noiseSpec string // as given
+	kernel    *psf.Kernel
+	noise     step.SimNoise
+	format    gdal.Format
+	dataType  string // "" for --quantize same
+}
+
+// parseSimulate reads simulate's arguments and flags, in the order their
+// errors are reported.
+func parseSimulate(c *cli.Context) (*simulateJob, error) {
 	if c.NArg() != 2 {
-		return usagef("simulate needs INPUT and OUTPUT after the flags (got %d arguments); flags after the arguments are not read", c.NArg())
+		return nil, usagef("simulate needs INPUT and OUTPUT after the flags (got %d arguments); flags after the arguments are not read", c.NArg())
 	}
-	in, out := c.Args().Get(0), c.Args().Get(1)
-	spec := strings.TrimSpace(c.String("psf"))
-	if spec == "" {
-		return usagef("--psf is required, e.g. --psf gaussian:sigma=0.7")
+	j := &simulateJob{in: c.Args().Get(0), out: c.Args().Get(1), noiseSpec: c.String("noise")}
+	j.psfSpec = strings.TrimSpace(c.String("psf"))
+	if j.psfSpec == "" {
+		return nil, usagef("--psf is required, e.g. --psf gaussian:sigma=0.7")
 	}
-	if strings.HasPrefix(spec, "auto") {
-		return usagef("--psf %q: simulate needs a PSF model or kernel; auto measures one from an observation", spec)
+	if strings.HasPrefix(j.psfSpec, "auto") {
+		return nil, usagef("--psf %q: simulate needs a PSF model or kernel; auto measures one from an observation", j.psfSpec)
 	}
-	k, err := psf.Parse(spec, psfEnv())
-	if err != nil {
-		return usageError{fmt.Errorf("--psf %w", err)}
+	var err error
+	if j.kernel, err = psf.Parse(j.psfSpec, psfEnv()); err != nil {
+		return nil, usageError{fmt.Errorf("--psf %w", err)}
 	}
-	if c.String("noise") == "" {
-		return usagef("--noise is required, e.g. --noise poisson:gain=0.4,read=3, gaussian:sigma=5 or none")
+	if j.noiseSpec == "" {
+		return nil, usagef("--noise is required, e.g. --noise poisson:gain=0.4,read=3, gaussian:sigma=5 or none")
 	}
-	nz, err := step.ParseSimNoise(c.String("noise"))
+	if j.noise, err = step.ParseSimNoise(j.noiseSpec); err != nil {
+		return nil, simulateFlagError(err, j.in, "")
+	}
+	j.format = gdal.Format(c.String("format"))
+	if j.format != gdal.GTiff && j.format != gdal.COG {
+		return nil, usagef("--format %q: use gtiff or cog", c.String("format"))
+	}
+	if j.dataType = c.String("quantize"); j.dataType == "same" {
+		j.dataType = ""
+	} else if err := step.CheckSimDataType(j.dataType); err != nil {
+		return nil, simulateFlagError(err, j.in, j.dataType)
+	}
+	return j, nil
+}
+
+// simulateFlagError maps a *step.SimError to the line that names the flag
+// or argument behind its field (in: the INPUT argument, dataType: the
+// output type).
+func simulateFlagError(err error, in, dataType string) error {
+	var se *step.SimError
+	if !errors.As(err, &se) {
+		return err
+	}
+	switch se.Field {
+	case "Noise":
+		return fmt.Errorf("%w: --noise %q: %s", step.ErrConfig, se.Value, se.Reason)
+	case "DataType":
+		return usagef("--quantize %q: use same, Byte, UInt16, Int16, UInt32, Int32 or Float32", se.Value)
+	case "NoData":
+		return usagef("INPUT %s: its nodata value %s cannot be stored in --quantize %s", in, se.Value, dataType)
+	}
+	return err
+}
+
+func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
+	j, err := parseSimulate(c)
 	if err != nil {
 		return err
 	}
-	format := gdal.Format(c.String("format"))
-	if format != gdal.GTiff && format != gdal.COG {
-		return usagef("--format %q: use gtiff or cog", c.String("format"))
-	}
-	q := c.String("quantize")
-	switch q {
-	case "same", "Byte", "UInt16", "Int16", "UInt32", "Int32", "Float32":
-	default:
-		return usagef("--quantize %q: use same, Byte, UInt16, Int16, UInt32, Int32 or Float32", q)
-	}
-	if err := checkPaths(in, out); err != nil {
+	if err := checkPaths(j.in, j.out); err != nil {
 		return err
 	}
-	inPath, done, err := spoolInput(in, stdin)
+	inPath, done, err := spoolInput(j.in, stdin)
 	if err != nil {
 		return err
 	}
@@ -96,69 +133,31 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	}
 	defer src.Close()
 	meta := src.Meta()
-	if q == "same" {
-		q = meta.DataType
-		if q == "Float64" {
-			q = "Float32"
-		}
+	cfg := step.SimConfig{H: conv.New(j.kernel), Noise: j.noise, Seed: c.Uint64("seed"), DataType: j.dataType}
+	if err := cfg.Resolve(meta); err != nil {
+		return simulateFlagError(err, j.in, cfg.DataType)
 	}
 	om := meta
-	om.DataType = q
+	om.DataType = cfg.DataType
 	om.Metadata = map[string]string{}
 	for k, v := range meta.Metadata {
 		om.Metadata[k] = v
 	}
-	// Input nodata (one value for all bands in a GeoTIFF).
-	var inND float64
-	var inHas bool
-	for _, b := range meta.Bands {
-		if b.HasNoData {
-			inND, inHas = b.NoData, true
-			break
-		}
-	}
-	// Output nodata: the input's; else NaN for floats and the type's maximum
-	// for integers, set only when invalid pixels can occur (float input).
-	// A NaN nodata cannot be stored in an integer type: it becomes the
-	// type's maximum.
-	outND, outHas := inND, inHas
-	_, _, inInt := raster.TypeRange(meta.DataType)
-	lo, hi, outInt := raster.TypeRange(q)
-	switch {
-	case outHas && outInt && math.IsNaN(inND):
-		outND = hi
-	case outHas && outInt && (inND < lo || inND > hi || inND != math.Round(inND)):
-		return usagef("INPUT %s: its nodata value %g cannot be stored in --quantize %s", in, inND, q)
-	case !outHas && !inInt:
-		outHas = true
-		outND = math.NaN()
-		if outInt {
-			outND = hi
-		}
-	}
-	wopts := gdal.WriteOptions{Format: format, DataType: q, NoData: outND, HasNoData: outHas}
-	if out == "-" {
+	wopts := gdal.WriteOptions{Format: j.format, DataType: cfg.DataType, NoData: cfg.OutNoData, HasNoData: cfg.HasOutNoData}
+	if j.out == "-" {
 		wopts.Stdout = stdout
 	}
-	dst, err := gdal.Create(out, om, wopts)
+	dst, err := gdal.Create(j.out, om, wopts)
 	if err != nil {
 		return err
 	}
-	cfg := step.SimConfig{H: conv.New(k), Noise: nz, Seed: c.Uint64("seed"), DataType: q,
-		NoData: inND, HasNoData: inHas, OutNoData: outND, HasOutNoData: outHas}
 	fmt.Fprintf(stderr, "limpid: simulating %dx%d, %d bands: PSF %s, noise %s, %s, seed %d\n",
-		meta.Width, meta.Height, len(meta.Bands), spec, c.String("noise"), q, cfg.Seed)
+		meta.Width, meta.Height, len(meta.Bands), j.psfSpec, j.noiseSpec, cfg.DataType, cfg.Seed)
 	if err := step.Simulate(c.Context, src, dst, cfg); err != nil {
 		dst.Abort()
 		return err
 	}
-	for _, kv := range [][2]string{
-		{"LIMPID_PRODUCT", "simulated observation (blurred, noise added); not a measurement"},
-		{"LIMPID_VERSION", step.Version},
-		{"LIMPID_SIMULATED_PSF", spec},
-		{"LIMPID_SIMULATED_NOISE", c.String("noise")},
-		{"LIMPID_SIMULATED_SEED", fmt.Sprint(cfg.Seed)},
-	} {
+	for _, kv := range step.SimMetadata(j.psfSpec, j.noiseSpec, cfg.Seed) {
 		if err := dst.SetMetadata(kv[0], kv[1]); err != nil {
 			dst.Abort()
 			return err
