@@ -10,6 +10,19 @@ import (
 	"limpid/raster"
 )
 
+// restorePlane restores a one-band n x n UInt16 scene in memory.
+func restorePlane(t testing.TB, obs []float32, n int, cfg Config) ([]float32, *Report) {
+	t.Helper()
+	src := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "UInt16", Bands: []raster.BandInfo{{}}})
+	copy(src.Bands[0], obs)
+	dst := raster.NewMem(src.M)
+	rep, err := Restore(context.Background(), src, []int{0}, dst, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return dst.Bands[0], rep
+}
+
 // Source: brute force. On a small scene the oracle (the candidate bandwidth
 // and iteration with the best PSNR against the reference) is computed by
 // running every candidate to the cap; the automatic choice must land within
@@ -40,7 +53,7 @@ func TestAutoChoiceMatchesBruteForce(t *testing.T) {
 		g.Observe = func(_ int, f []float32, _ float64) { best = math.Max(best, PSNR(ref, f, interior, 4095)) }
 		g.Solve(context.Background(), &Workspace{}, &Problem{D: append([]float32(nil), obs...), Mask: ones(n * n), W: n, H: n}, make([]float32, n*n))
 	}
-	out, rep, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: capK})
+	out, rep := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: capK})
 	got := PSNR(ref, out, interior, 4095)
 	ch := rep.Bands[0].Choice
 	t.Logf("oracle %.2f dB, auto %.2f dB at eps %.1f, %d iterations (%s)", best, got, ch.Smooth, ch.Iterations, ch.Rule)
@@ -131,7 +144,7 @@ func TestAutoWorkersIdentical(t *testing.T) {
 	for _, choose := range []string{ChooseGlobal, ChoosePerTile} {
 		var first []float32
 		for _, w := range []int{1, 3} {
-			out, _, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: w, Tile: 32, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: 40, Choose: choose})
+			out, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: w, Tile: 32, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: 40, Choose: choose})
 			if first == nil {
 				first = out
 				continue
@@ -160,7 +173,7 @@ func TestGlobalChoiceSumsCandidates(t *testing.T) {
 		valid[i] = true
 	}
 	obs := Degrade(bands[2], valid, n, n, NewConv(k), Noise{Gain: 0.4, Read: 3}, rng)
-	_, rep, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Tile: 48, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: 30})
+	_, rep := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Tile: 48, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: 30})
 	ch := rep.Bands[0].Choice
 	if ch.TilesUsed < 2 {
 		t.Fatalf("%d tiles used, want several", ch.TilesUsed)
