@@ -27,7 +27,8 @@ func restorePlane(t testing.TB, obs []float32, n int, cfg Config) ([]float32, *R
 // Source: brute force. On a small scene the oracle (the candidate bandwidth
 // and iteration with the best PSNR against the reference) is computed by
 // running every candidate to the cap; the automatic choice must land within
-// 0.3 dB of it (the issue's worst-case bar) and report its choice.
+// 0.3 dB of it (the project's acceptance bar for the worst case) and report
+// its choice.
 func TestAutoChoiceMatchesBruteForce(t *testing.T) {
 	const n, capK, margin = 96, 120, 12
 	const maxLoss = 0.3
@@ -200,9 +201,9 @@ func TestAutoFallbacks(t *testing.T) {
 	}
 }
 
-// Determinism (issue 2's rule, extended to the automatic choice): the
-// choice and the output are identical for any number of workers, globally
-// and per tile. Source: common practice, no source.
+// Determinism (DEVELOPERS.md, "Determinism", extended to the automatic
+// choice): the choice and the output are identical for any number of
+// workers, globally and per tile. A project requirement, no outside source.
 func TestAutoWorkersIdentical(t *testing.T) {
 	const n = 100
 	k, _ := psf.GaussianIso(1.2)
@@ -232,9 +233,10 @@ func TestAutoWorkersIdentical(t *testing.T) {
 
 // A global choice over several tiles sums every candidate's risk over the
 // tiles and stops at the first candidate whose sum rises, so one tile's
-// early exit cannot veto a bandwidth (GUIDE section 4.5: sum the tiles'
-// curves): the candidates skipped are exactly those after the first rise of
-// the summed risk. Source: the method's definition.
+// early exit cannot veto a bandwidth (the global choice sums the tiles'
+// curves, DEVELOPERS.md "Automatic regularisation"): the candidates skipped
+// are exactly those after the first rise of the summed risk. Source: the
+// method's definition.
 func TestGlobalChoiceSumsCandidates(t *testing.T) {
 	const n = 96
 	k, _ := psf.GaussianIso(1.2)

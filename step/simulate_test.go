@@ -122,8 +122,9 @@ func TestSimulateNoiseStatistics(t *testing.T) {
 // Conv.Apply (the operator restore uses), that the strip size does not
 // change a single bit, that a seed reproduces, and that nodata stays nodata
 // and no valid pixel is quantised onto the nodata value.
-// Source: the half-sample symmetric convolution of DEVELOPERS.md/GUIDE
-// section 2 (the PSF convention) and the rules' determinism requirement.
+// Source: the half-sample symmetric convolution (Martucci, IEEE TSP
+// 42(5):1038, 1994; DEVELOPERS.md "Boundaries") and the project's
+// determinism requirement.
 func TestSimulateBlurAndDeterminism(t *testing.T) {
 	const w, h = 97, 83
 	ref, _ := ValleyReference(w, h)

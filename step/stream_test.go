@@ -143,8 +143,9 @@ func sameBits(t *testing.T, what string, a, b [][]float32) {
 	}
 }
 
-// Source: the issue's bar (pack | restore | unpack equals restore on the
-// raster, bit for bit) on the demo scenario, with nodata pixels, a merged
+// The stream route equals the raster route (pack | restore | unpack gives
+// restore's raster, bit for bit: a project requirement, DEVELOPERS.md "Tile
+// streams") on the demo scenario, with nodata pixels, a merged
 // last tile column (300 = 4 x 64 + 44), a saturation level and a background,
 // for 1 and 3 workers (identical streams) and tiles assembled out of order.
 func TestStreamMatchesRestore(t *testing.T) {
