@@ -86,20 +86,25 @@ func inCandidates(eps float64) bool {
 	return false
 }
 
-// Each fallback says what it did and restores within its rules: the
-// reported noise source and choice rule name the fallback taken, the chosen
-// bandwidth is a candidate (or the given one) and the stop is within the
-// cap, the scene's flux is kept, nodata stays NaN and every valid pixel is
-// finite. Source: the fallback rules of the automatic choice as
-// DEVELOPERS.md documents them ("Fallbacks": tiles more than 10 %
-// invalid use the prediction-domain estimate; too few smooth pixels give
-// Immerkaer's constant variance, Immerkaer, CVIU 64(2):300, 1996; a band
-// without usable pixels gets the given bandwidth, 50 iterations and the
-// change stop); a flat band is its own EMS fixed point (derived: H f = d
-// for f = d constant, with a normalised PSF and symmetric boundaries).
-func TestAutoFallbacks(t *testing.T) {
-	const capK = 60
-	k, _ := psf.GaussianIso(1.0)
+// fallbackCase is one case of TestAutoFallbacks: the scene, the settings
+// (auto: --smooth auto --stop auto), the noise source and rule prefixes the
+// fallback must report, and a check of its own.
+type fallbackCase struct {
+	name        string
+	src         *raster.Mem
+	cfg         Config
+	auto        bool
+	noise, rule string
+	check       func(t *testing.T, ch *Choice, out []float32)
+}
+
+// fallbackCap is TestAutoFallbacks's iteration cap.
+const fallbackCap = 60
+
+// fallbackCases builds TestAutoFallbacks's scenes: most pixels invalid, a
+// scene smaller than the noise fit needs, a constant band, no valid pixel,
+// tiles of 16 pixels with per-tile choice, the discrepancy stop.
+func fallbackCases() []fallbackCase {
 	rng := rand.New(rand.NewPCG(23, 24))
 	mk := func(n int, fill func(x, y int) float32) *raster.Mem {
 		m := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "Float32", Bands: []raster.BandInfo{{NoData: -1, HasNoData: true}}})
@@ -111,17 +116,7 @@ func TestAutoFallbacks(t *testing.T) {
 		return m
 	}
 	noisy := func(x, y int) float32 { return float32(800 + 200*math.Sin(float64(x)/5) + 20*rng.NormFloat64()) }
-	// Each case: the scene, the settings (auto: --smooth auto --stop
-	// auto), the noise source and rule prefixes the fallback must report,
-	// and a check of its own.
-	cases := []struct {
-		name        string
-		src         *raster.Mem
-		cfg         Config
-		auto        bool
-		noise, rule string
-		check       func(t *testing.T, ch *Choice, out []float32)
-	}{
+	return []fallbackCase{
 		{"mostly nodata", mk(80, func(x, y int) float32 {
 			if x > 25 {
 				return -1
@@ -143,8 +138,8 @@ func TestAutoFallbacks(t *testing.T) {
 			}
 		}},
 		{"all nodata", mk(40, func(int, int) float32 { return -1 }), Config{}, true, "none:", "fallback: no noise model", func(t *testing.T, ch *Choice, _ []float32) {
-			if ch.Smooth != 0 || ch.Iterations != min(capK, DefaultIterations) {
-				t.Errorf("choice eps %g, %d iterations; want the given 0 and %d", ch.Smooth, ch.Iterations, min(capK, DefaultIterations))
+			if ch.Smooth != 0 || ch.Iterations != min(fallbackCap, DefaultIterations) {
+				t.Errorf("choice eps %g, %d iterations; want the given 0 and %d", ch.Smooth, ch.Iterations, min(fallbackCap, DefaultIterations))
 			}
 		}},
 		{"small tiles per tile", mk(64, noisy), Config{Tile: 16, Choose: ChoosePerTile}, true, "estimated", "risk minimum", func(t *testing.T, ch *Choice, _ []float32) {
@@ -152,21 +147,36 @@ func TestAutoFallbacks(t *testing.T) {
 				t.Fatalf("%d tile choices (want the 4 x 4 plan), rule %q", len(ch.TileChoices), ch.Rule)
 			}
 			for _, tc := range ch.TileChoices {
-				if !inCandidates(tc.Smooth) || tc.Iterations < 1 || tc.Iterations > capK {
+				if !inCandidates(tc.Smooth) || tc.Iterations < 1 || tc.Iterations > fallbackCap {
 					t.Errorf("tile (%d, %d): eps %g, %d iterations", tc.Col, tc.Row, tc.Smooth, tc.Iterations)
 				}
 			}
 		}},
 		{"discrepancy", mk(64, noisy), Config{Stop: StopDiscrepancy, Smooth: 0.3}, false, "estimated", "discrepancy:", func(t *testing.T, ch *Choice, _ []float32) {
-			if ch.Smooth != 0.3 || ch.Iterations != capK {
-				t.Errorf("choice eps %g cap %d, want the given 0.3 and %d", ch.Smooth, ch.Iterations, capK)
+			if ch.Smooth != 0.3 || ch.Iterations != fallbackCap {
+				t.Errorf("choice eps %g cap %d, want the given 0.3 and %d", ch.Smooth, ch.Iterations, fallbackCap)
 			}
 		}},
 	}
-	for _, c := range cases {
+}
+
+// Each fallback says what it did and restores within its rules: the
+// reported noise source and choice rule name the fallback taken, the chosen
+// bandwidth is a candidate (or the given one) and the stop is within the
+// cap, the scene's flux is kept, nodata stays NaN and every valid pixel is
+// finite. Source: the fallback rules of the automatic choice as
+// DEVELOPERS.md documents them ("Fallbacks": tiles more than 10 %
+// invalid use the prediction-domain estimate; too few smooth pixels give
+// Immerkaer's constant variance, Immerkaer, CVIU 64(2):300, 1996; a band
+// without usable pixels gets the given bandwidth, 50 iterations and the
+// change stop); a flat band is its own EMS fixed point (derived: H f = d
+// for f = d constant, with a normalised PSF and symmetric boundaries).
+func TestAutoFallbacks(t *testing.T) {
+	k, _ := psf.GaussianIso(1.0)
+	for _, c := range fallbackCases() {
 		t.Run(c.name, func(t *testing.T) {
 			cfg := c.cfg
-			cfg.PSF, cfg.Overlap, cfg.Workers, cfg.Iterations = k, -1, 2, capK
+			cfg.PSF, cfg.Overlap, cfg.Workers, cfg.Iterations = k, -1, 2, fallbackCap
 			if c.auto {
 				cfg.Stop, cfg.SmoothAuto = StopAuto, true
 			}
@@ -183,8 +193,8 @@ func TestAutoFallbacks(t *testing.T) {
 			if !strings.HasPrefix(b.Noise.Source, c.noise) || !strings.HasPrefix(ch.Rule, c.rule) {
 				t.Errorf("noise %q, rule %q; want prefixes %q and %q", b.Noise.Source, ch.Rule, c.noise, c.rule)
 			}
-			if c.auto && b.ValidPixels > 0 && (!inCandidates(ch.Smooth) || ch.Iterations < 1 || ch.Iterations > capK) {
-				t.Errorf("choice eps %g, %d iterations: not a candidate within 1..%d", ch.Smooth, ch.Iterations, capK)
+			if c.auto && b.ValidPixels > 0 && (!inCandidates(ch.Smooth) || ch.Iterations < 1 || ch.Iterations > fallbackCap) {
+				t.Errorf("choice eps %g, %d iterations: not a candidate within 1..%d", ch.Smooth, ch.Iterations, fallbackCap)
 			}
 			if math.Abs(b.FluxAfter-b.FluxBefore) > fallbackFluxTol*b.FluxBefore {
 				t.Errorf("flux %g -> %g", b.FluxBefore, b.FluxAfter)

@@ -117,8 +117,8 @@ func TestGeoreferencingRoundTrip(t *testing.T) {
 
 func mustJSON(v any) string { b, _ := json.Marshal(v); return string(b) }
 
-// Determinism (issue requirement): --workers 1, 2 and 7 give byte-identical
-// files.
+// Determinism (DEVELOPERS.md, "Determinism"): --workers 1, 2 and 7 give
+// byte-identical files. A project requirement, no outside source.
 func TestWorkersByteIdentical(t *testing.T) {
 	dir := t.TempDir()
 	var first []byte
@@ -197,10 +197,18 @@ func TestStdinStdoutCOGReport(t *testing.T) {
 	}
 }
 
-// Every bad input exits 2 with one line and leaves no file at OUTPUT (issue
-// requirement).
-func TestBadInputs(t *testing.T) {
-	dir := t.TempDir()
+// badCase is a restore command that must fail with exit 2 and one line
+// naming want; OUT in args stands for the case's output path.
+type badCase struct {
+	name string
+	args []string
+	want string
+}
+
+// badInputCases writes the bad files into dir and returns the cases of
+// TestBadInputs.
+func badInputCases(t *testing.T, dir string) []badCase {
+	t.Helper()
 	notRaster := filepath.Join(dir, "notes.txt")
 	os.WriteFile(notRaster, []byte("hello\n"), 0o644)
 	complexTif := filepath.Join(dir, "complex.tif")
@@ -220,11 +228,7 @@ func TestBadInputs(t *testing.T) {
 	b, _ := os.ReadFile(obs)
 	os.WriteFile(copyIn, b, 0o644)
 	psfOK := "gaussian:sigma=1"
-	cases := []struct {
-		name string
-		args []string
-		want string
-	}{
+	return []badCase{
 		{"missing file", []string{"--psf", psfOK, filepath.Join(dir, "nope.tif"), "OUT"}, "nope.tif"},
 		{"not a raster", []string{"--psf", psfOK, notRaster, "OUT"}, "not a raster"},
 		{"complex", []string{"--psf", psfOK, complexTif, "OUT"}, "CFloat32"},
@@ -259,7 +263,14 @@ func TestBadInputs(t *testing.T) {
 		{"missing directory", []string{"--psf", psfOK, obs, filepath.Join(dir, "no", "such", "out.tif")}, "does not exist"},
 		{"flags after args", []string{obs, "x.tif", "--psf", psfOK}, "after the flags"},
 	}
-	for _, c := range cases {
+}
+
+// Every bad input exits 2 with one line naming what is wrong and leaves no
+// file at OUTPUT: the project's error contract (README, "Exit codes"), no
+// outside source.
+func TestBadInputs(t *testing.T) {
+	dir := t.TempDir()
+	for _, c := range badInputCases(t, dir) {
 		t.Run(c.name, func(t *testing.T) {
 			out := filepath.Join(dir, "out-"+strings.ReplaceAll(c.name, " ", "_")+".tif")
 			args := []string{"restore"}

@@ -11,8 +11,9 @@ import (
 )
 
 // Bad particle parameters exit 2 with one line naming the flag and leave
-// nothing at OUTPUT or at the --uncertainty path (issue requirement: K <= 0,
-// eps < 0, burn-in >= iterations; the grid method has no Monte Carlo error).
+// nothing at OUTPUT or at the --uncertainty path (the project's error
+// contract, README "Usage": K <= 0, eps < 0, burn-in >= iterations; the
+// grid method has no Monte Carlo error).
 func TestParticleBadParameters(t *testing.T) {
 	dir := t.TempDir()
 	obs := fixture("observed.tif")
