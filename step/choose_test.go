@@ -215,7 +215,12 @@ func TestAutoFallbacks(t *testing.T) {
 // choice): the choice and the output are identical for any number of
 // workers, globally and per tile. A project requirement, no outside source.
 func TestAutoWorkersIdentical(t *testing.T) {
-	const n = 100
+	// The default run: 2 x 2 tiles of 32, cap 20; LIMPID_LONG: 100 x 100
+	// (3 x 3 tiles), cap 40.
+	n, capK := 64, 20
+	if long() {
+		n, capK = 100, 40
+	}
 	k, _ := psf.GaussianIso(1.2)
 	rng := rand.New(rand.NewPCG(25, 26))
 	bands, _ := ValleyReference(n, n)
@@ -227,7 +232,7 @@ func TestAutoWorkersIdentical(t *testing.T) {
 	for _, choose := range []string{ChooseGlobal, ChoosePerTile} {
 		var first []float32
 		for _, w := range []int{1, 3} {
-			out, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: w, Tile: 32, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: 40, Choose: choose})
+			out, _ := restorePlane(t, obs, n, Config{PSF: k, Workers: w, Tile: 32, Overlap: -1, SmoothAuto: true, Stop: StopAuto, Iterations: capK, Choose: choose})
 			if first == nil {
 				first = out
 				continue

@@ -67,7 +67,12 @@ func baseConfig(k *psf.Kernel) Config {
 // tile borders against elsewhere).
 func TestTiledMatchesWhole(t *testing.T) {
 	const tiledTol = 0.005 // of the data range: the acceptance bar
-	const w, h = 300, 260
+	// The default run: 3 x 3 tiles of 64 (4 interior borders); LIMPID_LONG:
+	// the 300 x 260 scene of 5 x 5 tiles.
+	w, h := 192, 176
+	if long() {
+		w, h = 300, 260
+	}
 	src, _, valid, k := valleyScene(t, w, h, 1.5)
 	bands := []int{1, 3}
 	whole := baseConfig(k)
@@ -134,13 +139,19 @@ func TestTiledMatchesWhole(t *testing.T) {
 // identical output (tiles are independent and blended in a fixed order). A
 // project requirement, no outside source.
 func TestWorkersIdentical(t *testing.T) {
-	src, _, _, k := valleyScene(t, 200, 150, 1.2)
+	// The default run: 3 x 2 tiles, two bands (more workers than tiles at
+	// 7); LIMPID_LONG: 200 x 150, 4 bands, 4 x 3 tiles.
+	w, h, bands := 144, 96, []int{0, 3}
+	if long() {
+		w, h, bands = 200, 150, []int{0, 1, 2, 3}
+	}
+	src, _, _, k := valleyScene(t, w, h, 1.2)
 	var first *raster.Mem
 	for _, nw := range []int{1, 2, 7} {
 		cfg := baseConfig(k)
 		cfg.Tile = 48
 		cfg.Workers = nw
-		m, _ := restoreMem(t, src, []int{0, 1, 2, 3}, cfg)
+		m, _ := restoreMem(t, src, bands, cfg)
 		if first == nil {
 			first = m
 			continue
