@@ -280,3 +280,31 @@ func TestGlobalChoiceSumsCandidates(t *testing.T) {
 		}
 	}
 }
+
+// The particle method takes the bandwidth the grid EMS risk estimate
+// chooses and keeps its own iteration count: its output is a Monte Carlo
+// average whose derivative along a probe is not defined pathwise, so the
+// risk is computed on grid EMS run to the automatic cap, the recursion the
+// particle method approximates (derived in ParticleEMS's doc comment;
+// TestParticleConvergesToGrid). Source: the method's definition
+// (DEVELOPERS.md, "Particle EMS").
+func TestParticleAutoBandwidth(t *testing.T) {
+	const n, its = 64, 12
+	k, _ := psf.GaussianIso(1.5)
+	// Smooth relief with strong noise: the risk prefers a bandwidth above
+	// 0, so the particle's choice cannot match by default; the given
+	// Smooth (0.2, not a candidate) must be ignored by both.
+	obs := noiseScene(t, n, Noise{Gain: 4, Read: 20}, rand.New(rand.NewPCG(29, 30)))
+	_, grid := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Overlap: -1, Smooth: 0.2, SmoothAuto: true, Stop: StopAuto, Iterations: AutoCap})
+	_, part := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Overlap: -1, Smooth: 0.2, SmoothAuto: true, Stop: StopChange, Iterations: its,
+		Method: "particle", Particle: ParticleConfig{PerPixel: 4, ESSThreshold: 0.5, BurnIn: its / 2, Batches: 3}})
+	gc, pc := grid.Bands[0].Choice, part.Bands[0].Choice
+	if gc == nil || pc == nil {
+		t.Fatalf("choices %v, %v", gc, pc)
+	}
+	t.Logf("grid: eps %g, %d iterations; particle: eps %g, %d iterations", gc.Smooth, gc.Iterations, pc.Smooth, pc.Iterations)
+	if gc.Smooth == 0 || !inCandidates(pc.Smooth) || pc.Smooth != gc.Smooth || pc.Iterations != its || part.Bands[0].MaxIterations != its {
+		t.Errorf("particle: eps %g, %d iterations (tiles ran %d); want the grid's eps %g and its own %d iterations",
+			pc.Smooth, pc.Iterations, part.Bands[0].MaxIterations, gc.Smooth, its)
+	}
+}
