@@ -118,13 +118,22 @@ func TestGeoreferencingRoundTrip(t *testing.T) {
 func mustJSON(v any) string { b, _ := json.Marshal(v); return string(b) }
 
 // Determinism (DEVELOPERS.md, "Determinism"): --workers 1, 2 and 7 give
-// byte-identical files. A project requirement, no outside source.
+// byte-identical files (16 tiles, 4 bands). A project requirement, no
+// outside source. The default run uses fixed settings (the tile pool,
+// blending and writing); the automatic choice's own determinism is
+// step.TestAutoWorkersIdentical's, and LIMPID_LONG runs the defaults
+// (--smooth auto --stop auto) through the CLI as well.
 func TestWorkersByteIdentical(t *testing.T) {
 	dir := t.TempDir()
+	settings := []string{"--smooth", "0.2", "--stop", "change"}
+	if long() {
+		settings = nil
+	}
 	var first []byte
 	for _, w := range []string{"1", "2", "7"} {
 		out := filepath.Join(dir, "r"+w+".tif")
-		code, _, stderr := limpid(t, nil, "restore", "--psf", "gaussian:sigma=1.4", "--tile", "64", "--iterations", "4", "--workers", w, fixture("observed.tif"), out)
+		argv := append([]string{"restore", "--psf", "gaussian:sigma=1.4", "--tile", "64", "--iterations", "4", "--workers", w}, settings...)
+		code, _, stderr := limpid(t, nil, append(argv, fixture("observed.tif"), out)...)
 		if code != 0 {
 			t.Fatalf("workers %s: exit %d: %s", w, code, stderr)
 		}
@@ -188,10 +197,12 @@ func TestStdinStdoutCOGReport(t *testing.T) {
 	if len(r.Restoration.Bands) != 4 || len(r.Restoration.Bands[0].Tiles) != 1 || r.Restoration.Bands[0].Tiles[0].Iterations != 4 {
 		t.Fatalf("report: %s", b)
 	}
-	// Flux: EMS keeps the data's flux (Shepp & Vardi 1982); with a mask and
-	// nodata margin, within 1 %.
+	// Flux: EMS keeps the data's flux (Shepp & Vardi, IEEE TMI 1:113,
+	// 1982); with a mask and nodata margin, within 1 % (the PSF spills
+	// flux across the nodata edge).
+	const fluxTol = 0.01
 	for i, bd := range r.Restoration.Bands {
-		if math.Abs(bd.FluxAfter-bd.FluxBefore) > 0.01*bd.FluxBefore {
+		if math.Abs(bd.FluxAfter-bd.FluxBefore) > fluxTol*bd.FluxBefore {
 			t.Errorf("band %d flux %g -> %g", i+1, bd.FluxBefore, bd.FluxAfter)
 		}
 	}
@@ -334,8 +345,9 @@ func TestNoiseCommand(t *testing.T) {
 	if len(got.Bands) != 4 {
 		t.Fatalf("%d bands in the JSON", len(got.Bands))
 	}
+	const slopeTol = 0.10 // the noise model's 0.9-1.1 accuracy bar
 	for _, bd := range got.Bands {
-		if math.Abs(bd.A/0.4-1) > 0.10 || len(bd.Bins) < 10 {
+		if math.Abs(bd.A/0.4-1) > slopeTol || len(bd.Bins) < 10 {
 			t.Errorf("band %d: a = %.3f (want 0.4 within 10 %%), %d bins", bd.Band, bd.A, len(bd.Bins))
 		}
 	}
