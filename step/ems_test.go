@@ -170,6 +170,12 @@ func TestGaussianFixedPoint2D(t *testing.T) {
 		{{1, 1, 0.5, 1.646032}, {2, 1, 0.5, 4.377274}},
 		{{1, 2, 0.3, 1.880246}, {0.5, 1.5, 0.2, 0.815359}},
 	}
+	if !long() {
+		// The second pair (its four-fold cost: 89 iterations on 181 x
+		// 129) runs with LIMPID_LONG; TestGaussianFixedPoint checks its
+		// values in 1-D.
+		pairs = pairs[:1]
+	}
 	for _, pr := range pairs {
 		cx, cy := pr[0], pr[1]
 		sax := math.Sqrt(cx.sf*cx.sf+cx.sg*cx.sg) * z

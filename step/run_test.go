@@ -140,17 +140,17 @@ func TestTiledMatchesWhole(t *testing.T) {
 // project requirement, no outside source.
 func TestWorkersIdentical(t *testing.T) {
 	// The default run: 3 x 2 tiles, two bands (more workers than tiles at
-	// 7); LIMPID_LONG: 200 x 150, 4 bands, 4 x 3 tiles.
-	w, h, bands := 144, 96, []int{0, 3}
+	// 7), 20 iterations; LIMPID_LONG: 200 x 150, 4 bands, 4 x 3 tiles, the
+	// default 50.
+	w, h, bands, its := 144, 96, []int{0, 3}, 20
 	if long() {
-		w, h, bands = 200, 150, []int{0, 1, 2, 3}
+		w, h, bands, its = 200, 150, []int{0, 1, 2, 3}, DefaultIterations
 	}
 	src, _, _, k := valleyScene(t, w, h, 1.2)
 	var first *raster.Mem
 	for _, nw := range []int{1, 2, 7} {
 		cfg := baseConfig(k)
-		cfg.Tile = 48
-		cfg.Workers = nw
+		cfg.Tile, cfg.Workers, cfg.Iterations = 48, nw, its
 		m, _ := restoreMem(t, src, bands, cfg)
 		if first == nil {
 			first = m
