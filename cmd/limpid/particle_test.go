@@ -71,22 +71,23 @@ func TestParticleBadParameters(t *testing.T) {
 // --workers 1 and 2 give byte-identical image and uncertainty files
 // (DEVELOPERS.md, "Determinism"); the report records the particle
 // parameters and the mean standard error, which must agree with the
-// raster's own mean. The default run gives the bandwidth (--smooth 0.2):
-// the automatic one runs grid EMS to 200 iterations on every sample tile
-// first (step.TestParticleAutoBandwidth checks that choice);
-// LIMPID_LONG runs it through the CLI.
+// raster's own mean. The default run restores the centre 128 x 128 of the
+// fixture in 2 x 2 tiles with a given bandwidth (--smooth 0.2): the
+// automatic one runs grid EMS to 200 iterations on every sample tile first
+// (step.TestParticleAutoBandwidth checks that choice). LIMPID_LONG runs the
+// whole fixture in 3 x 3 tiles with the automatic bandwidth.
 func TestParticleUncertaintyRaster(t *testing.T) {
 	dir := t.TempDir()
-	smooth := []string{"--smooth", "0.2"}
+	in, tile, smooth := cropFixture(t, dir, 128), "64", []string{"--smooth", "0.2"}
 	if long() {
-		smooth = nil
+		in, tile, smooth = fixture("observed.tif"), "96", nil
 	}
 	var img, unc [][]byte
 	for _, w := range []string{"1", "2"} {
 		out, u, rep := filepath.Join(dir, "o"+w+".tif"), filepath.Join(dir, "u"+w+".tif"), filepath.Join(dir, "r"+w+".json")
 		argv := append([]string{"restore", "--psf", "gaussian:sigma=1.4", "--method", "particle", "--particles-per-pixel", "2",
-			"--iterations", "12", "--batches", "3", "--tile", "96", "--bands", "3,1", "--workers", w, "--uncertainty", u, "--report", rep}, smooth...)
-		code, _, stderr := limpid(t, nil, append(argv, fixture("observed.tif"), out)...)
+			"--iterations", "12", "--batches", "3", "--tile", tile, "--bands", "3,1", "--workers", w, "--uncertainty", u, "--report", rep}, smooth...)
+		code, _, stderr := limpid(t, nil, append(argv, in, out)...)
 		if code != 0 {
 			t.Fatalf("exit %d: %s", code, stderr)
 		}
