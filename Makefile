@@ -9,7 +9,16 @@ SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
 # The Node cross-check of the Arrow tile stream (npm apache-arrow, pinned).
 NODE_DIR := testdata/node
 
-.PHONY: deps demo test bench build clean
+.PHONY: deps demo test test-long bench build clean
+
+# go test's -timeout is per package (per test binary). The default run takes
+# about 1.5 minutes per package with -race on an idle 2-core machine
+# (DEVELOPERS.md, "Testing"); 5 minutes leaves room for a loaded one and
+# still stops a hung test long before go test's own 10-minute default.
+TEST_TIMEOUT ?= 5m
+# The measurement-grade cases (LIMPID_LONG=1) run without -race: they check
+# numerics at full size, the default run already races the same code paths.
+LONG_TIMEOUT ?= 60m
 
 deps:
 	@if ! dpkg -s $(APT_PKGS) >/dev/null 2>&1; then \
@@ -32,8 +41,11 @@ demo: build
 test: deps
 	@test -z "$$(gofmt -l $$(git ls-files '*.go' 2>/dev/null || find . -name '*.go'))" || { echo "gofmt needed:"; gofmt -l .; exit 1; }
 	$(GO) vet ./...
-	$(GO) test -race -count=1 ./...
-	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s ./arrowio
+	$(GO) test -race -count=1 -timeout $(TEST_TIMEOUT) ./...
+	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s -timeout 2m ./arrowio
+
+test-long: deps
+	LIMPID_LONG=1 $(GO) test -count=1 -timeout $(LONG_TIMEOUT) ./...
 
 bench: deps
 	$(GO) test -run '^$$' -bench . -benchmem -benchtime 10x ./step
