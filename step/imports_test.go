@@ -8,6 +8,27 @@ import (
 	"testing"
 )
 
+// goFiles lists the non-test Go files of the module's package dir; it fails
+// the test when the pattern is bad or finds nothing (a rule checked on no
+// files would pass silently).
+func goFiles(t *testing.T, dir string) []string {
+	t.Helper()
+	all, err := filepath.Glob(filepath.Join("..", dir, "*.go"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var out []string
+	for _, f := range all {
+		if !strings.HasSuffix(f, "_test.go") {
+			out = append(out, f)
+		}
+	}
+	if len(out) == 0 {
+		t.Fatalf("no Go files in %s", dir)
+	}
+	return out
+}
+
 // TestImportRules enforces DEVELOPERS.md's one-way data flow
 // cmd -> step -> {psf, raster, arrowio}: psf is pure Go (no GDAL, Arrow or
 // other limpid package), raster and arrowio never import step or cmd, step
@@ -16,11 +37,7 @@ import (
 // library, Arrow and limpid/raster's types.
 func TestImportRules(t *testing.T) {
 	arrowioAllowed := []string{"github.com/apache/arrow/go/v17/", "limpid/raster"}
-	files, _ := filepath.Glob(filepath.Join("..", "arrowio", "*.go"))
-	for _, f := range files {
-		if strings.HasSuffix(f, "_test.go") {
-			continue
-		}
+	for _, f := range goFiles(t, "arrowio") {
 		af, err := parser.ParseFile(token.NewFileSet(), f, nil, parser.ImportsOnly)
 		if err != nil {
 			t.Fatal(err)
@@ -46,11 +63,7 @@ func TestImportRules(t *testing.T) {
 		"step":    {"limpid/cmd", "github.com/airbusgeo/godal", "github.com/apache/arrow", "C"},
 	}
 	for pkg, bad := range forbidden {
-		files, _ := filepath.Glob(filepath.Join("..", pkg, "*.go"))
-		for _, f := range files {
-			if strings.HasSuffix(f, "_test.go") {
-				continue
-			}
+		for _, f := range goFiles(t, pkg) {
 			af, err := parser.ParseFile(token.NewFileSet(), f, nil, parser.ImportsOnly)
 			if err != nil {
 				t.Fatal(err)
