@@ -136,14 +136,14 @@ func TestParticleConvergesToGrid(t *testing.T) {
 func calibration(t *testing.T, d []float32, n int, grid []float32, mk func(seed uint64) *ParticleEMS) (ratio, median float64) {
 	f, se := particleSolve(t, mk(7), nil, d, ones(n*n), n, n, TileKey{})
 	ratio = rmsDiff(f, grid) / rms(se)
-	seeds := 10
+	runs := 10
 	if long() {
-		seeds = 20
+		runs = 20
 	}
 	m := n * n
 	sum, sq, se2 := make([]float64, m), make([]float64, m), make([]float64, m)
 	var ws Workspace
-	for s := 0; s < seeds; s++ {
+	for s := 0; s < runs; s++ {
 		f, se := particleSolve(t, mk(uint64(100+s)), &ws, d, ones(m), n, n, TileKey{})
 		for i := range f {
 			sum[i] += float64(f[i])
@@ -152,7 +152,7 @@ func calibration(t *testing.T, d []float32, n int, grid []float32, mk func(seed 
 		}
 	}
 	ratios := make([]float64, m)
-	ns := float64(seeds)
+	ns := float64(runs)
 	for i := range ratios {
 		mean := sum[i] / ns
 		spread := math.Sqrt(math.Max(0, (sq[i]-ns*mean*mean)/(ns-1)))
@@ -194,8 +194,8 @@ func TestParticleErrorBarsCalibrated(t *testing.T) {
 			}
 			sk := SmoothingKernel(c.eps)
 			grid := gridFixedPoint(t, d, n, k, sk)
-			ratio, med := calibration(t, d, n, grid, func(seed uint64) *ParticleEMS {
-				pe := newTestParticle(k, sk, K, seed)
+			ratio, med := calibration(t, d, n, grid, func(stream uint64) *ParticleEMS {
+				pe := newTestParticle(k, sk, K, stream)
 				pe.Iterations, pe.BurnIn, pe.Replicates = c.its, c.burn, c.reps
 				return pe
 			})
@@ -475,7 +475,7 @@ func TestMutationVariance(t *testing.T) {
 }
 
 // Determinism (DEVELOPERS.md, "Determinism"): random streams derive from
-// (seed, band, column, row) only, so the result of a tile does not depend
+// (Config.Seed, band, column, row) only, so the result of a tile does not depend
 // on which worker ran it or what the worker solved before. A project
 // requirement, no outside source.
 func TestParticleTileOrderIndependent(t *testing.T) {
@@ -539,16 +539,16 @@ func TestParticleBlendedSE(t *testing.T) {
 		}
 		return false
 	}
-	// Seeds: 6 in the default run (the spread per pixel has 5 degrees of
-	// freedom, its median over ~800 ramp pixels is still within a few
-	// per cent), 10 with LIMPID_LONG.
-	seeds := 6
+	// Independent runs: 6 in the default run (the spread per pixel has 5
+	// degrees of freedom, its median over ~800 ramp pixels is still within
+	// a few per cent), 10 with LIMPID_LONG.
+	runs := 6
 	if long() {
-		seeds = 10
+		runs = 10
 	}
 	n := w * h
 	sum, sq, se2 := make([]float64, n), make([]float64, n), make([]float64, n)
-	for s := 0; s < seeds; s++ {
+	for s := 0; s < runs; s++ {
 		c := cfg
 		c.Seed = uint64(s + 1)
 		c.Workers = 1
@@ -577,7 +577,7 @@ func TestParticleBlendedSE(t *testing.T) {
 			if math.IsNaN(sum[i]) || se2[i] == 0 {
 				continue
 			}
-			ns := float64(seeds)
+			ns := float64(runs)
 			mean := sum[i] / ns
 			r := math.Sqrt(math.Max(0, (sq[i]-ns*mean*mean)/(ns-1))) / math.Sqrt(se2[i]/ns)
 			if inRamp(x) && !inRamp(y) {

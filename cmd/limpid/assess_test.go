@@ -15,8 +15,8 @@ import (
 
 // TestSimulateCLI: simulate keeps the georeferencing and band descriptions,
 // maps the reference's NaN nodata to the UInt16 maximum, records what it did
-// in metadata that describes its pixels, and a seed reproduces the file byte
-// for byte.
+// in metadata that describes its pixels, and the same --seed reproduces the
+// file byte for byte.
 // Source: GDAL's gdalinfo -json (gdal-bin 3.6) on input and output; the
 // noise model definitions (DN = G Poisson(s/G) + N(0, R^2), variance
 // G s + R^2, plus 1/12 for rounding to integers: Sheppard, Proc. London

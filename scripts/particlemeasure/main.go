@@ -178,7 +178,7 @@ var variants = []variant{
 }
 
 // variance measures the Monte Carlo error of the variants at K = 16 on a
-// 96x96 crop of each scene: the RMS over pixels of the spread over 8 seeds.
+// 96x96 crop of each scene: the RMS over pixels of the spread over 8 runs.
 func variance(md *strings.Builder, scenes []scene) error {
 	const n = 96
 	for _, s := range scenes {
@@ -197,9 +197,9 @@ func variance(md *strings.Builder, scenes []scene) error {
 		if _, err := g.Solve(context.Background(), &step.Workspace{}, &step.Problem{D: append([]float32(nil), d...), Mask: ones(n * n), W: n, H: n}, gf); err != nil {
 			return err
 		}
-		fmt.Fprintf(md, "\nVariance reductions at K = 16, %s, 96x96 crop, smooth %.1f, 50 iterations; MC error = RMS over pixels of the spread over %d seeds; efficiency = baseline (error^2 x time) / variant's (> 1 is better); grid EMS at 50 iterations: PSNR %.2f dB:\n\n",
-			s.name, step.DefaultSmooth, mcSeeds, step.PSNR(ref, gf, nil, s.L))
-		fmt.Fprintf(md, "| variant | MC error (DN) | time per run (ms) | efficiency | PSNR of the mean over seeds (dB) |\n|---|---|---|---|---|\n")
+		fmt.Fprintf(md, "\nVariance reductions at K = 16, %s, 96x96 crop, smooth %.1f, 50 iterations; MC error = RMS over pixels of the spread over %d runs; efficiency = baseline (error^2 x time) / variant's (> 1 is better); grid EMS at 50 iterations: PSNR %.2f dB:\n\n",
+			s.name, step.DefaultSmooth, mcRuns, step.PSNR(ref, gf, nil, s.L))
+		fmt.Fprintf(md, "| variant | MC error (DN) | time per run (ms) | efficiency | PSNR of the mean over runs (dB) |\n|---|---|---|---|---|\n")
 		var base float64
 		for vi, v := range variants {
 			mcErr, ms, mean, err := mcError(s.k, d, n, v)
@@ -216,19 +216,19 @@ func variance(md *strings.Builder, scenes []scene) error {
 	return nil
 }
 
-// mcSeeds is the number of independent runs per variant.
-const mcSeeds = 8
+// mcRuns is the number of independent runs per variant.
+const mcRuns = 8
 
-// mcError runs one variant mcSeeds times on d and returns the RMS over
+// mcError runs one variant mcRuns times on d and returns the RMS over
 // pixels of the spread over runs, the time per run (ms) and the mean image.
 func mcError(k *psf.Kernel, d []float32, n int, v variant) (float64, float64, []float32, error) {
 	sk := step.SmoothingKernel(step.DefaultSmooth)
 	sum, sq := make([]float64, n*n), make([]float64, n*n)
 	var el time.Duration
 	var ws step.Workspace
-	for seed := 0; seed < mcSeeds; seed++ {
+	for r := 0; r < mcRuns; r++ {
 		pe := &step.ParticleEMS{H: step.NewConv(k), PSF: k, SmoothX: sk, SmoothY: sk, Iterations: step.DefaultIterations, PerPixel: 16,
-			ESSThreshold: step.DefaultESSThreshold, BurnIn: step.DefaultIterations / 2, Batches: 5, Seed: uint64(seed + 1)}
+			ESSThreshold: step.DefaultESSThreshold, BurnIn: step.DefaultIterations / 2, Batches: 5, Seed: uint64(r + 1)}
 		v.set(pe)
 		f := make([]float32, n*n)
 		t0 := time.Now()
@@ -244,11 +244,11 @@ func mcError(k *psf.Kernel, d []float32, n int, v variant) (float64, float64, []
 	var v2 float64
 	mean := make([]float32, n*n)
 	for i := range sum {
-		m := sum[i] / mcSeeds
+		m := sum[i] / mcRuns
 		mean[i] = float32(m)
-		v2 += math.Max(0, sq[i]-mcSeeds*m*m) / (mcSeeds - 1) / float64(n*n)
+		v2 += math.Max(0, sq[i]-mcRuns*m*m) / (mcRuns - 1) / float64(n*n)
 	}
-	return math.Sqrt(v2), el.Seconds() * 1000 / mcSeeds, mean, nil
+	return math.Sqrt(v2), el.Seconds() * 1000 / mcRuns, mean, nil
 }
 
 func ones(n int) []float32 {
