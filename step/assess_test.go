@@ -257,7 +257,8 @@ func TestAssessSharpnessAndRinging(t *testing.T) {
 }
 
 // TestRingingStep: the indicator of an ideal ESF with a known overshoot.
-// Source: the indicator's definition (README, "limpid assess").
+// Checked against the indicator's definition (README, "limpid assess"), no
+// outside source.
 func TestRingingStep(t *testing.T) {
 	esf := make([]float64, 40)
 	for i := range esf {

@@ -170,12 +170,13 @@ func fallbackCases() []fallbackCase {
 // reported noise source and choice rule name the fallback taken, the chosen
 // bandwidth is a candidate (or the given one) and the stop is within the
 // cap, the scene's flux is kept, nodata stays NaN and every valid pixel is
-// finite. Source: the fallback rules of the automatic choice as
-// DEVELOPERS.md documents them ("Fallbacks": tiles more than 10 %
-// invalid use the prediction-domain estimate; too few smooth pixels give
-// Immerkaer's constant variance, Immerkaer, CVIU 64(2):300, 1996; a band
-// without usable pixels gets the given bandwidth, 50 iterations and the
-// change stop); a flat band is its own EMS fixed point (derived: H f = d
+// finite. Checked against the fallback rules of the automatic choice as
+// DEVELOPERS.md documents them ("Fallbacks": tiles more than 10 % invalid
+// use the prediction-domain estimate; too few smooth pixels give a constant
+// variance; a band without usable pixels gets the given bandwidth, 50
+// iterations and the change stop): project rules, no outside source. The
+// constant variance is Immerkaer's estimate (Source: Immerkaer, CVIU
+// 64(2):300, 1996); a flat band is its own EMS fixed point (derived: H f = d
 // for f = d constant, with a normalised PSF and symmetric boundaries).
 func TestAutoFallbacks(t *testing.T) {
 	k, _ := psf.GaussianIso(1.0)
@@ -256,8 +257,8 @@ func TestAutoWorkersIdentical(t *testing.T) {
 // tiles and stops at the first candidate whose sum rises, so one tile's
 // early exit cannot veto a bandwidth (the global choice sums the tiles'
 // curves, DEVELOPERS.md "Automatic regularisation"): the candidates skipped
-// are exactly those after the first rise of the summed risk. Source: the
-// method's definition.
+// are exactly those after the first rise of the summed risk. Checked
+// against the method's definition, no outside source.
 func TestGlobalChoiceSumsCandidates(t *testing.T) {
 	const n = 96
 	k, _ := psf.GaussianIso(1.2)
@@ -292,8 +293,8 @@ func TestGlobalChoiceSumsCandidates(t *testing.T) {
 // average whose derivative along a probe is not defined pathwise, so the
 // risk is computed on grid EMS run to the automatic cap, the recursion the
 // particle method approximates (derived in ParticleEMS's doc comment;
-// TestParticleConvergesToGrid). Source: the method's definition
-// (DEVELOPERS.md, "Particle EMS").
+// TestParticleConvergesToGrid). Checked against the method's definition
+// (DEVELOPERS.md, "Particle EMS"), no outside source.
 func TestParticleAutoBandwidth(t *testing.T) {
 	const n, its = 64, 12
 	k, _ := psf.GaussianIso(1.5)

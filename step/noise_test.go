@@ -98,8 +98,8 @@ func TestNoiseModelPoissonGaussian(t *testing.T) {
 	}
 }
 
-// Too few pixels is an error, not a panic or a made-up model.
-// Source: common practice, no source.
+// Too few pixels is an error, not a panic or a made-up model (common
+// practice, no outside source).
 func TestNoiseModelTooFewPixels(t *testing.T) {
 	var s NoiseSampler
 	s.Add(make([]float32, 16), nil, 4, 4, 0, 0, 4, 4)

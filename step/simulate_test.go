@@ -183,7 +183,7 @@ func TestSimulateBlurAndDeterminism(t *testing.T) {
 }
 
 // Noise specs parse to their model and bad ones are refused with the
-// parameter named. Source: common practice, no source (input rules).
+// parameter named (the spec's input rules, README; no outside source).
 func TestParseSimNoise(t *testing.T) {
 	good := map[string]SimNoise{
 		"poisson:gain=0.4,read=3": {Kind: "poisson", Gain: 0.4, Read: 3},

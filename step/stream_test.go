@@ -202,8 +202,8 @@ func (seSolver) Solve(_ context.Context, _ *Workspace, p *Problem, dst []float32
 	return Result{Iterations: 1, HasSE: true}, nil
 }
 
-// Source: the contract (README): a solver's standard error goes to the
-// uncertainty column at the buffer's pixels, NaN where the input is
+// The contract (README; no outside source): a solver's standard error goes
+// to the uncertainty column at the buffer's pixels, NaN where the input is
 // invalid; the Problem's Key is (band, column, row) from the tile.
 func TestRestoreTileUncertainty(t *testing.T) {
 	p, _ := NewPlan(100, 80, 32, 8)
@@ -245,8 +245,8 @@ func TestRestoreTileUncertainty(t *testing.T) {
 	}
 }
 
-// Source: the contract: tiles whose geometry is not the tiling's are refused
-// naming the column (halo and buffer rules in README).
+// The contract (README, halo and buffer rules; no outside source): tiles
+// whose geometry is not the tiling's are refused naming the column.
 func TestCheckPlan(t *testing.T) {
 	p, _ := NewPlan(100, 80, 32, 8)
 	good := arrowio.Tile{Col: 0, TileRow: 0, X: 0, Y: 0, W: 40, H: 40, HaloRight: 8, HaloBottom: 8}

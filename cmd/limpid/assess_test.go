@@ -169,8 +169,8 @@ func TestAssessCLI(t *testing.T) {
 
 // TestSimulateAssessBadInputs: one clear line, exit 2, nothing at OUTPUT.
 // The expected text names the input or flag at fault and the rule it
-// breaks (not only the argument given).
-// Source: the project's error contract (README, "Usage").
+// breaks (not only the argument given). The project's error contract
+// (README, "Exit codes"), no outside source.
 func TestSimulateAssessBadInputs(t *testing.T) {
 	dir := t.TempDir()
 	out := filepath.Join(dir, "o.tif")

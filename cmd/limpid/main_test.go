@@ -314,7 +314,7 @@ func TestBadInputs(t *testing.T) {
 	}
 }
 
-// Source: the fixture's simulation (cmd/limpid/demo.go: Poisson-Gaussian
+// Reference: the fixture's simulation (cmd/limpid/demo.go: Poisson-Gaussian
 // noise of gain 0.4 DN per electron and read noise 3 DN, 12-bit rounding),
 // so the variance is 0.4 DN + 9.08. The fitted slope must be within 10 %
 // (the noise model's accuracy bar is 0.9-1.1 on the variance); the offset is

@@ -80,8 +80,8 @@ func atof(t *testing.T, s string) float64 {
 
 // psf measure on the committed demo scene (testdata/valley256: the
 // invented Brannock Vale, PSF gaussian:sigma=1.4, calibration tarp edge
-// turned 4 degrees). Source: the generator's known PSF; the tolerance is the
-// project's 5 % acceptance bar for the scene.
+// turned 4 degrees). Reference: the generator's known PSF (no outside
+// source); the tolerance is the project's 5 % acceptance bar for the scene.
 func TestPSFMeasureDemoTarp(t *testing.T) {
 	const tolScene = 0.05
 	dir := t.TempDir()
@@ -179,7 +179,7 @@ func TestPSFMeasureBadInputs(t *testing.T) {
 }
 
 // --auto finds the demo scene's tarp edge and recovers the demo PSF.
-// Source: the generator's known PSF (gaussian:sigma=1.4, cmd/limpid/demo.go)
+// Reference: the generator's known PSF (gaussian:sigma=1.4, cmd/limpid/demo.go)
 // and tarp geometry (step/synth.go: centre (0.72 w, 0.22 h), turned 4
 // degrees); the tolerance is the project's 5 % acceptance bar.
 func TestPSFMeasureAutoFindsTarp(t *testing.T) {
@@ -248,8 +248,8 @@ func renderEdge(w, h int, x0, thetaDeg, s float64) []float64 {
 // Two edges, near-vertical and near-horizontal, of an anisotropic system
 // give sigma_x and sigma_y, by --edge windows and by --auto (invented
 // scene: two calibration panels of the fictional Orrin Flats range).
-// Source: the rendered sigmas; tolerance the project's 3 % acceptance bar
-// for synthetic edges (at SNR 100 here).
+// Reference: the rendered sigmas (no outside source); tolerance the
+// project's 3 % acceptance bar for synthetic edges (at SNR 100 here).
 func TestPSFMeasureTwoAxes(t *testing.T) {
 	const tolSigma = 0.03
 	const sx, sy = 0.9, 1.3
@@ -305,9 +305,9 @@ func TestPSFMeasureTwoAxes(t *testing.T) {
 }
 
 // restore --psf auto measures the demo PSF from the scene (the tarp edge)
-// and records it; a scene without edges fails with one clear line. Source:
-// the generator's PSF gaussian:sigma=1.4 (demo.go), the project's 5 %
-// acceptance bar.
+// and records it; a scene without edges fails with one clear line.
+// Reference: the generator's PSF gaussian:sigma=1.4 (demo.go; no outside
+// source), the project's 5 % acceptance bar.
 func TestRestorePSFAuto(t *testing.T) {
 	dir := t.TempDir()
 	out, rep := filepath.Join(dir, "r.tif"), filepath.Join(dir, "r.json")
