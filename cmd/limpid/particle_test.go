@@ -97,64 +97,73 @@ func TestParticleUncertaintyRaster(t *testing.T) {
 		if w != "1" {
 			continue
 		}
-		in, got := gdalinfo(t, out), gdalinfo(t, u)
-		for _, key := range []string{"geoTransform", "size", "coordinateSystem"} {
-			if mustJSON(in[key]) != mustJSON(got[key]) {
-				t.Errorf("%s: image %s, uncertainty %s", key, mustJSON(in[key]), mustJSON(got[key]))
-			}
-		}
-		ib, ub := in["bands"].([]any), got["bands"].([]any)
-		if len(ub) != 2 {
-			t.Fatalf("uncertainty has %d bands", len(ub))
-		}
-		for i := range ub {
-			bi, bu := ib[i].(map[string]any), ub[i].(map[string]any)
-			if bu["type"] != "Float32" || bu["description"] != bi["description"] || mustJSON(bu["noDataValue"]) != `"NaN"` {
-				t.Errorf("band %d: %s", i+1, mustJSON(bu))
-			}
-		}
-		var r struct {
-			Uncertainty string `json:"uncertainty"`
-			Restoration struct {
-				Method   string `json:"method"`
-				Particle struct {
-					PerPixel int `json:"particles_per_pixel"`
-					Bands    []struct {
-						MeanSE float64 `json:"mean_standard_error"`
-					} `json:"bands"`
-				} `json:"particle"`
-			} `json:"restoration"`
-		}
-		rb, _ := os.ReadFile(rep)
-		if err := json.Unmarshal(rb, &r); err != nil {
-			t.Fatal(err)
-		}
-		if r.Uncertainty != u || r.Restoration.Method != "particle" || r.Restoration.Particle.PerPixel != 2 || len(r.Restoration.Particle.Bands) != 2 {
-			t.Fatalf("report: %s", rb)
-		}
-		_, planes, err := readAll(u)
-		if err != nil {
-			t.Fatal(err)
-		}
-		for bi, pl := range planes {
-			var s float64
-			var nv int
-			for _, v := range pl {
-				if !math.IsNaN(float64(v)) {
-					s += float64(v)
-					nv++
-				}
-			}
-			// The report's mean is over the same valid pixels in float64;
-			// the raster holds float32 values (relative rounding 6e-8
-			// each): relative 1e-6.
-			const meanTol = 1e-6
-			if m := s / float64(nv); math.Abs(m-r.Restoration.Particle.Bands[bi].MeanSE) > meanTol*m || !(m > 0) {
-				t.Errorf("band %d: raster mean SE %g, report %g", bi+1, m, r.Restoration.Particle.Bands[bi].MeanSE)
-			}
-		}
+		checkUncertaintyRaster(t, out, u, rep)
 	}
 	if !bytes.Equal(img[0], img[1]) || !bytes.Equal(unc[0], unc[1]) {
 		t.Fatal("--workers 2 output differs from --workers 1")
+	}
+}
+
+// checkUncertaintyRaster compares the uncertainty raster u with the image
+// out (gdalinfo -json: grid, CRS, bands in Float32 with NaN nodata) and the
+// report rep's particle parameters and mean standard error with the
+// raster's own mean.
+func checkUncertaintyRaster(t *testing.T, out, u, rep string) {
+	t.Helper()
+	in, got := gdalinfo(t, out), gdalinfo(t, u)
+	for _, key := range []string{"geoTransform", "size", "coordinateSystem"} {
+		if mustJSON(in[key]) != mustJSON(got[key]) {
+			t.Errorf("%s: image %s, uncertainty %s", key, mustJSON(in[key]), mustJSON(got[key]))
+		}
+	}
+	ib, ub := in["bands"].([]any), got["bands"].([]any)
+	if len(ub) != 2 {
+		t.Fatalf("uncertainty has %d bands", len(ub))
+	}
+	for i := range ub {
+		bi, bu := ib[i].(map[string]any), ub[i].(map[string]any)
+		if bu["type"] != "Float32" || bu["description"] != bi["description"] || mustJSON(bu["noDataValue"]) != `"NaN"` {
+			t.Errorf("band %d: %s", i+1, mustJSON(bu))
+		}
+	}
+	var r struct {
+		Uncertainty string `json:"uncertainty"`
+		Restoration struct {
+			Method   string `json:"method"`
+			Particle struct {
+				PerPixel int `json:"particles_per_pixel"`
+				Bands    []struct {
+					MeanSE float64 `json:"mean_standard_error"`
+				} `json:"bands"`
+			} `json:"particle"`
+		} `json:"restoration"`
+	}
+	rb, _ := os.ReadFile(rep)
+	if err := json.Unmarshal(rb, &r); err != nil {
+		t.Fatal(err)
+	}
+	if r.Uncertainty != u || r.Restoration.Method != "particle" || r.Restoration.Particle.PerPixel != 2 || len(r.Restoration.Particle.Bands) != 2 {
+		t.Fatalf("report: %s", rb)
+	}
+	_, planes, err := readAll(u)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for bi, pl := range planes {
+		var s float64
+		var nv int
+		for _, v := range pl {
+			if !math.IsNaN(float64(v)) {
+				s += float64(v)
+				nv++
+			}
+		}
+		// The report's mean is over the same valid pixels in float64;
+		// the raster holds float32 values (relative rounding 6e-8
+		// each): relative 1e-6.
+		const meanTol = 1e-6
+		if m := s / float64(nv); math.Abs(m-r.Restoration.Particle.Bands[bi].MeanSE) > meanTol*m || !(m > 0) {
+			t.Errorf("band %d: raster mean SE %g, report %g", bi+1, m, r.Restoration.Particle.Bands[bi].MeanSE)
+		}
 	}
 }
