@@ -6,6 +6,7 @@ import (
 
 	"limpid/psf"
 	"limpid/step/conv"
+	"limpid/step/mix"
 	"limpid/step/noise"
 )
 
@@ -174,14 +175,14 @@ func setupRisk(aw *autoWork, p *Problem, nm *noise.Model, rw *riskWeights, seed 
 	aw.reset(w, h)
 	rp := &riskProblem{p: p, infl: infl}
 	rp.nValid, rp.flux = Prepare(p)
-	stream := seed*0x9e3779b97f4a7c15 ^ tileStream(p.Key)
+	stream := seed*mix.Golden ^ mix.ProbeStream(p.Key.Band, p.Key.Col, p.Key.Row)
 	var mean float64
 	for i := 0; i < n; i++ {
 		if p.Mask[i] == 0 {
 			aw.delta[i], aw.v[i] = 0, 0
 			continue
 		}
-		if mix64(stream^uint64(i))&1 == 0 {
+		if mix.Counter(stream^uint64(i))&1 == 0 {
 			aw.delta[i] = 1
 		} else {
 			aw.delta[i] = -1
@@ -224,21 +225,6 @@ func setupRisk(aw *autoWork, p *Problem, nm *noise.Model, rw *riskWeights, seed 
 	}
 	aw.dct.Inverse(aw.gv, aw.F)
 	return rp
-}
-
-// tileStream mixes a tile key into one 64-bit stream selector.
-func tileStream(k TileKey) uint64 {
-	return mix64(uint64(k.Band)*0x100000001b3 ^ uint64(k.Col)<<21 ^ uint64(k.Row)<<42)
-}
-
-// mix64 is the SplitMix64 finaliser (Steele, Lea & Flood, OOPSLA 2014): a
-// counter-based source of random bits, so a pixel's probe sign depends only
-// on the tile, the pixel and the seed, never on the scheduler.
-func mix64(x uint64) uint64 {
-	x += 0x9e3779b97f4a7c15
-	x = (x ^ x>>30) * 0xbf58476d1ce4e5b9
-	x = (x ^ x>>27) * 0x94d049bb133111eb
-	return x ^ x>>31
 }
 
 // runRisk runs EMS with eps = g.S's bandwidth and its derivative for up to

@@ -30,10 +30,12 @@ func ones(n int) []float32 {
 	return m
 }
 
-// Source: Shepp & Vardi, IEEE TMI 1:113 (1982), EM keeps the total count;
-// GUIDE section 2 (flux): with b = 0, no mask, a normalised symmetric PSF and
-// half-sample symmetric boundaries, sum(f_k) == sum(d) for every k, and
-// sum(H f_k+1) == sum(d) holds for Richardson-Lucy under any kernel.
+// Source: Shepp & Vardi, IEEE TMI 1:113 (1982), EM keeps the total count.
+// Derived for limpid's boundaries: with b = 0, no mask, a normalised
+// symmetric PSF and half-sample symmetric boundaries the columns of H sum
+// to 1, so sum(f_k) == sum(d) for every k; sum(H f_k+1) == sum(d) holds for
+// Richardson-Lucy under any kernel (sum(H e) = sum(s e) = sum(d) by the EM
+// identity with the exact adjoint).
 func TestEMSFlux(t *testing.T) {
 	// Sums of 4096 float32 values ~1e3 each: float32 rounding per operation
 	// (6e-8) accumulated over ~30 iterations of a handful of operations
@@ -78,6 +80,13 @@ func TestEMSFlux(t *testing.T) {
 	}
 }
 
+// convergedChange stops the fixed-point runs: once converged, the float32
+// iterates' relative L1 change per iteration stalls at 3e-9 - 2e-8 (float32
+// rounding; measured), so 1e-7 stops at convergence (after 15-90
+// iterations here) and the variances agree with those after 20000
+// iterations to 2e-6 relative (measured), 500x inside the 1e-3 bar.
+const convergedChange = 1e-7
+
 // fixedPointVariance solves s^3 - (a-b+eps^2)s^2 - 2 eps^2 b s - eps^2 b^2 = 0.
 func fixedPointVariance(sf, sg, eps float64) float64 {
 	a, b, e2 := sf*sf+sg*sg, sg*sg, eps*eps
@@ -97,29 +106,39 @@ func fixedPointVariance(sf, sg, eps float64) float64 {
 	return 0.5 * (lo + hi)
 }
 
-// Source: GUIDE section 2, Gaussian EMS fixed point, derived from the EMS
-// definition of Silverman et al. (JRSS-B 52:271, 1990). Check values
-// (sf, sg, eps -> s) are the GUIDE's; the cubic reproduces them first.
+// Source: the EMS definition of Silverman, Jones, Wilson & Nychka (JRSS-B
+// 52:271, 1990); the fixed point is derived: for an object N(0, sf^2) seen
+// through a PSF N(0, b = sg^2), the data are N(0, a = sf^2 + sg^2); a
+// Gaussian iterate f = N(0, s) gives d / (H f) Gaussian-shaped with variance
+// V = a (s + b) / (s + b - a), H^T of it V + b, the product with f
+// s (V + b) / (s + V + b), and S adds eps^2. Setting that to s gives
+// s^3 - (a - b + eps^2) s^2 - 2 eps^2 b s - eps^2 b^2 = 0 (one positive
+// root). Check values (sf, sg, eps -> s) of that cubic; the test's own root
+// finder reproduces them first.
 func TestGaussianFixedPoint(t *testing.T) {
 	cases := []struct{ sf, sg, eps, want float64 }{
 		{1, 1, 0.5, 1.646032}, {2, 1, 0.5, 4.377274}, {1, 2, 0.3, 1.880246}, {0.5, 1.5, 0.2, 0.815359},
 	}
+	// The check values have 6 decimals (half a unit in the last place is
+	// 5e-7); the bisection is exact to float64 rounding.
+	const checkTol = 1e-6
 	for _, c := range cases {
-		if got := fixedPointVariance(c.sf, c.sg, c.eps); math.Abs(got-c.want) > 1e-6 {
-			t.Fatalf("cubic (%g,%g,%g) = %.6f, GUIDE %.6f", c.sf, c.sg, c.eps, got, c.want)
+		if got := fixedPointVariance(c.sf, c.sg, c.eps); math.Abs(got-c.want) > checkTol {
+			t.Fatalf("cubic (%g,%g,%g) = %.6f, check value %.6f", c.sf, c.sg, c.eps, got, c.want)
 		}
 	}
-	// The discretisation: Z pixels per unit, so point-sampled Gaussians have
+	// The discretisation: z pixels per unit, so point-sampled Gaussians have
 	// sigma >= 2 pixels and their discrete variance equals sigma^2 to
 	// ~exp(-2 pi^2 sigma^2) (Poisson summation); the domain spans +-8 data
-	// standard deviations. Relative tolerance 1e-3 as the issue asks.
+	// standard deviations. Relative tolerance 1e-3: the project's
+	// acceptance bar, far above the discretisation error.
 	const tol = 1e-3
 	const z = 10.0
 	for _, c := range cases {
 		d, H := fixedPointData(t, c.sf, c.sg, z)
 		n := len(d)
 		sk := conv.SmoothingKernel(c.eps * z)
-		g := &GridEMS{H: conv.New(H), S: conv.NewSeparable(sk, []float64{1}), Iterations: 20000, Tolerance: 1e-9}
+		g := &GridEMS{H: conv.New(H), S: conv.NewSeparable(sk, []float64{1}), Iterations: 20000, Tolerance: convergedChange}
 		f, res := solve(t, g, d, ones(n), n, 1, 0)
 		got := variance1D(f) / (z * z)
 		if math.Abs(got-c.want) > tol*c.want {
@@ -146,11 +165,17 @@ func variance1D(f []float32) float64 {
 // Source: as TestGaussianFixedPoint; a separable 2-D Gaussian problem splits
 // into independent axes, so each axis must reach its own 1-D fixed point.
 func TestGaussianFixedPoint2D(t *testing.T) {
-	const tol = 1e-3 // as the issue asks
+	const tol = 1e-3 // the project's acceptance bar, as in 1-D
 	const z = 5.0    // pixels per unit; every sampled Gaussian has sigma >= 1 px
 	pairs := [][2]struct{ sf, sg, eps, want float64 }{
 		{{1, 1, 0.5, 1.646032}, {2, 1, 0.5, 4.377274}},
 		{{1, 2, 0.3, 1.880246}, {0.5, 1.5, 0.2, 0.815359}},
+	}
+	if !long() {
+		// The second pair (its four-fold cost: 89 iterations on 181 x
+		// 129) runs with LIMPID_LONG; TestGaussianFixedPoint checks its
+		// values in 1-D.
+		pairs = pairs[:1]
 	}
 	for _, pr := range pairs {
 		cx, cy := pr[0], pr[1]
@@ -169,7 +194,7 @@ func TestGaussianFixedPoint2D(t *testing.T) {
 			t.Fatal(err)
 		}
 		g := &GridEMS{H: conv.New(H), S: conv.NewSeparable(conv.SmoothingKernel(cx.eps*z), conv.SmoothingKernel(cy.eps*z)),
-			Iterations: 20000, Tolerance: 1e-9}
+			Iterations: 20000, Tolerance: convergedChange}
 		f, res := solve(t, g, d, ones(w*h), w, h, 0)
 		col := make([]float32, h)
 		row := make([]float32, w)

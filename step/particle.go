@@ -11,6 +11,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/mix"
 	"limpid/step/resample"
 )
 
@@ -319,17 +320,9 @@ func (pw *particleWork) reset(np, n int) {
 	}
 }
 
-// TileStream is the second PCG seed word of a tile: a mix of (band, column,
-// row) (SplitMix64 finaliser; Steele, Lea & Flood, OOPSLA 2014).
-func TileStream(k TileKey) uint64 {
-	x := uint64(k.Band+1)*0x9E3779B97F4A7C15 ^ uint64(k.Col+1)*0xC2B2AE3D27D4EB4F ^ uint64(k.Row+1)*0x165667B19E3779F9
-	x ^= x >> 30
-	x *= 0xBF58476D1CE4E5B9
-	x ^= x >> 27
-	x *= 0x94D049BB133111EB
-	x ^= x >> 31
-	return x
-}
+// TileStream is the second PCG word of a tile's particle system
+// (mix.ParticleStream).
+func TileStream(k TileKey) uint64 { return mix.ParticleStream(k.Band, k.Col, k.Row) }
 
 // subpixel returns a sub-pixel offset in (0, 1), an odd multiple of 1/256,
 // from 7 random bits: float32 coordinates below 2^16 (any tile with its
@@ -647,7 +640,7 @@ func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst
 	clear(pw.rm2)
 	var res Result
 	for g := 0; g < G; g++ {
-		r, err := pe.run(ctx, ws, p, nValid, flux, pe.PerPixel/G, TileStream(p.Key)^(uint64(g)*0x9E3779B97F4A7C15), dst, nil)
+		r, err := pe.run(ctx, ws, p, nValid, flux, pe.PerPixel/G, TileStream(p.Key)^(uint64(g)*mix.Golden), dst, nil)
 		if err != nil {
 			return r, err
 		}

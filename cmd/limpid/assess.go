@@ -8,7 +8,7 @@ import (
 	"github.com/urfave/cli/v2"
 
 	"limpid/raster"
-	"limpid/step"
+	"limpid/step/assess"
 )
 
 // assess: judge a restoration (README, "limpid assess", has the metric
@@ -39,7 +39,7 @@ else the reference's max - min over valid pixels, per band.`,
 			if c.NArg() != 2 {
 				return usagef("assess needs OBSERVED and RESTORED after the flags (got %d arguments); flags after the arguments are not read", c.NArg())
 			}
-			if c.IsSet("data-range") && step.CheckDataRange(c.Float64("data-range")) != nil {
+			if c.IsSet("data-range") && assess.CheckDataRange(c.Float64("data-range")) != nil {
 				return usagef("--data-range %g must be a positive number", c.Float64("data-range"))
 			}
 			rep, err := assessFiles(c.Args().Get(0), c.Args().Get(1), c.String("reference"), c.Float64("data-range"))
@@ -141,10 +141,10 @@ func assessFiles(obsPath, resPath, refPath string, L float64) (*assessReport, er
 		if ref != nil {
 			rb = ref[b]
 			if peak <= 0 {
-				peak = step.AssessPeak(mf.DataType, rb, valid)
+				peak = assess.Peak(mf.DataType, rb, valid)
 			}
 		}
-		a := step.Assess(obs[b], res[b], rb, valid, w, h, peak)
+		a := assess.Measure(obs[b], res[b], rb, valid, w, h, peak)
 		row := map[string]any{
 			"band": b + 1, "valid_pixels": a.Pixels,
 			"noise_observed": finite(a.NoiseObserved), "noise_restored": finite(a.NoiseRestored), "noise_rule": a.NoiseRule,

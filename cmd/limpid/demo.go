@@ -14,7 +14,9 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/assess"
 	"limpid/step/conv"
+	"limpid/step/scene"
 )
 
 // The demo scenario: Brannock Vale, an invented farming valley. The
@@ -63,7 +65,7 @@ DIR/report.json, then prints PSNR and SSIM of observed and restored against the 
 
 // DemoScene writes the valley's reference and observation as GeoTIFFs.
 func DemoScene(dir string, n int) (refPath, obsPath string, err error) {
-	ref, valid := step.ValleyReference(n, n)
+	ref, valid := scene.ValleyReference(n, n)
 	k, err := psf.Parse(demoPSF, psf.Env{})
 	if err != nil {
 		return "", "", err
@@ -72,7 +74,7 @@ func DemoScene(dir string, n int) (refPath, obsPath string, err error) {
 	rng := rand.New(rand.NewPCG(2026, 12))
 	obs := make([][]float32, len(ref))
 	for b := range ref {
-		obs[b] = step.Degrade(ref[b], valid, n, n, H, step.Noise{Gain: demoGain, Read: demoReadNoise}, rng)
+		obs[b] = scene.Degrade(ref[b], valid, n, n, H, scene.Sensor{Gain: demoGain, Read: demoReadNoise}, rng)
 		for i, v := range obs[b] {
 			if valid[i] {
 				obs[b][i] = float32(math.Min(demoDataMax, math.Max(1, math.Round(float64(v)))))
@@ -89,7 +91,7 @@ func DemoScene(dir string, n int) (refPath, obsPath string, err error) {
 		Geo:      raster.Geo{Transform: [6]float64{demoOriginX, demoPixel, 0, demoOriginY, 0, -demoPixel}, HasTransform: true, WKT: wkt},
 		Metadata: map[string]string{"SCENE": "Brannock Vale (invented demo scene)", "LIMPID_DEMO_PSF": demoPSF}}
 	interp := []string{"Blue", "Green", "Red", "Undefined"}
-	for i, name := range step.ValleyBands {
+	for i, name := range scene.ValleyBands {
 		meta.Bands = append(meta.Bands, raster.BandInfo{Description: name, ColorInterp: interp[i], NoData: 0, HasNoData: true})
 	}
 	refMeta := meta
@@ -171,17 +173,17 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 	for i, b := range rep.Bands {
 		if b.Choice != nil && b.Noise != nil {
 			fmt.Fprintf(stdout, "  %-5s noise var = %.3f DN + %.1f; chosen smooth %g, %d iterations\n",
-				step.ValleyBands[i], b.Noise.A, b.Noise.B, b.Choice.Smooth, b.Choice.Iterations)
+				scene.ValleyBands[i], b.Noise.A, b.Noise.B, b.Choice.Smooth, b.Choice.Iterations)
 		}
 	}
 	if part != nil {
 		part.printSideBySide(stdout, ref, obs, res, valid, n)
 	} else {
 		fmt.Fprintf(stdout, "%-6s %14s %14s %13s %13s\n", "band", "PSNR observed", "PSNR restored", "SSIM observed", "SSIM restored")
-		for b, name := range step.ValleyBands {
+		for b, name := range scene.ValleyBands {
 			fmt.Fprintf(stdout, "%-6s %11.2f dB %11.2f dB %13.4f %13.4f\n", name,
-				step.PSNR(ref[b], obs[b], valid, demoDataMax), step.PSNR(ref[b], res[b], valid, demoDataMax),
-				step.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), step.SSIM(ref[b], res[b], valid, n, n, demoDataMax))
+				assess.PSNR(ref[b], obs[b], valid, demoDataMax), assess.PSNR(ref[b], res[b], valid, demoDataMax),
+				assess.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), assess.SSIM(ref[b], res[b], valid, n, n, demoDataMax))
 		}
 	}
 	ql := filepath.Join(dir, "quicklook.png")

@@ -9,6 +9,8 @@ import (
 
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/assess"
+	"limpid/step/scene"
 )
 
 // demoParticleRun is the demo's particle restoration.
@@ -61,10 +63,10 @@ func (p *demoParticleRun) printSideBySide(w io.Writer, ref, obs, grid [][]float3
 		pr.PerPixel, pr.BurnIn, pr.SEMethod, p.rep.WallSeconds)
 	fmt.Fprintf(w, "%-6s %24s %24s %17s\n", "", "PSNR (dB)", "SSIM", "particle MC error")
 	fmt.Fprintf(w, "%-6s %8s %7s %8s %8s %7s %8s %10s %6s\n", "band", "observed", "grid", "particle", "observed", "grid", "particle", "DN", "%")
-	for b, name := range step.ValleyBands {
+	for b, name := range scene.ValleyBands {
 		fmt.Fprintf(w, "%-6s %8.2f %7.2f %8.2f %8.4f %7.4f %8.4f %10.2f %6.1f\n", name,
-			step.PSNR(ref[b], obs[b], valid, demoDataMax), step.PSNR(ref[b], grid[b], valid, demoDataMax), step.PSNR(ref[b], p.res[b], valid, demoDataMax),
-			step.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), step.SSIM(ref[b], grid[b], valid, n, n, demoDataMax), step.SSIM(ref[b], p.res[b], valid, n, n, demoDataMax),
+			assess.PSNR(ref[b], obs[b], valid, demoDataMax), assess.PSNR(ref[b], grid[b], valid, demoDataMax), assess.PSNR(ref[b], p.res[b], valid, demoDataMax),
+			assess.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), assess.SSIM(ref[b], grid[b], valid, n, n, demoDataMax), assess.SSIM(ref[b], p.res[b], valid, n, n, demoDataMax),
 			pr.Bands[b].MeanSE, 100*pr.Bands[b].RelativeSE)
 	}
 	fmt.Fprintf(w, "particle outputs: %s, %s, %s\n", p.paths[0], p.paths[1], p.paths[2])

@@ -17,9 +17,9 @@ import (
 )
 
 // psf build writes a kernel readable by --psf kernel:PATH (text and
-// GeoTIFF) and the MTF CSV. Source: the Gaussian MTF
-// exp(-2 pi^2 sigma^2 f^2) (the Fourier transform of a Gaussian PSF) at
-// Nyquist: sigma 1.0 -> 0.0072 (the model column) and the Poisson summation
+// GeoTIFF) and the MTF CSV. Source: derived: the Gaussian's Fourier
+// transform exp(-2 pi^2 sigma^2 f^2) at Nyquist (f = 1/2) and sigma 1 is
+// exp(-pi^2 / 2) = 0.0072 (the model column); the Poisson summation
 // formula for the kernel column: the DTFT of a point-sampled Gaussian at
 // f = 1/2 is sum_m T(1/2 + m) = 2 T(1/2) + O(T(3/2)), so 0.0144 (derived);
 // 4-decimal values, the 4-sigma truncation moves them by < 1e-4 (derived).
@@ -81,9 +81,8 @@ func atof(t *testing.T, s string) float64 {
 
 // psf measure on the committed demo scene (testdata/valley256: the
 // invented Brannock Vale, PSF gaussian:sigma=1.4, calibration tarp edge
-// turned 4 degrees). Source: the generator's known PSF; the tolerance, 5 %
-// on a natural scene, is limpid's accuracy requirement for the measurement
-// (a project requirement, not a published figure).
+// turned 4 degrees). Reference: the generator's known PSF (no outside
+// source); the tolerance is the project's 5 % acceptance bar for the scene.
 func TestPSFMeasureDemoTarp(t *testing.T) {
 	const tolScene = 0.05
 	dir := t.TempDir()
@@ -144,9 +143,9 @@ func TestPSFMeasureDemoTarp(t *testing.T) {
 	}
 }
 
-// Bad inputs exit 2 with one clear line naming the input. Source: the
-// refusals psf measure documents (README) and the project rules (exit 2,
-// one line, no half-written output).
+// Bad inputs exit 2 with one clear line naming the input: the project's
+// error contract (README "Usage": exit 2, one line, no half-written output).
+// No outside source.
 func TestPSFMeasureBadInputs(t *testing.T) {
 	dir := t.TempDir()
 	js := filepath.Join(dir, "m.json")
@@ -181,11 +180,9 @@ func TestPSFMeasureBadInputs(t *testing.T) {
 }
 
 // --auto finds the demo scene's tarp edge and recovers the demo PSF.
-// Source: the generator's known PSF (gaussian:sigma=1.4, cmd/limpid/demo.go)
+// Reference: the generator's known PSF (gaussian:sigma=1.4, cmd/limpid/demo.go)
 // and tarp geometry (step/synth.go: centre (0.72 w, 0.22 h), turned 4
-// degrees); the tolerance, 5 % on a natural scene, is limpid's accuracy
-// requirement for the measurement (a project requirement, not a published
-// figure).
+// degrees); the tolerance is the project's 5 % acceptance bar.
 func TestPSFMeasureAutoFindsTarp(t *testing.T) {
 	const tolScene = 0.05
 	js := filepath.Join(t.TempDir(), "a.json")
@@ -220,8 +217,8 @@ func TestPSFMeasureAutoFindsTarp(t *testing.T) {
 	if !tarp {
 		t.Errorf("the tarp edge is not among the edges found:\n%s", out)
 	}
-	// A scene without edges: --auto fails with a clear message (documented
-	// behaviour, README).
+	// A scene without edges: --auto fails with a clear message (the
+	// error contract).
 	code, _, errs = limpid(t, nil, "psf", "measure", "--auto", flatScene(t, t.TempDir()))
 	if code != 2 || !strings.Contains(errs, "no usable edge") {
 		t.Errorf("flat scene: exit %d, %q", code, errs)
@@ -252,9 +249,8 @@ func renderEdge(w, h int, x0, thetaDeg, s float64) []float64 {
 // Two edges, near-vertical and near-horizontal, of an anisotropic system
 // give sigma_x and sigma_y, by --edge windows and by --auto (invented
 // scene: two calibration panels of the fictional Orrin Flats range).
-// Source: the rendered sigmas; the tolerance, 3 % on synthetic edges (at
-// SNR 100 here), is limpid's accuracy requirement for the measurement (a
-// project requirement, not a published figure).
+// Reference: the rendered sigmas (no outside source); tolerance the
+// project's 3 % acceptance bar for synthetic edges (at SNR 100 here).
 func TestPSFMeasureTwoAxes(t *testing.T) {
 	const tolSigma = 0.03
 	const sx, sy = 0.9, 1.3
@@ -310,9 +306,9 @@ func TestPSFMeasureTwoAxes(t *testing.T) {
 }
 
 // restore --psf auto measures the demo PSF from the scene (the tarp edge)
-// and records it; a scene without edges fails with one clear line. Source:
-// the generator's PSF gaussian:sigma=1.4 (demo.go); the tolerance as in
-// TestPSFMeasureDemoTarp.
+// and records it; a scene without edges fails with one clear line.
+// Reference: the generator's PSF gaussian:sigma=1.4 (demo.go; no outside
+// source), the project's 5 % acceptance bar.
 func TestRestorePSFAuto(t *testing.T) {
 	dir := t.TempDir()
 	out, rep := filepath.Join(dir, "r.tif"), filepath.Join(dir, "r.json")
@@ -330,7 +326,7 @@ func TestRestorePSFAuto(t *testing.T) {
 		t.Fatal(err)
 	}
 	var sx, sy float64
-	const tolScene = 0.05 // as in TestPSFMeasureDemoTarp
+	const tolScene = 0.05 // the project's acceptance bar for the demo scene
 	if _, err := fmt.Sscanf(r.Step.PSF, "gaussian:sx=%g,sy=%g", &sx, &sy); err != nil || math.Abs(sx-1.4) > tolScene*1.4 {
 		t.Errorf("recorded PSF %q", r.Step.PSF)
 	}

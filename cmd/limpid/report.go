@@ -19,6 +19,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/assess"
 )
 
 // restore --report-html: one self-contained page (images inline as base64
@@ -166,7 +167,7 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 
 // cropMetrics runs step.Assess (no reference) on the centre window of at most
 // reportMetricSide pixels a side of every output band.
-func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessment, string, error) {
+func cropMetrics(inPath string, bands []int, outPath string) ([]assess.Band, string, error) {
 	ro, err := gdal.Open(inPath)
 	if err != nil {
 		return nil, "", err
@@ -180,7 +181,7 @@ func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessm
 	mo, mr := ro.Meta(), rr.Meta()
 	cw, ch := min(mr.Width, reportMetricSide), min(mr.Height, reportMetricSide)
 	x0, y0 := (mr.Width-cw)/2, (mr.Height-ch)/2
-	out := make([]step.BandAssessment, len(bands))
+	out := make([]assess.Band, len(bands))
 	for i, b := range bands {
 		o, err := readBandsWindow(ro, []int{b}, x0, y0, cw, ch)
 		if err != nil {
@@ -195,7 +196,7 @@ func cropMetrics(inPath string, bands []int, outPath string) ([]step.BandAssessm
 		for k := range valid {
 			valid[k] = raster.Valid(o[0][k], bo.NoData, bo.HasNoData, 0, false) && raster.Valid(r[0][k], br.NoData, br.HasNoData, 0, false)
 		}
-		out[i] = step.Assess(o[0], r[0], nil, valid, cw, ch, 0)
+		out[i] = assess.Measure(o[0], r[0], nil, valid, cw, ch, 0)
 	}
 	window := fmt.Sprintf("the centre %d x %d window (columns %d-%d, rows %d-%d)", cw, ch, x0, x0+cw-1, y0, y0+ch-1)
 	if cw == mr.Width && ch == mr.Height {

@@ -12,6 +12,7 @@ import (
 	"limpid/raster/gdal"
 	"limpid/step"
 	"limpid/step/conv"
+	"limpid/step/simulate"
 )
 
 // simulate: degrade a sharp raster into a simulated observation (blur with
@@ -54,7 +55,7 @@ type simulateJob struct {
 	psfSpec   string // as given, trimmed
 	noiseSpec string // as given
 	kernel    *psf.Kernel
-	noise     step.SimNoise
+	noise     simulate.Noise
 	format    gdal.Format
 	dataType  string // "" for --quantize same
 }
@@ -80,7 +81,7 @@ func parseSimulate(c *cli.Context) (*simulateJob, error) {
 	if j.noiseSpec == "" {
 		return nil, usagef("--noise is required, e.g. --noise poisson:gain=0.4,read=3, gaussian:sigma=5 or none")
 	}
-	if j.noise, err = step.ParseSimNoise(j.noiseSpec); err != nil {
+	if j.noise, err = simulate.ParseNoise(j.noiseSpec); err != nil {
 		return nil, simulateFlagError(err, j.in, "")
 	}
 	j.format = gdal.Format(c.String("format"))
@@ -89,17 +90,17 @@ func parseSimulate(c *cli.Context) (*simulateJob, error) {
 	}
 	if j.dataType = c.String("quantize"); j.dataType == "same" {
 		j.dataType = ""
-	} else if err := step.CheckSimDataType(j.dataType); err != nil {
+	} else if err := simulate.CheckDataType(j.dataType); err != nil {
 		return nil, simulateFlagError(err, j.in, j.dataType)
 	}
 	return j, nil
 }
 
-// simulateFlagError maps a *step.SimError to the line that names the flag
+// simulateFlagError maps a *simulate.Error to the line that names the flag
 // or argument behind its field (in: the INPUT argument, dataType: the
 // output type).
 func simulateFlagError(err error, in, dataType string) error {
-	var se *step.SimError
+	var se *simulate.Error
 	if !errors.As(err, &se) {
 		return err
 	}
@@ -133,7 +134,7 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	}
 	defer src.Close()
 	meta := src.Meta()
-	cfg := step.SimConfig{H: conv.New(j.kernel), Noise: j.noise, Seed: c.Uint64("seed"), DataType: j.dataType}
+	cfg := simulate.Config{H: conv.New(j.kernel), Noise: j.noise, Seed: c.Uint64("seed"), DataType: j.dataType}
 	if err := cfg.Resolve(meta); err != nil {
 		return simulateFlagError(err, j.in, cfg.DataType)
 	}
@@ -153,11 +154,11 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	}
 	fmt.Fprintf(stderr, "limpid: simulating %dx%d, %d bands: PSF %s, noise %s, %s, seed %d\n",
 		meta.Width, meta.Height, len(meta.Bands), j.psfSpec, j.noiseSpec, cfg.DataType, cfg.Seed)
-	if err := step.Simulate(c.Context, src, dst, cfg); err != nil {
+	if err := simulate.Simulate(c.Context, src, dst, cfg); err != nil {
 		dst.Abort()
 		return err
 	}
-	for _, kv := range step.SimMetadata(j.psfSpec, j.noiseSpec, cfg.Seed) {
+	for _, kv := range simulate.Metadata(j.psfSpec, j.noiseSpec, cfg.Seed) {
 		if err := dst.SetMetadata(kv[0], kv[1]); err != nil {
 			dst.Abort()
 			return err

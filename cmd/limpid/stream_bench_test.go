@@ -2,6 +2,7 @@ package main
 
 import (
 	"bufio"
+	"io"
 	"math"
 	"os"
 	"os/exec"
@@ -34,6 +35,59 @@ func (s synthScene) ReadRows(y0, y1 int, bands []int, dst [][]float32) error {
 	return nil
 }
 
+// feedStream writes the observed stream of the synthetic scene meta, cut as
+// h says, to w and closes w.
+func feedStream(w io.WriteCloser, meta raster.Meta, h *arrowio.Header) error {
+	defer w.Close()
+	bw := bufio.NewWriterSize(w, 1<<20)
+	tiler, err := stream.NewSceneTiler(synthScene{meta}, []int{0}, h)
+	if err != nil {
+		return err
+	}
+	aw, err := arrowio.NewWriter(bw, h)
+	if err != nil {
+		return err
+	}
+	var t arrowio.Tile
+	for {
+		ok, err := tiler.Next(&t)
+		if err != nil {
+			return err
+		}
+		if !ok {
+			break
+		}
+		if err := aw.Write(&t); err != nil {
+			return err
+		}
+	}
+	if err := aw.Close(); err != nil {
+		return err
+	}
+	return bw.Flush()
+}
+
+// countTiles reads a restored stream to its end and counts its tiles.
+func countTiles(r io.Reader) (int, error) {
+	rd, err := arrowio.NewReader(bufio.NewReaderSize(r, 1<<20))
+	if err != nil {
+		return 0, err
+	}
+	defer rd.Release()
+	n := 0
+	var t arrowio.Tile
+	for {
+		ok, err := rd.Next(&t)
+		if err != nil {
+			return n, err
+		}
+		if !ok {
+			return n, nil
+		}
+		n++
+	}
+}
+
 // BenchmarkStreamRSS200 restores a stream of 200 tiles of 512 x 512 (a
 // 10240 x 5120 band, overlap 16: buffers up to 544 x 544) through the limpid
 // binary as a child process, feeding its stdin and draining its stdout, and
@@ -64,54 +118,11 @@ func BenchmarkStreamRSS200(b *testing.B) {
 			b.Fatal(err)
 		}
 		feedErr := make(chan error, 1)
-		go func() {
-			feedErr <- func() error {
-				defer stdin.Close()
-				bw := bufio.NewWriterSize(stdin, 1<<20)
-				tiler, err := stream.NewSceneTiler(synthScene{meta}, []int{0}, h)
-				if err != nil {
-					return err
-				}
-				w, err := arrowio.NewWriter(bw, h)
-				if err != nil {
-					return err
-				}
-				var t arrowio.Tile
-				for {
-					ok, err := tiler.Next(&t)
-					if err != nil {
-						return err
-					}
-					if !ok {
-						break
-					}
-					if err := w.Write(&t); err != nil {
-						return err
-					}
-				}
-				if err := w.Close(); err != nil {
-					return err
-				}
-				return bw.Flush()
-			}()
-		}()
-		r, err := arrowio.NewReader(bufio.NewReaderSize(stdout, 1<<20))
+		go func() { feedErr <- feedStream(stdin, meta, h) }()
+		n, err := countTiles(stdout)
 		if err != nil {
 			b.Fatal(err)
 		}
-		n := 0
-		var t arrowio.Tile
-		for {
-			ok, err := r.Next(&t)
-			if err != nil {
-				b.Fatal(err)
-			}
-			if !ok {
-				break
-			}
-			n++
-		}
-		r.Release()
 		if err := <-feedErr; err != nil {
 			b.Fatal(err)
 		}

@@ -37,7 +37,8 @@ func args(a ...[]string) []string {
 	return out
 }
 
-// Source: the issue's bar: `tiles pack | restore --input-format arrow
+// The stream routes equal the raster route (a project requirement,
+// DEVELOPERS.md "Tile streams"): `tiles pack | restore --input-format arrow
 // --output-format arrow | tiles unpack` gives the same GeoTIFF as restore on
 // the raster, byte for byte, for the same parameters; so do the mixed routes
 // raster -> arrow and arrow -> raster; pack | unpack gives the bands back.
@@ -88,19 +89,20 @@ func TestStreamRoundTripBytes(t *testing.T) {
 	}
 }
 
-// Source: the issue's list of bad streams: exit 2, one line naming the
-// input, the batch and the column; nothing at OUTPUT (no temporary files
-// left either); on stdout only complete batches, no end-of-stream marker.
-func TestBadStreamsCLI(t *testing.T) {
-	dir := t.TempDir()
-	packed := mustRun(t, nil, "tiles", "pack", "--tile", "64", "--overlap", "32", "--bands", "1", fixture("observed.tif"), "-")
-	// Move tile 3's buffer by one pixel: a geometry the tiling does not have.
+// movedTile returns the stream with tile 3's buffer moved right by one
+// pixel: a geometry the tiling does not have.
+func movedTile(t *testing.T, packed []byte) []byte {
+	t.Helper()
 	r, err := arrowio.NewReader(bytes.NewReader(packed))
 	if err != nil {
 		t.Fatal(err)
 	}
+	defer r.Release()
 	var moved bytes.Buffer
-	w, _ := arrowio.NewWriter(&moved, r.Header())
+	w, err := arrowio.NewWriter(&moved, r.Header())
+	if err != nil {
+		t.Fatal(err)
+	}
 	for i := 0; ; i++ {
 		var tl arrowio.Tile
 		ok, err := r.Next(&tl)
@@ -118,8 +120,79 @@ func TestBadStreamsCLI(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	w.Close()
-	r.Release()
+	if err := w.Close(); err != nil {
+		t.Fatal(err)
+	}
+	return moved.Bytes()
+}
+
+// checkStreamError runs one route on a bad stream: exit 2, one error line
+// (after any warning) holding every want, nothing at OUTPUT.
+func checkStreamError(t *testing.T, route []string, input []byte, out string, want []string) {
+	t.Helper()
+	code, _, errs := limpid(t, input, append(route, "-", out)...)
+	if code != 2 {
+		t.Errorf("%v: exit %d, want 2 (%s)", route, code, errs)
+	}
+	line := strings.TrimSpace(errs)
+	if i := strings.LastIndex(line, "\n"); i >= 0 && strings.Contains(line[:i], "warning") {
+		line = line[i+1:]
+	}
+	if strings.Count(line, "\n") > 0 || !strings.HasPrefix(line, "limpid: ") {
+		t.Errorf("%v: want one error line, got %q", route, errs)
+	}
+	for _, w := range want {
+		if !strings.Contains(line, w) {
+			t.Errorf("%v: error %q does not mention %q", route, line, w)
+		}
+	}
+	if _, err := os.Stat(out); err == nil {
+		t.Errorf("%v: %s written despite the error", route, out)
+	}
+}
+
+// checkStdoutBatches restores a bad stream to stdout: exit 2, and stdout
+// holds complete batches only, so a strict reader stops at the missing
+// end-of-stream marker.
+func checkStdoutBatches(t *testing.T, input []byte) {
+	t.Helper()
+	code, stdout, _ := limpid(t, input, args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow", "--workers", "1"}, streamArgs, []string{"-", "-"})...)
+	if code != 2 {
+		t.Fatalf("stdout route: exit %d", code)
+	}
+	if len(stdout) == 0 {
+		return
+	}
+	rd, err := arrowio.NewReader(strings.NewReader(stdout))
+	if err != nil {
+		t.Fatalf("stdout after the error is not a stream prefix: %v", err)
+	}
+	defer rd.Release()
+	var tl arrowio.Tile
+	for {
+		ok, err := rd.Next(&tl)
+		if err != nil {
+			if !strings.Contains(err.Error(), "without the end-of-stream marker") {
+				t.Errorf("stdout after the error: %v, want only complete batches", err)
+			}
+			return
+		}
+		if !ok {
+			t.Error("stdout after the error ends with an end-of-stream marker")
+			return
+		}
+	}
+}
+
+// Bad streams on every stream route: exit 2, one line naming the input, the
+// batch and the column; nothing at OUTPUT (no temporary files left either);
+// on stdout only complete batches, no end-of-stream marker. The project's
+// error contract for streams (README, "Bad streams"); the end-of-stream
+// marker is the Arrow IPC streaming format's (Apache Arrow columnar format
+// specification, "IPC Streaming Format").
+func TestBadStreamsCLI(t *testing.T) {
+	dir := t.TempDir()
+	packed := mustRun(t, nil, "tiles", "pack", "--tile", "64", "--overlap", "32", "--bands", "1", fixture("observed.tif"), "-")
 	cases := []struct {
 		name  string
 		input []byte
@@ -128,69 +201,23 @@ func TestBadStreamsCLI(t *testing.T) {
 		{"empty", nil, []string{"INPUT - (stdin)", "schema", "empty"}},
 		{"geotiff", mustRead(t, fixture("observed.tif")), []string{"not an Arrow IPC stream"}},
 		{"truncated", packed[:len(packed)*2/3], []string{"batch 11", "truncated"}},
-		{"moved-tile", moved.Bytes(), []string{"batch 3 row 0 column buffer_x", "want 96"}},
+		{"moved-tile", movedTile(t, packed), []string{"batch 3 row 0 column buffer_x", "want 96"}},
 		{"two-streams", append(append([]byte(nil), packed...), packed...), []string{"follows the end-of-stream marker"}},
+	}
+	routes := [][]string{
+		args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow"}, streamArgs),
+		args([]string{"restore", "--input-format", "arrow"}, streamArgs),
+		{"tiles", "unpack"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			for _, route := range [][]string{
-				args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow"}, streamArgs),
-				args([]string{"restore", "--input-format", "arrow"}, streamArgs),
-				{"tiles", "unpack"},
-			} {
-				out := filepath.Join(dir, "out-"+c.name)
-				code, _, errs := limpid(t, c.input, append(route, "-", out)...)
-				if code != 2 {
-					t.Errorf("%v: exit %d, want 2 (%s)", route, code, errs)
-				}
-				line := strings.TrimSpace(errs)
-				if i := strings.LastIndex(line, "\n"); i >= 0 && strings.Contains(line[:i], "warning") {
-					line = line[i+1:]
-				}
-				if strings.Count(line, "\n") > 0 || !strings.HasPrefix(line, "limpid: ") {
-					t.Errorf("%v: want one error line, got %q", route, errs)
-				}
-				for _, w := range c.want {
-					if !strings.Contains(line, w) {
-						t.Errorf("%v: error %q does not mention %q", route, line, w)
-					}
-				}
-				if _, err := os.Stat(out); err == nil {
-					t.Errorf("%v: %s written despite the error", route, out)
-				}
+			for _, route := range routes {
+				checkStreamError(t, route, c.input, filepath.Join(dir, "out-"+c.name), c.want)
 			}
-			left, _ := filepath.Glob(filepath.Join(dir, ".limpid-*"))
-			if len(left) > 0 {
+			if left, _ := filepath.Glob(filepath.Join(dir, ".limpid-*")); len(left) > 0 {
 				t.Errorf("temporary files left: %v", left)
 			}
-			// On stdout: complete batches only; a strict reader stops at the
-			// missing end-of-stream marker.
-			code, stdout, _ := limpid(t, c.input, args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow", "--workers", "1"}, streamArgs, []string{"-", "-"})...)
-			if code != 2 {
-				t.Fatalf("stdout route: exit %d", code)
-			}
-			if len(stdout) == 0 {
-				return
-			}
-			rd, err := arrowio.NewReader(strings.NewReader(stdout))
-			if err != nil {
-				t.Fatalf("stdout after the error is not a stream prefix: %v", err)
-			}
-			defer rd.Release()
-			var tl arrowio.Tile
-			for {
-				ok, err := rd.Next(&tl)
-				if err != nil {
-					if !strings.Contains(err.Error(), "without the end-of-stream marker") {
-						t.Errorf("stdout after the error: %v, want only complete batches", err)
-					}
-					break
-				}
-				if !ok {
-					t.Error("stdout after the error ends with an end-of-stream marker")
-					break
-				}
-			}
+			checkStdoutBatches(t, c.input)
 		})
 	}
 }
@@ -288,8 +315,9 @@ func TestNodeCrossCheck(t *testing.T) {
 	}
 }
 
-// Source: the issue and README (stream restore is stateless per tile: no
-// whole-scene options; the tiling is the stream's): usage errors, exit 2.
+// Stream restore is stateless per tile (README: no whole-scene options; the
+// tiling is the stream's): usage errors, exit 2. The project's error
+// contract, no outside source.
 func TestStreamFlags(t *testing.T) {
 	packed := mustRun(t, nil, "tiles", "pack", "--tile", "64", "--overlap", "32", "--bands", "1", fixture("observed.tif"), "-")
 	restored := mustRun(t, packed, args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow"}, streamArgs, []string{"-", "-"})...)

@@ -46,7 +46,7 @@ func TestRestoreQuicklook(t *testing.T) {
 		panels int
 	}{
 		{"grid", []string{"--smooth", "0.3", "--stop", "change", "--iterations", "10"}, 2},
-		{"particle", []string{"--method", "particle", "--bands", "3", "--particles-per-pixel", "2", "--iterations", "4", "--batches", "2", "--uncertainty", filepath.Join(dir, "u.tif")}, 3},
+		{"particle", []string{"--method", "particle", "--smooth", "0.2", "--bands", "3", "--particles-per-pixel", "2", "--iterations", "4", "--batches", "2", "--uncertainty", filepath.Join(dir, "u.tif")}, 3},
 	} {
 		ql, out := filepath.Join(dir, c.name+".png"), filepath.Join(dir, c.name+".tif")
 		args := append([]string{"restore", "--psf", "gaussian:sigma=1.4", "--quicklook", ql}, c.args...)

@@ -47,9 +47,10 @@ func TestDCT2Definition(t *testing.T) {
 	}
 }
 
-// Source: derived (the DCT-II basis vectors are the eigenvectors of a
-// symmetric convolution with half-sample symmetric extension; eigenvalue
-// kappa_0 + 2 sum_j kappa_j cos(pi k j / n), GUIDE section 4.3). The
+// Source: Martucci, "Symmetric convolution and the discrete sine and cosine
+// transforms", IEEE TSP 42(5):1038, 1994: the DCT-II basis vectors are the
+// eigenvectors of a symmetric convolution with half-sample symmetric
+// extension, eigenvalue kappa_0 + 2 sum_j kappa_j cos(pi k j / n). The
 // project's convolution (Conv.Apply) must agree to float32 rounding.
 func TestDCTDiagonalisesSymmetricPSF(t *testing.T) {
 	const w, h = 40, 32

@@ -10,6 +10,7 @@ import (
 	"limpid/arrowio"
 	"limpid/raster"
 	"limpid/step"
+	"limpid/step/internal/steptest"
 )
 
 // packMem cuts src into an observed stream (the bytes limpid tiles pack
@@ -144,15 +145,17 @@ func sameBits(t *testing.T, what string, a, b [][]float32) {
 	}
 }
 
-// Source: the issue's bar (pack | restore | unpack equals restore on the
-// raster, bit for bit) on the demo scenario, with nodata pixels, a merged
-// last tile column (300 = 4 x 64 + 44), a saturation level and a background,
+// The stream route equals the raster route (pack | restore | unpack gives
+// restore's raster, bit for bit: a project requirement, DEVELOPERS.md "Tile
+// streams") on the demo scenario, with nodata pixels, a merged
+// last tile column (236 = 3 x 64 + 44), a saturation level and a background,
 // for 1 and 3 workers (identical streams) and tiles assembled out of order.
 func TestStreamMatchesRestore(t *testing.T) {
-	const w, h = 300, 200
-	src, _, _, k := valleyScene(t, w, h, 1.2)
+	const w, h = 236, 136
+	src, _, _, k := steptest.ValleyScene(t, w, h, 1.2)
 	bands := []int{2, 0}
-	cfg := baseConfig(k)
+	cfg := step.Config{PSF: k, PSFSpec: "gaussian", Smooth: step.DefaultSmooth, Iterations: step.DefaultIterations,
+		Tolerance: step.DefaultTolerance, Tile: 512, Workers: 2}
 	cfg.Tile, cfg.Overlap = 64, 24
 	cfg.Iterations = 12
 	cfg.Background = 3
@@ -202,9 +205,9 @@ func (seSolver) Solve(_ context.Context, _ *step.Workspace, p *step.Problem, dst
 	return step.Result{Iterations: 1, HasSE: true}, nil
 }
 
-// Source: the contract (README): a solver's standard error goes to the
-// uncertainty column at the buffer's pixels, NaN where the input is
-// invalid; the step.Problem's Key is (band, column, row) from the tile.
+// The contract (README; no outside source): a solver's standard error goes
+// to the uncertainty column at the buffer's pixels, NaN where the input is
+// invalid; the Problem's Key is (band, column, row) from the tile.
 func TestRestoreTileUncertainty(t *testing.T) {
 	p, _ := step.NewPlan(100, 80, 32, 8)
 	tl := &arrowio.Tile{Band: 1, Col: 1, TileRow: 2, X: 24, Y: 56, W: 48, H: 24, HaloLeft: 8, HaloRight: 8, HaloTop: 8}
@@ -217,7 +220,7 @@ func TestRestoreTileUncertainty(t *testing.T) {
 	}
 	tl.Pix[7] = float32(math.NaN())
 	wk := &step.TileWork{}
-	valid := makeValid(0, false, 0, false)
+	valid := step.NewValid(0, false, 0, false)
 	if err := restoreTile(context.Background(), seSolver{}, p, wk, tl, valid, 2); err != nil {
 		t.Fatal(err)
 	}
@@ -245,8 +248,8 @@ func TestRestoreTileUncertainty(t *testing.T) {
 	}
 }
 
-// Source: the contract: tiles whose geometry is not the tiling's are refused
-// naming the column (halo and buffer rules in README).
+// The contract (README, halo and buffer rules; no outside source): tiles
+// whose geometry is not the tiling's are refused naming the column.
 func TestCheckPlan(t *testing.T) {
 	p, _ := step.NewPlan(100, 80, 32, 8)
 	good := arrowio.Tile{Col: 0, TileRow: 0, X: 0, Y: 0, W: 40, H: 40, HaloRight: 8, HaloBottom: 8}
@@ -270,4 +273,21 @@ func TestCheckPlan(t *testing.T) {
 			t.Errorf("want an error naming %s, got %v", c.want, err)
 		}
 	}
+}
+
+// restoreMem restores bands of src with step.Restore into memory.
+func restoreMem(t testing.TB, src *raster.Mem, bands []int, cfg step.Config) (*raster.Mem, *step.Report) {
+	t.Helper()
+	meta := src.Meta()
+	om := meta
+	om.Bands = nil
+	for _, b := range bands {
+		om.Bands = append(om.Bands, meta.Bands[b])
+	}
+	dst := raster.NewMem(om)
+	rep, err := step.Restore(context.Background(), src, bands, dst, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return dst, rep
 }

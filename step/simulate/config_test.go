@@ -1,4 +1,4 @@
-package step
+package simulate
 
 import (
 	"encoding/json"
@@ -7,10 +7,11 @@ import (
 	"testing"
 
 	"limpid/raster"
+	"limpid/step"
 )
 
-// Each noise kind's name is the spelling ParseSimNoise reads, both ways and
-// in JSON; the zero value is NoiseNone. Source: ParseSimNoise's grammar.
+// Each noise kind's name is the spelling ParseNoise reads, both ways and
+// in JSON; the zero value is NoiseNone. Source: ParseNoise's grammar.
 func TestNoiseKindNames(t *testing.T) {
 	for k, name := range map[NoiseKind]string{NoiseNone: "none", NoisePoisson: "poisson", NoiseGaussian: "gaussian"} {
 		if k.String() != name {
@@ -19,8 +20,8 @@ func TestNoiseKindNames(t *testing.T) {
 		if got, ok := ParseNoiseKind(name); !ok || got != k {
 			t.Errorf("ParseNoiseKind(%q) = %v, %v", name, got, ok)
 		}
-		b, err := json.Marshal(SimNoise{Kind: k})
-		var back SimNoise
+		b, err := json.Marshal(Noise{Kind: k})
+		var back Noise
 		if err != nil || json.Unmarshal(b, &back) != nil || back.Kind != k {
 			t.Errorf("%v: JSON %s, %v, read back %v", k, b, err, back.Kind)
 		}
@@ -28,12 +29,12 @@ func TestNoiseKindNames(t *testing.T) {
 	if _, ok := ParseNoiseKind("laplace"); ok {
 		t.Error("laplace parsed as a noise kind")
 	}
-	if _, err := json.Marshal(SimNoise{Kind: NoiseKind(7)}); err == nil {
+	if _, err := json.Marshal(Noise{Kind: NoiseKind(7)}); err == nil {
 		t.Error("an unnamed kind marshalled")
 	}
-	var zero SimConfig
+	var zero Config
 	if zero.Noise.Kind != NoiseNone || zero.Noise.Variance(100) != 0 {
-		t.Errorf("zero SimConfig noise: %v, variance %g", zero.Noise.Kind, zero.Noise.Variance(100))
+		t.Errorf("zero Config noise: %v, variance %g", zero.Noise.Kind, zero.Noise.Variance(100))
 	}
 }
 
@@ -60,7 +61,7 @@ func TestSimConfigResolve(t *testing.T) {
 		{meta("UInt16", 0, false), "Int16", "Int16", 0, false},
 	}
 	for _, c := range cases {
-		cfg := SimConfig{DataType: c.dataType}
+		cfg := Config{DataType: c.dataType}
 		if err := cfg.Resolve(c.in); err != nil {
 			t.Fatalf("%s -> %q: %v", c.in.DataType, c.dataType, err)
 		}
@@ -81,20 +82,20 @@ func TestSimConfigResolve(t *testing.T) {
 		{meta("Float32", 70000, true), "UInt16", "NoData"},
 		{meta("Float32", 0.5, true), "Int32", "NoData"},
 	} {
-		cfg := SimConfig{DataType: c.dataType}
-		var se *SimError
-		if err := cfg.Resolve(c.in); !errors.As(err, &se) || se.Field != c.field || !errors.Is(err, ErrConfig) {
-			t.Errorf("%q: %v, want a SimError on %s", c.dataType, err, c.field)
+		cfg := Config{DataType: c.dataType}
+		var se *Error
+		if err := cfg.Resolve(c.in); !errors.As(err, &se) || se.Field != c.field || !errors.Is(err, step.ErrConfig) {
+			t.Errorf("%q: %v, want a Error on %s", c.dataType, err, c.field)
 		}
 	}
 }
 
 // Simulate refuses a configuration without a PSF operator instead of
-// failing on it. Source: SimConfig's documentation (H is required).
+// failing on it. Source: Config's documentation (H is required).
 func TestSimulateNeedsOperator(t *testing.T) {
 	src := raster.NewMem(raster.Meta{Width: 2, Height: 2, DataType: "Float32", Bands: []raster.BandInfo{{}}})
-	var se *SimError
-	if err := Simulate(t.Context(), src, raster.NewMem(src.Meta()), SimConfig{}); !errors.As(err, &se) || se.Field != "H" {
-		t.Errorf("got %v, want a SimError on H", err)
+	var se *Error
+	if err := Simulate(t.Context(), src, raster.NewMem(src.Meta()), Config{}); !errors.As(err, &se) || se.Field != "H" {
+		t.Errorf("got %v, want a Error on H", err)
 	}
 }

@@ -1,4 +1,4 @@
-package step
+package simulate
 
 import (
 	"context"
@@ -8,7 +8,9 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step"
 	"limpid/step/conv"
+	"limpid/step/scene"
 )
 
 // simLevels is an invented test scene: horizontal stripes of constant level,
@@ -31,13 +33,13 @@ func simRun(t *testing.T, src *raster.Mem, spec, noise, dtype string, seed uint6
 	if err != nil {
 		t.Fatal(err)
 	}
-	nz, err := ParseSimNoise(noise)
+	nz, err := ParseNoise(noise)
 	if err != nil {
 		t.Fatal(err)
 	}
 	m := src.Meta()
 	dst := raster.NewMem(m)
-	cfg := SimConfig{H: conv.New(k), Noise: nz, Seed: seed, DataType: dtype, Strip: strip,
+	cfg := Config{H: conv.New(k), Noise: nz, Seed: seed, DataType: dtype, Strip: strip,
 		NoData: m.Bands[0].NoData, HasNoData: m.Bands[0].HasNoData,
 		OutNoData: m.Bands[0].NoData, HasOutNoData: m.Bands[0].HasNoData}
 	if err := Simulate(context.Background(), src, dst, cfg); err != nil {
@@ -66,7 +68,7 @@ func stripeStats(p []float32, w, rows, i, margin int) (mean, variance float64, n
 // TestSimulateNoiseStatistics checks that simulate's noise has the mean and
 // variance of the requested model at every intensity level.
 // Source: the noise model definitions (Poisson-Gaussian sensor, DN = G
-// Poisson(s/G) + N(0, R^2): mean s, variance G s + R^2; Gaussian: mean s,
+// scene.Poisson(s/G) + N(0, R^2): mean s, variance G s + R^2; Gaussian: mean s,
 // variance S^2; quantisation to integers adds a uniform rounding error of
 // variance 1/12, Sheppard's correction, W. F. Sheppard, Proc. London Math.
 // Soc. 29:353, 1898).
@@ -101,7 +103,7 @@ func TestSimulateNoiseStatistics(t *testing.T) {
 			var want, kurt4 float64 // kurt4: fourth cumulant
 			if c.gain > 0 {
 				want = c.gain*s + c.read*c.read
-				kurt4 = c.gain * c.gain * c.gain * s // G^4 * (s/G), fourth cumulant of G*Poisson(s/G)
+				kurt4 = c.gain * c.gain * c.gain * s // G^4 * (s/G), fourth cumulant of G*scene.Poisson(s/G)
 			} else {
 				want = c.sigma * c.sigma
 			}
@@ -123,11 +125,12 @@ func TestSimulateNoiseStatistics(t *testing.T) {
 // Conv.Apply (the operator restore uses), that the strip size does not
 // change a single bit, that a seed reproduces, and that nodata stays nodata
 // and no valid pixel is quantised onto the nodata value.
-// Source: the half-sample symmetric convolution of DEVELOPERS.md/GUIDE
-// section 2 (the PSF convention) and the rules' determinism requirement.
+// Source: the half-sample symmetric convolution (Martucci, IEEE TSP
+// 42(5):1038, 1994; DEVELOPERS.md "Boundaries") and the project's
+// determinism requirement.
 func TestSimulateBlurAndDeterminism(t *testing.T) {
 	const w, h = 97, 83
-	ref, _ := ValleyReference(w, h)
+	ref, _ := scene.ValleyReference(w, h)
 	src := raster.NewMem(raster.Meta{Width: w, Height: h, DataType: "Float32", Bands: []raster.BandInfo{{}}})
 	copy(src.Bands[0], ref[2])
 	for _, spec := range []string{"gaussian:sigma=1.5", "gaussian:sx=1.6,sy=0.7,angle=30"} {
@@ -183,23 +186,23 @@ func TestSimulateBlurAndDeterminism(t *testing.T) {
 }
 
 // Noise specs parse to their model and bad ones are refused with the
-// parameter named. Source: common practice, no source (input rules).
+// parameter named (the spec's input rules, README; no outside source).
 func TestParseSimNoise(t *testing.T) {
-	good := map[string]SimNoise{
+	good := map[string]Noise{
 		"poisson:gain=0.4,read=3": {Kind: NoisePoisson, Gain: 0.4, Read: 3},
 		"poisson:gain=2":          {Kind: NoisePoisson, Gain: 2},
 		"gaussian:sigma=5":        {Kind: NoiseGaussian, Sigma: 5},
 		"none":                    {Kind: NoiseNone},
 	}
 	for s, want := range good {
-		got, err := ParseSimNoise(s)
+		got, err := ParseNoise(s)
 		if err != nil || got != want {
 			t.Errorf("%q: %+v, %v", s, got, err)
 		}
 	}
 	for _, s := range []string{"", "poisson", "poisson:gain=0", "poisson:gain=1,gain=2", "poisson:gain=1,sigma=2",
 		"gaussian", "gaussian:sigma=-1", "gaussian:sigma=NaN", "uniform:a=1", "none:x=1", "gaussian:sigma"} {
-		if _, err := ParseSimNoise(s); !errors.Is(err, ErrConfig) {
+		if _, err := ParseNoise(s); !errors.Is(err, step.ErrConfig) {
 			t.Errorf("%q: want a configuration error, got %v", s, err)
 		}
 	}

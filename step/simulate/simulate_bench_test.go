@@ -1,4 +1,4 @@
-package step
+package simulate
 
 import (
 	"context"
@@ -7,6 +7,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/scene"
 )
 
 // BenchmarkSimulate1024 measures simulate's per-core throughput on a
@@ -14,12 +15,12 @@ import (
 // read noise, UInt16). Report: go test -run '^$' -bench Simulate -cpu 1 ./step.
 func BenchmarkSimulate1024(b *testing.B) {
 	const n = 1024
-	ref, _ := ValleyReference(n, n)
+	ref, _ := scene.ValleyReference(n, n)
 	src := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "Float32", Bands: []raster.BandInfo{{}}})
 	copy(src.Bands[0], ref[2])
 	dst := raster.NewMem(src.Meta())
 	k, _ := psf.Parse("gaussian:sigma=1.4", psf.Env{})
-	cfg := SimConfig{H: conv.New(k), Noise: SimNoise{Kind: NoisePoisson, Gain: 0.4, Read: 3}, Seed: 1, DataType: "UInt16"}
+	cfg := Config{H: conv.New(k), Noise: Noise{Kind: NoisePoisson, Gain: 0.4, Read: 3}, Seed: 1, DataType: "UInt16"}
 	b.SetBytes(n * n * 4)
 	b.ReportAllocs()
 	b.ResetTimer()

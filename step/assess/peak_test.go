@@ -1,4 +1,4 @@
-package step
+package assess
 
 import (
 	"errors"
@@ -7,7 +7,7 @@ import (
 )
 
 // The default peak of PSNR and SSIM and the data-range check.
-// Source: the rules in AssessPeak's documentation (README, "limpid assess").
+// Source: the rules in Peak's documentation (README, "limpid assess").
 func TestAssessPeakAndDataRange(t *testing.T) {
 	ref := []float32{3, 10, 7, 100}
 	valid := []bool{true, true, true, false}
@@ -21,7 +21,7 @@ func TestAssessPeakAndDataRange(t *testing.T) {
 		{"Float32", ref, 7},
 		{"Float32", []float32{5, 5, 5, 9}, 1},
 	} {
-		if got := AssessPeak(c.dtype, c.ref, valid); got != c.want {
+		if got := Peak(c.dtype, c.ref, valid); got != c.want {
 			t.Errorf("%s %v: peak %g, want %g", c.dtype, c.ref, got, c.want)
 		}
 	}
@@ -31,7 +31,7 @@ func TestAssessPeakAndDataRange(t *testing.T) {
 		}
 	}
 	for _, L := range []float64{0, -1, math.NaN(), math.Inf(1)} {
-		if err := CheckDataRange(L); !errors.Is(err, ErrConfig) {
+		if err := CheckDataRange(L); !errors.Is(err, ErrDataRange) {
 			t.Errorf("%g: %v, want a configuration error", L, err)
 		}
 	}

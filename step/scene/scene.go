@@ -1,7 +1,8 @@
-package step
+package scene
 
 import (
 	"limpid/step/conv"
+	"limpid/step/mix"
 	"math"
 	"math/rand/v2"
 )
@@ -32,14 +33,6 @@ var valleyClass = [][4]float64{
 }
 
 const valleyFullScale = 4095 * 0.85 / 0.62 // DN per unit reflectance: the bright tarp sits at 85 % of 12 bits
-
-func hash2(i, j int) uint64 {
-	x := uint64(int64(i))*0x9E3779B97F4A7C15 ^ uint64(int64(j))*0xC2B2AE3D27D4EB4F
-	x ^= x >> 31
-	x *= 0xBF58476D1CE4E5B9
-	x ^= x >> 29
-	return x
-}
 
 // valleyAt returns the reflectances at continuous pixel position (u, v).
 func valleyAt(u, v float64, w, h float64) [4]float64 {
@@ -93,7 +86,7 @@ func valleyAt(u, v float64, w, h float64) [4]float64 {
 	if lu < 1.5 || lv < 1.5 {
 		return valleyClass[10]
 	}
-	hsh := hash2(ci, cj)
+	hsh := mix.Pair(ci, cj)
 	crop := int(hsh % 5)
 	base := valleyClass[crop]
 	var tex float64
@@ -150,16 +143,16 @@ func ValleyReference(w, h int) (bands [][]float32, valid []bool) {
 	return bands, valid
 }
 
-// Noise is a Poisson-Gaussian sensor noise: DN = Gain * Poisson(signal/Gain)
+// Sensor is a Poisson-Gaussian sensor noise: DN = Gain * Poisson(signal/Gain)
 // + Normal(0, Read^2).
-type Noise struct {
+type Sensor struct {
 	Gain float64 // DN per photo-electron
 	Read float64 // read noise, DN
 }
 
 // Degrade blurs the reference with the PSF operator (half-sample symmetric
 // boundaries) and adds noise; invalid pixels are left at 0.
-func Degrade(ref []float32, valid []bool, w, h int, H *conv.Operator, nz Noise, rng *rand.Rand) []float32 {
+func Degrade(ref []float32, valid []bool, w, h int, H *conv.Operator, nz Sensor, rng *rand.Rand) []float32 {
 	out := make([]float32, w*h)
 	var ws conv.Work
 	H.Apply(&ws, out, ref, w, h)
@@ -245,7 +238,7 @@ func nightAt(u, v, w, h float64) float64 {
 			return 6
 		}
 		for k := 0; k < 9; k++ {
-			hsh := hash2(k, 77)
+			hsh := mix.Pair(k, 77)
 			bx := w * (0.08 + 0.1*float64(k) + 0.02*float64(hsh%5))
 			by := shore + 6 + float64(hsh>>8%uint64(math.Max(1, 0.35*(h-shore))))
 			lx, ly := (u-bx)*math.Cos(0.3*float64(k))+(v-by)*math.Sin(0.3*float64(k)), -(u-bx)*math.Sin(0.3*float64(k))+(v-by)*math.Cos(0.3*float64(k))
@@ -280,7 +273,7 @@ func nightAt(u, v, w, h float64) float64 {
 		return 12 // lit road surface
 	}
 	// Houses: some windows lit.
-	hsh := hash2(int(pu/37), int(pv/29))
+	hsh := mix.Pair(int(pu/37), int(pv/29))
 	if hsh%3 == 0 && du > 8 && du < 14 && dv > 6 && dv < 10 {
 		return 18
 	}

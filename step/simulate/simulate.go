@@ -1,4 +1,4 @@
-package step
+package simulate
 
 import (
 	"context"
@@ -9,7 +9,10 @@ import (
 	"strings"
 
 	"limpid/raster"
+	"limpid/step"
 	"limpid/step/conv"
+	"limpid/step/mix"
+	"limpid/step/scene"
 )
 
 // Simulation: the degradation that turns a sharp scene into an observation,
@@ -20,14 +23,14 @@ import (
 
 // NoiseKind is the model of the noise Simulate adds. The zero value is
 // NoiseNone. Its text form ("none", "poisson", "gaussian") is the name
-// ParseSimNoise reads.
+// ParseNoise reads.
 type NoiseKind int
 
 const (
 	// NoiseNone adds nothing: DN = s.
 	NoiseNone NoiseKind = iota
 	// NoisePoisson is a Poisson-Gaussian sensor:
-	// DN = Gain * Poisson(s / Gain) + Normal(0, Read^2).
+	// DN = Gain * scene.Poisson(s / Gain) + Normal(0, Read^2).
 	NoisePoisson
 	// NoiseGaussian is additive white noise: DN = s + Normal(0, Sigma^2).
 	NoiseGaussian
@@ -35,7 +38,7 @@ const (
 
 var noiseKindNames = [...]string{NoiseNone: "none", NoisePoisson: "poisson", NoiseGaussian: "gaussian"}
 
-// String returns the kind's name as ParseSimNoise reads it.
+// String returns the kind's name as ParseNoise reads it.
 func (k NoiseKind) String() string {
 	if k >= 0 && int(k) < len(noiseKindNames) {
 		return noiseKindNames[k]
@@ -67,28 +70,28 @@ func (k NoiseKind) MarshalText() ([]byte, error) {
 func (k *NoiseKind) UnmarshalText(b []byte) error {
 	v, ok := ParseNoiseKind(string(b))
 	if !ok {
-		return &SimError{Field: "Noise", Value: string(b), Reason: "unknown noise model: use poisson, gaussian or none"}
+		return &Error{Field: "Noise", Value: string(b), Reason: "unknown noise model: use poisson, gaussian or none"}
 	}
 	*k = v
 	return nil
 }
 
-// SimNoise is the noise simulate adds, in DN. The zero value adds no noise.
+// Noise is the noise simulate adds, in DN. The zero value adds no noise.
 //
-//   - NoisePoisson: DN = Gain * Poisson(s / Gain) + Normal(0, Read^2): mean
+//   - NoisePoisson: DN = Gain * scene.Poisson(s / Gain) + Normal(0, Read^2): mean
 //     s, variance Gain*s + Read^2 (a Poisson-Gaussian sensor with Gain DN
 //     per photo-electron; the same model as noise.Model with A = Gain,
 //     B = Read^2).
 //   - NoiseGaussian: DN = s + Normal(0, Sigma^2).
 //   - NoiseNone: DN = s.
-type SimNoise struct {
+type Noise struct {
 	Kind              NoiseKind
 	Gain, Read, Sigma float64
 }
 
 // Variance is the model variance at blurred signal s (s < 0 counts as 0 for
 // the Poisson part).
-func (n SimNoise) Variance(s float64) float64 {
+func (n Noise) Variance(s float64) float64 {
 	switch n.Kind {
 	case NoisePoisson:
 		return n.Gain*math.Max(s, 0) + n.Read*n.Read
@@ -98,32 +101,32 @@ func (n SimNoise) Variance(s float64) float64 {
 	return 0
 }
 
-// SimError is a simulation setting that cannot be used. Field names the
-// setting ("Noise": the noise specification ParseSimNoise reads; "H",
-// "DataType" and "NoData": the SimConfig fields), Value is the value given
+// Error is a simulation setting that cannot be used. Field names the
+// setting ("Noise": the noise specification ParseNoise reads; "H",
+// "DataType" and "NoData": the Config fields), Value is the value given
 // (the specification, the type name, the nodata value as %g; "" for H) and
-// Reason says what is wrong. It wraps ErrConfig.
-type SimError struct {
+// Reason says what is wrong. It wraps step.ErrConfig.
+type Error struct {
 	Field, Value, Reason string
 }
 
-func (e *SimError) Error() string {
+func (e *Error) Error() string {
 	if e.Value == "" {
-		return fmt.Sprintf("%v: %s: %s", ErrConfig, e.Field, e.Reason)
+		return fmt.Sprintf("%v: %s: %s", step.ErrConfig, e.Field, e.Reason)
 	}
-	return fmt.Sprintf("%v: %s %q: %s", ErrConfig, e.Field, e.Value, e.Reason)
+	return fmt.Sprintf("%v: %s %q: %s", step.ErrConfig, e.Field, e.Value, e.Reason)
 }
 
-// Unwrap returns ErrConfig.
-func (e *SimError) Unwrap() error { return ErrConfig }
+// Unwrap returns step.ErrConfig.
+func (e *Error) Unwrap() error { return step.ErrConfig }
 
-// ParseSimNoise reads "poisson:gain=G,read=R", "gaussian:sigma=S" or "none".
-// Errors are *SimError with Field "Noise" and Value the trimmed spec.
-func ParseSimNoise(spec string) (SimNoise, error) {
+// ParseNoise reads "poisson:gain=G,read=R", "gaussian:sigma=S" or "none".
+// Errors are *Error with Field "Noise" and Value the trimmed spec.
+func ParseNoise(spec string) (Noise, error) {
 	spec = strings.TrimSpace(spec)
 	name, rest, _ := strings.Cut(spec, ":")
-	bad := func(format string, a ...any) (SimNoise, error) {
-		return SimNoise{}, &SimError{Field: "Noise", Value: spec, Reason: fmt.Sprintf(format, a...)}
+	bad := func(format string, a ...any) (Noise, error) {
+		return Noise{}, &Error{Field: "Noise", Value: spec, Reason: fmt.Sprintf(format, a...)}
 	}
 	keys, err := simNoiseKeys(rest)
 	if err != nil {
@@ -153,7 +156,7 @@ func ParseSimNoise(spec string) (SimNoise, error) {
 		if !ok || g <= 0 {
 			return bad("poisson needs gain > 0 (DN per photo-electron), e.g. poisson:gain=0.4,read=3")
 		}
-		return SimNoise{Kind: NoisePoisson, Gain: g, Read: keys["read"]}, nil
+		return Noise{Kind: NoisePoisson, Gain: g, Read: keys["read"]}, nil
 	case kind == NoiseGaussian:
 		if err := take("sigma"); err != nil {
 			return bad("%s", err)
@@ -162,12 +165,12 @@ func ParseSimNoise(spec string) (SimNoise, error) {
 		if !ok {
 			return bad("gaussian needs sigma (DN), e.g. gaussian:sigma=5")
 		}
-		return SimNoise{Kind: NoiseGaussian, Sigma: s}, nil
+		return Noise{Kind: NoiseGaussian, Sigma: s}, nil
 	}
 	if rest != "" {
 		return bad("none takes no parameters")
 	}
-	return SimNoise{Kind: NoiseNone}, nil
+	return Noise{Kind: NoiseNone}, nil
 }
 
 // simNoiseKeys reads the comma-separated key=value list of a noise
@@ -191,31 +194,31 @@ func simNoiseKeys(rest string) (map[string]float64, error) {
 	return keys, nil
 }
 
-// DefaultSimStrip is the number of output rows Simulate reads at a time when
-// SimConfig.Strip is 0.
-const DefaultSimStrip = 256
+// DefaultStrip is the number of output rows Simulate reads at a time when
+// Config.Strip is 0.
+const DefaultStrip = 256
 
-// SimDataTypes are the output data types Simulate writes when asked for one
-// (SimConfig.DataType "" keeps the input's).
-var SimDataTypes = []string{"Byte", "UInt16", "Int16", "UInt32", "Int32", "Float32"}
+// DataTypes are the output data types Simulate writes when asked for one
+// (Config.DataType "" keeps the input's).
+var DataTypes = []string{"Byte", "UInt16", "Int16", "UInt32", "Int32", "Float32"}
 
-// CheckSimDataType returns a *SimError with Field "DataType" unless t is one
-// of SimDataTypes.
-func CheckSimDataType(t string) error {
-	for _, s := range SimDataTypes {
+// CheckDataType returns a *Error with Field "DataType" unless t is one
+// of DataTypes.
+func CheckDataType(t string) error {
+	for _, s := range DataTypes {
 		if t == s {
 			return nil
 		}
 	}
-	return &SimError{Field: "DataType", Value: t, Reason: "use " + strings.Join(SimDataTypes, ", ")}
+	return &Error{Field: "DataType", Value: t, Reason: "use " + strings.Join(DataTypes, ", ")}
 }
 
-// SimConfig configures Simulate. Its zero value adds no noise, keeps float
-// values and reads DefaultSimStrip rows at a time; H must be set.
-type SimConfig struct {
+// Config configures Simulate. Its zero value adds no noise, keeps float
+// values and reads DefaultStrip rows at a time; H must be set.
+type Config struct {
 	// H is the PSF operator (required).
 	H     *conv.Operator
-	Noise SimNoise
+	Noise Noise
 	// Seed selects the random streams; the stream of a pixel depends only on
 	// Seed, its band and its row, so the output is the same for any strip
 	// size.
@@ -234,13 +237,13 @@ type SimConfig struct {
 	// no valid pixel becomes nodata.
 	OutNoData    float64
 	HasOutNoData bool
-	// Strip is the number of output rows per read (0: DefaultSimStrip).
+	// Strip is the number of output rows per read (0: DefaultStrip).
 	Strip int
 }
 
 // Resolve fills the fields that follow from the input's metadata in:
 //   - DataType "" becomes the input's type (Float64 becomes Float32); any
-//     other value must be one of SimDataTypes;
+//     other value must be one of DataTypes;
 //   - NoData, HasNoData: the nodata of the input's first band that has one
 //     (a GeoTIFF has one value for all bands);
 //   - OutNoData, HasOutNoData: the input's nodata; else, when invalid pixels
@@ -248,15 +251,15 @@ type SimConfig struct {
 //     maximum for an integer one. A NaN nodata cannot be stored in an integer
 //     type: it becomes the type's maximum.
 //
-// Errors are *SimError: Field "DataType" for an unknown type, "NoData" when
+// Errors are *Error: Field "DataType" for an unknown type, "NoData" when
 // the input's nodata cannot be stored in the output type.
-func (cfg *SimConfig) Resolve(in raster.Meta) error {
+func (cfg *Config) Resolve(in raster.Meta) error {
 	if cfg.DataType == "" {
 		cfg.DataType = in.DataType
 		if cfg.DataType == "Float64" {
 			cfg.DataType = "Float32"
 		}
-	} else if err := CheckSimDataType(cfg.DataType); err != nil {
+	} else if err := CheckDataType(cfg.DataType); err != nil {
 		return err
 	}
 	cfg.NoData, cfg.HasNoData = 0, false
@@ -274,7 +277,7 @@ func (cfg *SimConfig) Resolve(in raster.Meta) error {
 	case cfg.HasOutNoData && outInt && math.IsNaN(inND):
 		cfg.OutNoData = hi
 	case cfg.HasOutNoData && outInt && (inND < lo || inND > hi || inND != math.Round(inND)):
-		return &SimError{Field: "NoData", Value: fmt.Sprintf("%g", inND),
+		return &Error{Field: "NoData", Value: fmt.Sprintf("%g", inND),
 			Reason: "cannot be stored in DataType " + cfg.DataType}
 	case !cfg.HasOutNoData && !inInt:
 		cfg.HasOutNoData = true
@@ -286,13 +289,13 @@ func (cfg *SimConfig) Resolve(in raster.Meta) error {
 	return nil
 }
 
-// SimMetadata is the processing metadata a simulated observation carries,
+// Metadata is the processing metadata a simulated observation carries,
 // in order: what it is, the limpid version, and the PSF and noise
 // specifications and the Seed as given.
-func SimMetadata(psfSpec, noiseSpec string, seed uint64) [][2]string {
+func Metadata(psfSpec, noiseSpec string, seed uint64) [][2]string {
 	return [][2]string{
 		{"LIMPID_PRODUCT", "simulated observation (blurred, noise added); not a measurement"},
-		{"LIMPID_VERSION", Version},
+		{"LIMPID_VERSION", step.Version},
 		{"LIMPID_SIMULATED_PSF", psfSpec},
 		{"LIMPID_SIMULATED_NOISE", noiseSpec},
 		{"LIMPID_SIMULATED_SEED", fmt.Sprint(seed)},
@@ -306,9 +309,9 @@ func SimMetadata(psfSpec, noiseSpec string, seed uint64) [][2]string {
 // normalised convolution H(v w) / H(w) over valid pixels w (v the values);
 // with no invalid pixel this is H v. Memory: about (Strip + 2 ry) x width x
 // bands x 3 float32.
-func Simulate(ctx context.Context, src raster.Reader, dst raster.Writer, cfg SimConfig) error {
+func Simulate(ctx context.Context, src raster.Reader, dst raster.Writer, cfg Config) error {
 	if cfg.H == nil {
-		return &SimError{Field: "H", Reason: "no PSF operator (NewConv)"}
+		return &Error{Field: "H", Reason: "no PSF operator (NewConv)"}
 	}
 	s := newSimulator(src.Meta(), &cfg)
 	for y0 := 0; y0 < s.h; y0 += s.strip {
@@ -334,7 +337,7 @@ func Simulate(ctx context.Context, src raster.Reader, dst raster.Writer, cfg Sim
 // simulator is one Simulate call: the scene's size, the strip geometry and the
 // buffers, sized once for the largest strip.
 type simulator struct {
-	cfg         *SimConfig
+	cfg         *Config
 	w, h, strip int
 	ry          int // the PSF's row radius: the halo above and below a strip
 	q           simQuantizer
@@ -348,10 +351,10 @@ type simulator struct {
 	rng         *rand.Rand
 }
 
-func newSimulator(m raster.Meta, cfg *SimConfig) *simulator {
+func newSimulator(m raster.Meta, cfg *Config) *simulator {
 	s := &simulator{cfg: cfg, w: m.Width, h: m.Height, strip: cfg.Strip}
 	if s.strip <= 0 {
-		s.strip = DefaultSimStrip
+		s.strip = DefaultStrip
 	}
 	_, s.ry = cfg.H.Radius()
 	s.q.lo, s.q.hi, s.q.integer = raster.TypeRange(cfg.DataType)
@@ -449,10 +452,10 @@ func (s *simulator) degrade(b, y0, y1 int, bl, mk []float32) {
 }
 
 // add returns the blurred value v with the model's noise drawn from rng.
-func (n SimNoise) add(rng *rand.Rand, v float64) float64 {
+func (n Noise) add(rng *rand.Rand, v float64) float64 {
 	switch n.Kind {
 	case NoisePoisson:
-		v = n.Gain * float64(Poisson(rng, math.Max(v, 0)/n.Gain))
+		v = n.Gain * float64(scene.Poisson(rng, math.Max(v, 0)/n.Gain))
 		if n.Read > 0 {
 			v += n.Read * rng.NormFloat64()
 		}
@@ -499,5 +502,5 @@ func sliceRows(p [][]float32, n int) [][]float32 {
 
 // simStream is the PCG stream selector of band b, row y.
 func simStream(b, y int) uint64 {
-	return hash2(b+0x51, y) ^ 0x6A09E667F3BCC909
+	return mix.Pair(b+0x51, y) ^ 0x6A09E667F3BCC909
 }

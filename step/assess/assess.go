@@ -1,6 +1,7 @@
-package step
+package assess
 
 import (
+	"errors"
 	"fmt"
 	"math"
 	"sort"
@@ -25,25 +26,25 @@ import (
 //     of both images; MTF50 is the median over edges measured in both, the
 //     gain is restored MTF50 / observed MTF50.
 //   - ringing: on each edge's ESF (oriented rising), the plateaus are the
-//     medians of the outer AssessPlateau fraction of bins on each side; the
+//     medians of the outer Plateau fraction of bins on each side; the
 //     ringing is max(max ESF - high plateau, low plateau - min ESF) /
 //     (high - low plateau), the overshoot or undershoot as a fraction of
 //     the edge step; median over edges.
 //   - flux change: (sum restored - sum observed) / sum observed over the
 //     pixels valid in all inputs.
 
-// AssessPlateau is the fraction of ESF bins at each end taken as the
+// Plateau is the fraction of ESF bins at each end taken as the
 // plateau of the ringing indicator (common practice, no source: far enough
 // from the edge that the blurred transition has ended for the window sizes
 // of psf.FindEdges, 32 pixels across).
-const AssessPlateau = 0.2
+const Plateau = 0.2
 
-// AssessMaxEdges bounds the edges measured per band (cost).
-const AssessMaxEdges = 8
+// MaxEdges bounds the edges measured per band (cost).
+const MaxEdges = 8
 
-// BandAssessment is the result for one band. Non-finite values mean "not
+// Band is the result for one band. Non-finite values mean "not
 // measurable" (no reference, no edge, identical images for PSNR).
-type BandAssessment struct {
+type Band struct {
 	Pixels                           int
 	DataRange                        float64
 	PSNR, SSIM, RMSE, MAE, Bias      float64
@@ -56,10 +57,10 @@ type BandAssessment struct {
 	FluxChange                       float64
 }
 
-// AssessPeak is the default peak L of PSNR and SSIM for a reference plane of
+// Peak is the default peak L of PSNR and SSIM for a reference plane of
 // data type dtype: the type's range for integer types, else max - min of
 // the valid reference pixels (1 when they do not differ).
-func AssessPeak(dtype string, ref []float32, valid []bool) float64 {
+func Peak(dtype string, ref []float32, valid []bool) float64 {
 	if lo, hi, integer := raster.TypeRange(dtype); integer {
 		return hi - lo
 	}
@@ -75,21 +76,24 @@ func AssessPeak(dtype string, ref []float32, valid []bool) float64 {
 	return hi - lo
 }
 
-// CheckDataRange returns an error wrapping ErrConfig that names DataRange
+// ErrDataRange is wrapped by CheckDataRange's error.
+var ErrDataRange = errors.New("bad data range")
+
+// CheckDataRange returns an error wrapping ErrDataRange that names DataRange
 // unless L, a peak given for PSNR and SSIM, is positive and finite.
 func CheckDataRange(L float64) error {
 	if L > 0 && !math.IsInf(L, 0) {
 		return nil
 	}
-	return fmt.Errorf("%w: DataRange %g must be positive and finite", ErrConfig, L)
+	return fmt.Errorf("%w: DataRange %g must be positive and finite", ErrDataRange, L)
 }
 
 // Assess compares the restored plane res with the observed plane obs (and
 // with ref when it is not nil, using peak L for PSNR and SSIM) over the
 // pixels where valid is true (w x h planes).
-func Assess(obs, res, ref []float32, valid []bool, w, h int, L float64) BandAssessment {
+func Measure(obs, res, ref []float32, valid []bool, w, h int, L float64) Band {
 	nan := math.NaN()
-	a := BandAssessment{PSNR: nan, SSIM: nan, RMSE: nan, MAE: nan, Bias: nan, DataRange: L,
+	a := Band{PSNR: nan, SSIM: nan, RMSE: nan, MAE: nan, Bias: nan, DataRange: L,
 		MTF50Observed: nan, MTF50Restored: nan, SharpnessGain: nan, RingingObserved: nan, RingingRestored: nan, FluxChange: nan}
 	var so, sr float64
 	for i, ok := range valid {
@@ -219,7 +223,7 @@ func edgeMetrics(obs, res []float32, valid []bool, w, h int) (n int, mtfO, mtfR,
 	wins := psf.FindEdges(masked, w, h, psf.SceneNoise(masked, w, h))
 	var mo, mr, ro, rr []float64
 	for _, e := range wins {
-		if len(mo) == AssessMaxEdges {
+		if len(mo) == MaxEdges {
 			break
 		}
 		cut := func(p []float32) []float32 {
@@ -254,7 +258,7 @@ func edgeMetrics(obs, res []float32, valid []bool, w, h int) (n int, mtfO, mtfR,
 // step. It returns NaN for an ESF without a step.
 func Ringing(esf []float64) float64 {
 	n := len(esf)
-	k := int(math.Ceil(AssessPlateau * float64(n)))
+	k := int(math.Ceil(Plateau * float64(n)))
 	if n < 5 || k < 1 {
 		return math.NaN()
 	}
