@@ -24,6 +24,7 @@ var layerRules = []struct {
 	may []string
 }{
 	{"limpid/cmd/...", []string{"limpid/..."}},
+	{"limpid/scripts/...", []string{"limpid/scripts/...", "limpid/step/...", "limpid/psf/...", "limpid/raster/...", "limpid/arrowio/..."}},
 	{"limpid/step/...", []string{"limpid/step/...", "limpid/psf/...", "limpid/raster/...", "limpid/arrowio/..."}},
 	{"limpid/psf/...", []string{"limpid/psf/...", "limpid/raster/..."}},
 	{"limpid/arrowio/...", []string{"limpid/arrowio/...", "limpid/raster/..."}},

@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"math"
 	"path/filepath"
@@ -12,6 +11,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/product"
 	"limpid/step/resample"
 )
 
@@ -99,45 +99,5 @@ func createUncertainty(j *restoreJob, om raster.Meta) (*gdal.Writer, error) {
 	if j.uncPath == "" {
 		return nil, nil
 	}
-	um := om
-	um.DataType = "Float32"
-	um.Metadata = map[string]string{}
-	for k, v := range om.Metadata {
-		um.Metadata[k] = v
-	}
-	um.Bands = append([]raster.BandInfo(nil), om.Bands...)
-	for i := range um.Bands {
-		um.Bands[i].NoData, um.Bands[i].HasNoData = math.NaN(), true
-	}
-	return gdal.Create(j.uncPath, um, gdal.WriteOptions{Format: j.format, DataType: "Float32", NoData: math.NaN(), HasNoData: true})
-}
-
-func particleParams(p *step.ParticleReport) map[string]any {
-	return map[string]any{"particles_per_pixel": p.PerPixel, "potential": p.Potential, "resampling": p.Resampling,
-		"ess_threshold": p.ESSThreshold, "burn_in": p.BurnIn, "start": p.Start, "batches": p.Batches, "replicates": p.Replicates}
-}
-
-// recordUncertainty labels the standard-error raster.
-func recordUncertainty(dst *gdal.Writer, rep *step.Report) error {
-	params, _ := json.Marshal(particleParams(rep.Particle))
-	items := [][2]string{
-		{"LIMPID_PRODUCT", "Monte Carlo standard error (DN) of a restored (deconvolved) image"},
-		{"LIMPID_VERSION", rep.Version},
-		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
-		{"LIMPID_PSF", rep.PSF},
-		{"LIMPID_PARAMETERS", string(params)},
-		{"LIMPID_SE_BLEND", step.SEBlendRule},
-		{"LIMPID_SE_METHOD", rep.Particle.SEMethod},
-	}
-	for _, it := range items {
-		if err := dst.SetMetadata(it[0], it[1]); err != nil {
-			return err
-		}
-	}
-	for i, b := range rep.Particle.Bands {
-		if err := dst.SetBandMetadata(i, "LIMPID_MEAN_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanSE)); err != nil {
-			return err
-		}
-	}
-	return nil
+	return gdal.Create(j.uncPath, product.UncertaintyMeta(om), gdal.WriteOptions{Format: j.format, DataType: "Float32", NoData: math.NaN(), HasNoData: true})
 }

@@ -2,7 +2,6 @@ package main
 
 import (
 	"context"
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -20,6 +19,7 @@ import (
 	"limpid/raster/gdal"
 	"limpid/step"
 	"limpid/step/noise"
+	"limpid/step/product"
 )
 
 func env(name string) []string {
@@ -370,9 +370,9 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	if err != nil {
 		return nil, err
 	}
-	om := outputMeta(meta, bands, j)
+	om := product.Meta(meta, bands, j.outType == "float32")
 	wopts := gdal.WriteOptions{Format: j.format, DataType: om.DataType}
-	wopts.NoData, wopts.HasNoData = outputNoData(meta, bands, j)
+	wopts.NoData, wopts.HasNoData = product.NoData(meta, bands, j.outType == "float32", j.cfg.HasSaturated)
 	if j.out == "-" {
 		wopts.Stdout = stdout
 	}
@@ -402,19 +402,19 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 		abort()
 		return nil, err
 	}
-	if err := recordProcessing(dst, rep); err != nil {
+	if err := record(dst, product.Metadata(rep)); err != nil {
 		abort()
 		return nil, err
 	}
 	if unc != nil {
-		if err := recordUncertainty(unc, rep); err != nil {
+		if err := record(unc, product.UncertaintyMetadata(rep)); err != nil {
 			abort()
 			return nil, err
 		}
 	}
 	if j.reportPath != "" {
 		full := fullReport{Input: j.in, Output: j.out, Format: string(j.format), OutputType: om.DataType,
-			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: "restored (deconvolved) image; keep the original", Step: rep,
+			DataType: meta.DataType, Finished: time.Now().UTC().Format(time.RFC3339), Product: product.Label, Step: rep,
 			Uncertainty: j.uncPath}
 		if err := writeJSON("--report", j.reportPath, full); err != nil {
 			abort()
@@ -454,91 +454,6 @@ func tileCount(meta raster.Meta, cfg step.Config) int {
 	return p.NTiles()
 }
 
-// outputMeta is the input's description restricted to the selected bands,
-// with the output type.
-func outputMeta(meta raster.Meta, bands []int, j *restoreJob) raster.Meta {
-	om := meta
-	om.Bands = nil
-	for _, b := range bands {
-		om.Bands = append(om.Bands, meta.Bands[b])
-	}
-	if j.outType == "float32" {
-		om.DataType = "Float32"
-	}
-	om.Metadata = map[string]string{}
-	for k, v := range meta.Metadata {
-		om.Metadata[k] = v
-	}
-	return om
-}
-
-// outputNoData: the input's nodata when it has one; otherwise NaN for float
-// outputs and the type's maximum for integer outputs, set only when invalid
-// pixels can occur (float input, or --saturated).
-func outputNoData(meta raster.Meta, bands []int, j *restoreJob) (float64, bool) {
-	for _, b := range bands {
-		if meta.Bands[b].HasNoData {
-			return meta.Bands[b].NoData, true
-		}
-	}
-	_, _, inInteger := raster.TypeRange(meta.DataType)
-	if inInteger && !j.cfg.HasSaturated {
-		return 0, false // integer samples are always finite: no invalid pixel can occur
-	}
-	outType := meta.DataType
-	if j.outType == "float32" {
-		outType = "Float32"
-	}
-	if _, hi, outInteger := raster.TypeRange(outType); outInteger {
-		return hi, true
-	}
-	return math.NaN(), true
-}
-
-// recordProcessing adds limpid's processing metadata to the output.
-func recordProcessing(dst *gdal.Writer, rep *step.Report) error {
-	pm := map[string]any{
-		"smooth": rep.Smooth, "smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
-		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,
-	}
-	if rep.Particle != nil {
-		pm["particle"] = particleParams(rep.Particle)
-	}
-	params, _ := json.Marshal(pm)
-	items := [][2]string{
-		{"LIMPID_PRODUCT", "restored (deconvolved) image; keep the original"},
-		{"LIMPID_VERSION", rep.Version},
-		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
-		{"LIMPID_PSF", rep.PSF},
-		{"LIMPID_PARAMETERS", string(params)},
-	}
-	for _, it := range items {
-		if err := dst.SetMetadata(it[0], it[1]); err != nil {
-			return err
-		}
-	}
-	for i, b := range rep.Bands {
-		items := [][2]string{
-			{"LIMPID_SOURCE_BAND", strconv.Itoa(b.SourceBand)},
-			{"LIMPID_BACKGROUND", strconv.FormatFloat(b.Background, 'g', -1, 64)},
-			{"LIMPID_ITERATIONS_MAX", strconv.Itoa(b.MaxIterations)},
-		}
-		if b.Choice != nil {
-			items = append(items, [2]string{"LIMPID_SMOOTH_CHOSEN", strconv.FormatFloat(b.Choice.Smooth, 'g', -1, 64)},
-				[2]string{"LIMPID_ITERATIONS_CHOSEN", strconv.Itoa(b.Choice.Iterations)})
-		}
-		if b.Noise != nil {
-			items = append(items, [2]string{"LIMPID_NOISE", fmt.Sprintf("var = %g * DN + %g (%s)", b.Noise.A, b.Noise.B, b.Noise.Source)})
-		}
-		for _, it := range items {
-			if err := dst.SetBandMetadata(i, it[0], it[1]); err != nil {
-				return err
-			}
-		}
-	}
-	return nil
-}
-
 // progress reports tiles done: a redrawn line when stderr is a terminal,
 // a plain log line about every 10 % otherwise.
 func progress(stderr io.Writer, total int) func(done, total int) {
@@ -563,4 +478,21 @@ func progress(stderr io.Writer, total int) func(done, total int) {
 			fmt.Fprintf(stderr, "limpid: restored %d/%d tiles (%d%%) in %s\n", done, n, pct, el)
 		}
 	}
+}
+
+// record writes processing metadata items to a GDAL output.
+func record(dst *gdal.Writer, rec product.Record) error {
+	for _, it := range rec.Scene {
+		if err := dst.SetMetadata(it.Key, it.Value); err != nil {
+			return err
+		}
+	}
+	for i, items := range rec.Bands {
+		for _, it := range items {
+			if err := dst.SetBandMetadata(i, it.Key, it.Value); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
 }

@@ -17,6 +17,7 @@ import (
 	"limpid/raster"
 	"limpid/raster/gdal"
 	"limpid/step"
+	"limpid/step/product"
 	"limpid/step/stream"
 )
 
@@ -277,10 +278,9 @@ func createRasterFor(h *arrowio.Header, out string, format gdal.Format, outType 
 	for i := range all {
 		all[i] = i
 	}
-	j := &restoreJob{format: format, outType: outType, cfg: step.Config{HasSaturated: hasSaturated}}
-	om := outputMeta(meta, all, j)
+	om := product.Meta(meta, all, outType == "float32")
 	wopts := gdal.WriteOptions{Format: format, DataType: om.DataType}
-	wopts.NoData, wopts.HasNoData = outputNoData(meta, all, j)
+	wopts.NoData, wopts.HasNoData = product.NoData(meta, all, outType == "float32", hasSaturated)
 	if out == "-" {
 		wopts.Stdout = stdout
 	}
@@ -344,7 +344,7 @@ func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 		return streamErr(in, err)
 	}
 	if rep != nil {
-		if err := recordProcessing(dst, rep); err != nil {
+		if err := record(dst, product.Metadata(rep)); err != nil {
 			dst.Abort()
 			return err
 		}
@@ -352,8 +352,42 @@ func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	return dst.Commit()
 }
 
-// runStreamRestore is restore with a tile stream on either side.
+// runStreamRestore is restore with a tile stream on either side: the flag
+// checks, the input (a stream, or a raster cut into tiles), then the tiles
+// restored to a stream or assembled into a raster.
 func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin io.Reader, stdout, stderr io.Writer) error {
+	if err := checkStreamJob(c, j); err != nil {
+		return err
+	}
+	in, err := openStreamInput(c, j, stdin, stderr)
+	if err != nil {
+		return err
+	}
+	defer in.close()
+	bgs, err := stream.StreamBackgrounds(in.cfg, in.hdr, in.raster, in.bands)
+	if err != nil {
+		return err
+	}
+	outHdr, err := stream.RestoredHeader(in.hdr, in.cfg, bgs)
+	if err != nil {
+		return err
+	}
+	tiles := 0
+	in.cfg.Progress = func(done, _ int) { tiles = done }
+	if c.String("output-format") == "arrow" {
+		err = restoreToStream(ctx, c, j, in, bgs, outHdr, stdout)
+	} else {
+		err = restoreToRaster(ctx, j, in, bgs, outHdr, stdout)
+	}
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(stderr, "limpid: restored %d tiles\n", tiles)
+	return nil
+}
+
+// checkStreamJob refuses the flags and settings a tile stream cannot honour.
+func checkStreamJob(c *cli.Context, j *restoreJob) error {
 	inFmt, outFmt := c.String("input-format"), c.String("output-format")
 	if err := checkCompress(c.String("compress")); err != nil {
 		return err
@@ -367,104 +401,123 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 	if j.reportPath != "" {
 		return usagef("--report is available only with raster input and output (a tile stream carries each tile's iterations and final change instead)")
 	}
-	cfg := j.cfg
 	// A stream is restored tile by tile without the rest of the scene, so
 	// the scene-wide noise fit and choice cannot run there.
-	if cfg.SmoothAuto || cfg.Stop == step.StopAuto {
+	if j.cfg.SmoothAuto || j.cfg.Stop == step.StopAuto {
 		return usagef("--smooth auto and --stop auto need the whole scene and cannot run on a tile stream: give --smooth EPS with --stop change, or --stop discrepancy with --noise a=...,b=... (limpid noise prints them)")
 	}
-	if cfg.Stop == step.StopDiscrepancy && cfg.Noise == nil {
+	if j.cfg.Stop == step.StopDiscrepancy && j.cfg.Noise == nil {
 		return usagef("--stop discrepancy on a tile stream needs --noise a=...,b=... (the noise fit needs the whole scene; limpid noise prints it)")
 	}
-	var (
-		hdr    *arrowio.Header
-		src    stream.TileSource
-		rsrc   raster.Reader
-		bands  []int
-		inName = j.in
-	)
-	if inFmt == "arrow" {
-		if c.IsSet("bands") {
-			return usagef("--bands: a tile stream is restored whole; choose the bands when packing (limpid tiles pack --bands)")
-		}
+	if inFmt == "arrow" && c.IsSet("bands") {
+		return usagef("--bands: a tile stream is restored whole; choose the bands when packing (limpid tiles pack --bands)")
+	}
+	return nil
+}
+
+// streamInput is the observed side of a stream restore.
+type streamInput struct {
+	cfg    step.Config
+	hdr    *arrowio.Header
+	src    stream.TileSource
+	raster raster.Reader // the scene, for a raster INPUT (else nil)
+	bands  []int
+	closes []func()
+}
+
+func (in *streamInput) close() {
+	for i := len(in.closes) - 1; i >= 0; i-- {
+		in.closes[i]()
+	}
+}
+
+// openStreamInput opens INPUT as an observed stream, or cuts a raster
+// INPUT into one, and sets the job's tiling from it.
+func openStreamInput(c *cli.Context, j *restoreJob, stdin io.Reader, stderr io.Writer) (*streamInput, error) {
+	in := &streamInput{cfg: j.cfg}
+	if c.String("input-format") == "arrow" {
 		r, closeIn, err := openStream(j.in, stdin)
 		if err != nil {
-			return err
+			return nil, err
 		}
-		defer closeIn()
-		hdr, src = r.Header(), r
-		if c.IsSet("tile") && c.Int("tile") != hdr.Tile {
-			return usagef("--tile %d: the stream INPUT %s is cut in tiles of %d (%s)", c.Int("tile"), j.in, hdr.Tile, arrowio.KeyTileSize)
+		in.closes = append(in.closes, closeIn)
+		in.hdr, in.src = r.Header(), r
+		if err := in.streamTiling(c, j, stderr); err != nil {
+			in.close()
+			return nil, err
 		}
-		if o := c.String("overlap"); c.IsSet("overlap") && o != "auto" && o != strconv.Itoa(hdr.Overlap) {
-			return usagef("--overlap %s: the stream INPUT %s has an overlap of %d (%s)", o, j.in, hdr.Overlap, arrowio.KeyOverlap)
-		}
-		cfg.SetTiling(hdr.Tile, hdr.Overlap)
-		if err := cfg.Resolve(); err != nil {
-			return err
-		}
-		if want := step.DefaultOverlap(cfg.PSF, cfg.Smooth, cfg.Tile); hdr.Overlap < want {
-			fmt.Fprintf(stderr, "limpid: warning: the stream's overlap %d is below the %d this PSF and smoothing want; tile borders may show (pack with --overlap %d)\n", hdr.Overlap, want, want)
-		}
-	} else {
-		s, cleanup, err := openRaster(j.in, stdin)
-		if err != nil {
-			return err
-		}
-		defer cleanup()
-		defer s.Close()
-		meta := s.Meta()
-		if bands, err = parseBands(j.bandSpec, len(meta.Bands)); err != nil {
-			return err
-		}
-		if hdr, err = stream.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), j.in), cfg.Tile, cfg.Halo()); err != nil {
-			return err
-		}
-		if src, err = stream.NewSceneTiler(s, bands, hdr); err != nil {
-			return err
-		}
-		rsrc = s
+		return in, nil
 	}
-	bgs, err := stream.StreamBackgrounds(cfg, hdr, rsrc, bands)
+	s, cleanup, err := openRaster(j.in, stdin)
+	if err != nil {
+		return nil, err
+	}
+	in.closes = append(in.closes, cleanup, func() { s.Close() })
+	meta := s.Meta()
+	if in.bands, err = parseBands(j.bandSpec, len(meta.Bands)); err == nil {
+		in.hdr, err = stream.ObservedHeader(meta, in.bands, sceneID(c.String("scene-id"), j.in), in.cfg.Tile, in.cfg.Halo())
+	}
+	if err == nil {
+		in.src, err = stream.NewSceneTiler(s, in.bands, in.hdr)
+	}
+	if err != nil {
+		in.close()
+		return nil, err
+	}
+	in.raster = s
+	return in, nil
+}
+
+// streamTiling takes the tiling of a stream INPUT (refusing flags that
+// contradict it) and warns when its overlap is short for the PSF.
+func (in *streamInput) streamTiling(c *cli.Context, j *restoreJob, stderr io.Writer) error {
+	hdr := in.hdr
+	if c.IsSet("tile") && c.Int("tile") != hdr.Tile {
+		return usagef("--tile %d: the stream INPUT %s is cut in tiles of %d (%s)", c.Int("tile"), j.in, hdr.Tile, arrowio.KeyTileSize)
+	}
+	if o := c.String("overlap"); c.IsSet("overlap") && o != "auto" && o != strconv.Itoa(hdr.Overlap) {
+		return usagef("--overlap %s: the stream INPUT %s has an overlap of %d (%s)", o, j.in, hdr.Overlap, arrowio.KeyOverlap)
+	}
+	in.cfg.SetTiling(hdr.Tile, hdr.Overlap)
+	if err := in.cfg.Resolve(); err != nil {
+		return err
+	}
+	if want := step.DefaultOverlap(in.cfg.PSF, in.cfg.Smooth, in.cfg.Tile); hdr.Overlap < want {
+		fmt.Fprintf(stderr, "limpid: warning: the stream's overlap %d is below the %d this PSF and smoothing want; tile borders may show (pack with --overlap %d)\n", hdr.Overlap, want, want)
+	}
+	return nil
+}
+
+// restoreToStream writes the restored tiles as a stream at OUTPUT.
+func restoreToStream(ctx context.Context, c *cli.Context, j *restoreJob, in *streamInput, bgs []float64, outHdr *arrowio.Header, stdout io.Writer) error {
+	o, err := createStreamOutput(j.out, stdout)
 	if err != nil {
 		return err
 	}
-	outHdr, err := stream.RestoredHeader(hdr, cfg, bgs)
+	w, err := arrowio.NewWriter(o.w, outHdr, arrowio.WithCompression(c.String("compress")))
 	if err != nil {
+		o.abort()
 		return err
 	}
-	tiles := 0
-	cfg.Progress = func(done, _ int) { tiles = done }
-	if outFmt == "arrow" {
-		o, err := createStreamOutput(j.out, stdout)
-		if err != nil {
-			return err
-		}
-		w, err := arrowio.NewWriter(o.w, outHdr, arrowio.WithCompression(c.String("compress")))
-		if err != nil {
-			o.abort()
-			return err
-		}
-		if err := stream.RestoreTiles(ctx, hdr, bgs, src, w, cfg); err != nil {
-			w.Abandon()
-			o.abort()
-			return streamErr(inName, err)
-		}
-		if err := w.Close(); err != nil {
-			o.abort()
-			return err
-		}
-		if err := o.commit(); err != nil {
-			return err
-		}
-		fmt.Fprintf(stderr, "limpid: restored %d tiles\n", tiles)
-		return nil
+	if err := stream.RestoreTiles(ctx, in.hdr, bgs, in.src, w, in.cfg); err != nil {
+		w.Abandon()
+		o.abort()
+		return streamErr(j.in, err)
 	}
+	if err := w.Close(); err != nil {
+		o.abort()
+		return err
+	}
+	return o.commit()
+}
+
+// restoreToRaster assembles the restored tiles into a raster at OUTPUT.
+func restoreToRaster(ctx context.Context, j *restoreJob, in *streamInput, bgs []float64, outHdr *arrowio.Header, stdout io.Writer) error {
 	rep, err := stream.ReportFromHeader(outHdr)
 	if err != nil {
 		return err
 	}
-	dst, err := createRasterFor(outHdr, j.out, j.format, j.outType, cfg.HasSaturated, stdout)
+	dst, err := createRasterFor(outHdr, j.out, j.format, j.outType, in.cfg.HasSaturated, stdout)
 	if err != nil {
 		return err
 	}
@@ -474,21 +527,17 @@ func runStreamRestore(ctx context.Context, c *cli.Context, j *restoreJob, stdin 
 		return err
 	}
 	asm.Report = rep
-	if err := stream.RestoreTiles(ctx, hdr, bgs, src, asm, cfg); err != nil {
+	if err := stream.RestoreTiles(ctx, in.hdr, bgs, in.src, asm, in.cfg); err != nil {
 		dst.Abort()
-		return streamErr(inName, err)
+		return streamErr(j.in, err)
 	}
 	if err := asm.Finish(); err != nil {
 		dst.Abort()
-		return streamErr(inName, err)
+		return streamErr(j.in, err)
 	}
-	if err := recordProcessing(dst, rep); err != nil {
+	if err := record(dst, product.Metadata(rep)); err != nil {
 		dst.Abort()
 		return err
 	}
-	if err := dst.Commit(); err != nil {
-		return err
-	}
-	fmt.Fprintf(stderr, "limpid: restored %d tiles\n", tiles)
-	return nil
+	return dst.Commit()
 }

@@ -18,7 +18,7 @@ import (
 // use_sample_covariance=False, data_range=L) and peak_signal_noise_ratio,
 // through testdata/ref/make_quality_reference.py run with /usr/bin/python3.
 func TestQualityAgainstSkimage(t *testing.T) {
-	b, err := os.ReadFile("../testdata/ref/quality_skimage.json")
+	b, err := os.ReadFile("../../testdata/ref/quality_skimage.json")
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,0 +1,156 @@
+// Package product holds the rules of limpid's output products that do not
+// depend on a file format: the output's bands, data type and nodata, and the
+// processing metadata every restored raster and standard-error raster
+// carries (the contract the README documents under "What is kept and what
+// is added"). Writers (the GDAL adapter, the stream assembler) apply them.
+package product
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"strconv"
+
+	"limpid/raster"
+	"limpid/step"
+)
+
+// Label is the LIMPID_PRODUCT item of a restored raster.
+const Label = "restored (deconvolved) image; keep the original"
+
+// uncertaintyLabel is the LIMPID_PRODUCT item of a standard-error raster.
+const uncertaintyLabel = "Monte Carlo standard error (DN) of a restored (deconvolved) image"
+
+// Meta is the output's description: the input's, restricted to bands
+// (0-based, output order), Float32 when float32 is set, with a copy of the
+// input's metadata.
+func Meta(in raster.Meta, bands []int, float32 bool) raster.Meta {
+	om := in
+	om.Bands = nil
+	for _, b := range bands {
+		om.Bands = append(om.Bands, in.Bands[b])
+	}
+	if float32 {
+		om.DataType = "Float32"
+	}
+	om.Metadata = map[string]string{}
+	for k, v := range in.Metadata {
+		om.Metadata[k] = v
+	}
+	return om
+}
+
+// NoData is the output's nodata: the input's when one of bands has one;
+// otherwise NaN for float outputs and the type's maximum for integer ones,
+// set only when invalid pixels can occur (float input, or a saturation
+// level).
+func NoData(in raster.Meta, bands []int, float32, saturated bool) (float64, bool) {
+	for _, b := range bands {
+		if in.Bands[b].HasNoData {
+			return in.Bands[b].NoData, true
+		}
+	}
+	_, _, inInteger := raster.TypeRange(in.DataType)
+	if inInteger && !saturated {
+		return 0, false // integer samples are always finite: no invalid pixel can occur
+	}
+	outType := in.DataType
+	if float32 {
+		outType = "Float32"
+	}
+	if _, hi, outInteger := raster.TypeRange(outType); outInteger {
+		return hi, true
+	}
+	return math.NaN(), true
+}
+
+// UncertaintyMeta is the standard-error raster's description: the output's
+// grid and bands, Float32, NaN nodata.
+func UncertaintyMeta(om raster.Meta) raster.Meta {
+	um := om
+	um.DataType = "Float32"
+	um.Metadata = map[string]string{}
+	for k, v := range om.Metadata {
+		um.Metadata[k] = v
+	}
+	um.Bands = append([]raster.BandInfo(nil), om.Bands...)
+	for i := range um.Bands {
+		um.Bands[i].NoData, um.Bands[i].HasNoData = math.NaN(), true
+	}
+	return um
+}
+
+// Item is one metadata item, written in order.
+type Item struct{ Key, Value string }
+
+// Record is a raster's processing metadata: the dataset's items and each
+// output band's.
+type Record struct {
+	Scene []Item
+	Bands [][]Item
+}
+
+// Metadata is the processing metadata of a restored raster.
+func Metadata(rep *step.Report) Record {
+	var scene []Item
+	var bands [][]Item
+	pm := map[string]any{
+		"smooth": rep.Smooth, "smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
+		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,
+	}
+	if rep.Particle != nil {
+		pm["particle"] = ParticleParams(rep.Particle)
+	}
+	params, _ := json.Marshal(pm)
+	scene = []Item{
+		{"LIMPID_PRODUCT", Label},
+		{"LIMPID_VERSION", rep.Version},
+		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
+		{"LIMPID_PSF", rep.PSF},
+		{"LIMPID_PARAMETERS", string(params)},
+	}
+	for _, b := range rep.Bands {
+		items := []Item{
+			{"LIMPID_SOURCE_BAND", strconv.Itoa(b.SourceBand)},
+			{"LIMPID_BACKGROUND", strconv.FormatFloat(b.Background, 'g', -1, 64)},
+			{"LIMPID_ITERATIONS_MAX", strconv.Itoa(b.MaxIterations)},
+		}
+		if b.Choice != nil {
+			items = append(items, Item{"LIMPID_SMOOTH_CHOSEN", strconv.FormatFloat(b.Choice.Smooth, 'g', -1, 64)},
+				Item{"LIMPID_ITERATIONS_CHOSEN", strconv.Itoa(b.Choice.Iterations)})
+		}
+		if b.Noise != nil {
+			items = append(items, Item{"LIMPID_NOISE", fmt.Sprintf("var = %g * DN + %g (%s)", b.Noise.A, b.Noise.B, b.Noise.Source)})
+		}
+		bands = append(bands, items)
+	}
+	return Record{Scene: scene, Bands: bands}
+}
+
+// UncertaintyMetadata is the processing metadata of the particle method's
+// standard-error raster.
+func UncertaintyMetadata(rep *step.Report) Record {
+	var scene []Item
+	var bands [][]Item
+	params, _ := json.Marshal(ParticleParams(rep.Particle))
+	scene = []Item{
+		{"LIMPID_PRODUCT", uncertaintyLabel},
+		{"LIMPID_VERSION", rep.Version},
+		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
+		{"LIMPID_PSF", rep.PSF},
+		{"LIMPID_PARAMETERS", string(params)},
+		{"LIMPID_SE_BLEND", step.SEBlendRule},
+		{"LIMPID_SE_METHOD", rep.Particle.SEMethod},
+	}
+	for _, b := range rep.Particle.Bands {
+		bands = append(bands, []Item{{"LIMPID_MEAN_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanSE)}})
+	}
+	return Record{Scene: scene, Bands: bands}
+}
+
+// ParticleParams are the particle method's parameters as the metadata and
+// the HTML report record them.
+func ParticleParams(p *step.ParticleReport) map[string]any {
+	return map[string]any{"particles_per_pixel": p.PerPixel, "potential": p.Potential, "resampling": p.Resampling,
+		"ess_threshold": p.ESSThreshold, "burn_in": p.BurnIn, "start": p.Start, "batches": p.Batches, "replicates": p.Replicates}
+}
