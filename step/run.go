@@ -261,6 +261,27 @@ func GivenNoiseFloor(b float64) float64 { return math.Max(1e-6, 0.01*b) }
 
 // Resolve fills defaults and validates cfg against the scene.
 func (cfg *Config) Resolve() error {
+	if err := cfg.resolveSolver(); err != nil {
+		return err
+	}
+	if err := cfg.resolveTiling(); err != nil {
+		return err
+	}
+	if cfg.Method == MethodParticle {
+		if cfg.Stop != StopChange {
+			return fieldErrorf("Stop", "{Stop} %s: the particle method runs a fixed number of iterations ({Iterations}, {Particle.BurnIn}); {Stop} auto and discrepancy apply to the grid method", cfg.Stop)
+		}
+		return cfg.resolveParticle()
+	}
+	if cfg.Uncertainty != nil {
+		return fieldErrorf("Uncertainty", "{Uncertainty}: the grid method has no Monte Carlo error (use {Method} particle)")
+	}
+	return nil
+}
+
+// resolveSolver: the method, the stop rule and its cap, the smoothing, the
+// choice's scope and the given noise model.
+func (cfg *Config) resolveSolver() error {
 	if cfg.PSF == nil {
 		return fmt.Errorf("%w: no PSF", ErrConfig)
 	}
@@ -304,6 +325,12 @@ func (cfg *Config) Resolve() error {
 		m.Floor = GivenNoiseFloor(m.B)
 		cfg.Noise = &m
 	}
+	return nil
+}
+
+// resolveTiling: the change tolerance, the background, the tiles, their
+// halo and the workers.
+func (cfg *Config) resolveTiling() error {
 	if math.IsNaN(cfg.Tolerance) || cfg.Tolerance < 0 {
 		return fieldErrorf("Tolerance", "{Tolerance} %g must be >= 0", cfg.Tolerance)
 	}
@@ -337,15 +364,6 @@ func (cfg *Config) Resolve() error {
 	}
 	if cfg.Workers > 1024 {
 		return fieldErrorf("Workers", "{Workers} %d is more than 1024", cfg.Workers)
-	}
-	if cfg.Method == MethodParticle {
-		if cfg.Stop != StopChange {
-			return fieldErrorf("Stop", "{Stop} %s: the particle method runs a fixed number of iterations ({Iterations}, {Particle.BurnIn}); {Stop} auto and discrepancy apply to the grid method", cfg.Stop)
-		}
-		return cfg.resolveParticle()
-	}
-	if cfg.Uncertainty != nil {
-		return fieldErrorf("Uncertainty", "{Uncertainty}: the grid method has no Monte Carlo error (use {Method} particle)")
 	}
 	return nil
 }

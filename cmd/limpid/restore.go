@@ -182,22 +182,8 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 			cfg.Overlap = step.NoOverlap
 		}
 	}
-	switch b := c.String("background"); b {
-	case "auto":
-		cfg.BackgroundAuto = true
-	default:
-		v, err := strconv.ParseFloat(b, 64)
-		if err != nil || math.IsNaN(v) || math.IsInf(v, 0) || v < 0 {
-			return nil, usagef("--background %q: give a value >= 0 in DN or auto", b)
-		}
-		cfg.Background = v
-	}
-	if s := c.String("saturated"); s != "" {
-		v, err := strconv.ParseFloat(s, 64)
-		if err != nil || math.IsNaN(v) {
-			return nil, usagef("--saturated %q is not a number", s)
-		}
-		cfg.Saturated, cfg.HasSaturated = v, true
+	if err := parseLevels(c, &cfg); err != nil {
+		return nil, err
 	}
 	if err := parseParticle(c, &cfg, j); err != nil {
 		return nil, err
@@ -210,6 +196,28 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	}
 	j.cfg = cfg
 	return j, nil
+}
+
+// parseLevels reads --background and --saturated.
+func parseLevels(c *cli.Context, cfg *step.Config) error {
+	switch b := c.String("background"); b {
+	case "auto":
+		cfg.BackgroundAuto = true
+	default:
+		v, err := strconv.ParseFloat(b, 64)
+		if err != nil || math.IsNaN(v) || math.IsInf(v, 0) || v < 0 {
+			return usagef("--background %q: give a value >= 0 in DN or auto", b)
+		}
+		cfg.Background = v
+	}
+	if s := c.String("saturated"); s != "" {
+		v, err := strconv.ParseFloat(s, 64)
+		if err != nil || math.IsNaN(v) {
+			return usagef("--saturated %q is not a number", s)
+		}
+		cfg.Saturated, cfg.HasSaturated = v, true
+	}
+	return nil
 }
 
 // Defaults of --smooth and --stop (DEVELOPERS.md, "Automatic
@@ -391,25 +399,42 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	if unc != nil {
 		cfg.Uncertainty = unc
 	}
+	rep, err := step.Restore(ctx, src, bands, dst, cfg)
+	if err != nil {
+		dst.Abort()
+		if unc != nil {
+			unc.Abort()
+		}
+		return nil, err
+	}
+	if err := commitRestore(j, meta, om, rep, dst, unc); err != nil {
+		return nil, err
+	}
+	// The product is finished; quicklook and HTML page are made from it.
+	if err := writeViews(j, inPath, bands, rep); err != nil {
+		return rep, err
+	}
+	return rep, nil
+}
+
+// commitRestore labels the outputs, writes the JSON report and commits the
+// standard-error raster and then OUTPUT; on failure nothing is left at
+// their paths.
+func commitRestore(j *restoreJob, meta, om raster.Meta, rep *step.Report, dst, unc *gdal.Writer) error {
 	abort := func() {
 		dst.Abort()
 		if unc != nil {
 			unc.Abort()
 		}
 	}
-	rep, err := step.Restore(ctx, src, bands, dst, cfg)
-	if err != nil {
-		abort()
-		return nil, err
-	}
 	if err := record(dst, product.Metadata(rep)); err != nil {
 		abort()
-		return nil, err
+		return err
 	}
 	if unc != nil {
 		if err := record(unc, product.UncertaintyMetadata(rep)); err != nil {
 			abort()
-			return nil, err
+			return err
 		}
 	}
 	if j.reportPath != "" {
@@ -418,7 +443,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 			Uncertainty: j.uncPath}
 		if err := writeJSON("--report", j.reportPath, full); err != nil {
 			abort()
-			return nil, err
+			return err
 		}
 	}
 	if unc != nil {
@@ -427,7 +452,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 			if j.reportPath != "" {
 				os.Remove(j.reportPath)
 			}
-			return nil, err
+			return err
 		}
 	}
 	if err := dst.Commit(); err != nil {
@@ -437,13 +462,9 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 		if unc != nil {
 			os.Remove(j.uncPath)
 		}
-		return nil, err
+		return err
 	}
-	// The product is finished; quicklook and HTML page are made from it.
-	if err := writeViews(j, inPath, bands, rep); err != nil {
-		return rep, err
-	}
-	return rep, nil
+	return nil
 }
 
 func tileCount(meta raster.Meta, cfg step.Config) int {

@@ -63,7 +63,9 @@ func ObservedHeader(meta raster.Meta, bands []int, sceneID string, tile, overlap
 	return h, nil
 }
 
-func clipSpan(s step.Span, n int) step.Span { return step.Span{Start: max(0, s.Start), End: min(n, s.End)} }
+func clipSpan(s step.Span, n int) step.Span {
+	return step.Span{Start: max(0, s.Start), End: min(n, s.End)}
+}
 
 // streamParams are the restoration parameters a restored stream records
 // (the same keys as the LIMPID_PARAMETERS metadata of a restored raster).
