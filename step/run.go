@@ -195,6 +195,10 @@ func fieldErrorf(field, format string, a ...any) error {
 	return &FieldError{Field: field, Text: fmt.Sprintf(format, a...)}
 }
 
+// FieldErrorf is a FieldError about field with the formatted Text (field
+// names in braces), for the engine's sub-packages.
+func FieldErrorf(field, format string, a ...any) error { return fieldErrorf(field, format, a...) }
+
 func (e *FieldError) Error() string { return e.Format(func(f string) string { return f }) }
 
 func (e *FieldError) Unwrap() error { return ErrConfig }

@@ -58,7 +58,7 @@ func ObservedHeader(meta raster.Meta, bands []int, sceneID string, tile, overlap
 		bh = max(bh, clipSpan(p.InSpan(p.Rows, i), p.H).Len())
 	}
 	if int64(bw)*int64(bh) > arrowio.MaxTilePixels {
-		return nil, fmt.Errorf("%w: tile %d with overlap %d makes %dx%d buffers, more than %d pixels per batch: lower --tile", step.ErrConfig, tile, overlap, bw, bh, arrowio.MaxTilePixels)
+		return nil, step.FieldErrorf("Tile", "tile %d with overlap %d makes %dx%d buffers, more than %d pixels per batch: lower {Tile}", tile, overlap, bw, bh, arrowio.MaxTilePixels)
 	}
 	return h, nil
 }
@@ -138,7 +138,7 @@ func StreamBackgrounds(cfg step.Config, h *arrowio.Header, src raster.Reader, ba
 		return out, nil
 	}
 	if src == nil {
-		return nil, fmt.Errorf("%w: --background auto needs the whole scene; a tile-stream input is restored tile by tile: give a value", step.ErrConfig)
+		return nil, step.FieldErrorf("Background", "{Background} auto needs the whole scene; a tile-stream input is restored tile by tile: give a value")
 	}
 	valid := make([]step.ValidFunc, len(bands))
 	for i, b := range h.Bands {
