@@ -60,28 +60,7 @@ func (e *ems64) smoothing(src []float64) []float64 {
 	if e.smooth == nil {
 		return src
 	}
-	w, h, t := e.w, e.h, e.smooth
-	r := (len(t) - 1) / 2
-	tmp, dst := make([]float64, w*h), make([]float64, w*h)
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var s float64
-			for j := -r; j <= r; j++ {
-				s += t[j+r] * src[y*w+raster.Mirror(x+j, w)]
-			}
-			tmp[y*w+x] = s
-		}
-	}
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var s float64
-			for j := -r; j <= r; j++ {
-				s += t[j+r] * tmp[raster.Mirror(y+j, h)*w+x]
-			}
-			dst[y*w+x] = s
-		}
-	}
-	return dst
+	return conv.Blur64(src, e.w, e.h, e.smooth)
 }
 
 // run returns f_K and u_K = (d f_K / d d) delta from the flat start.

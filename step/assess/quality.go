@@ -1,9 +1,8 @@
 package assess
 
 import (
+	"limpid/step/conv"
 	"math"
-
-	"limpid/raster"
 )
 
 // PSNR is 10 log10(L^2 / MSE) over pixels where valid is true (nil: all).
@@ -48,9 +47,8 @@ func SSIM(ref, img []float32, valid []bool, w, h int, L float64) float64 {
 		}
 		mx[i], my[i], mxx[i], myy[i], mxy[i] = a, b, a*a, b*b, a*b
 	}
-	tmp := make([]float64, n)
 	for _, p := range [][]float64{mx, my, mxx, myy, mxy} {
-		ssimBlur(p, tmp, g, w, h)
+		copy(p, conv.Blur64(p, w, h, g))
 	}
 	bad := ssimInvalidWindows(valid, w, h)
 	c1, c2 := (0.01*L)*(0.01*L), (0.03*L)*(0.03*L)
@@ -91,29 +89,6 @@ func ssimWindow() []float64 {
 		g[i] /= gs
 	}
 	return g
-}
-
-// ssimBlur convolves the w x h plane p in place with the separable window g
-// (rows, then columns; half-sample symmetric boundaries); tmp holds w x h.
-func ssimBlur(p, tmp, g []float64, w, h int) {
-	for row := 0; row < h; row++ {
-		for col := 0; col < w; col++ {
-			var s float64
-			for k := -ssimRadius; k <= ssimRadius; k++ {
-				s += g[k+ssimRadius] * p[row*w+raster.Mirror(col+k, w)]
-			}
-			tmp[row*w+col] = s
-		}
-	}
-	for row := 0; row < h; row++ {
-		for col := 0; col < w; col++ {
-			var s float64
-			for k := -ssimRadius; k <= ssimRadius; k++ {
-				s += g[k+ssimRadius] * tmp[raster.Mirror(row+k, h)*w+col]
-			}
-			p[row*w+col] = s
-		}
-	}
 }
 
 // ssimInvalidWindows counts the invalid pixels of the window around every
