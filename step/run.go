@@ -258,11 +258,6 @@ func IterationCap(s Stop) int {
 	return DefaultIterations
 }
 
-// GivenNoiseFloor is the variance floor of a given noise model var = A DN +
-// B when Config.Noise has none: 1 % of B, at least 1e-6 (common practice,
-// no source: it only keeps the weights finite on dark pixels).
-func GivenNoiseFloor(b float64) float64 { return math.Max(1e-6, 0.01*b) }
-
 // Resolve fills defaults and validates cfg against the scene.
 func (cfg *Config) Resolve() error {
 	if err := cfg.resolveSolver(); err != nil {
@@ -326,7 +321,7 @@ func (cfg *Config) resolveSolver() error {
 	}
 	if n := cfg.Noise; n != nil && n.Floor == 0 {
 		m := *n
-		m.Floor = GivenNoiseFloor(m.B)
+		m.Floor = noise.GivenFloor(m.B)
 		cfg.Noise = &m
 	}
 	return nil

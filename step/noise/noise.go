@@ -241,7 +241,7 @@ func (s *Sampler) Fit() (Model, error) {
 	if math.IsInf(minVar, 1) {
 		minVar = 1e-6
 	}
-	m.Floor = 0.1 * minVar
+	m.Floor = fitFloor(minVar)
 	if !(m.A*bins[0].Mean+m.B > 0) && m.B <= 0 {
 		m.B = math.Max(m.B, m.Floor)
 	}
@@ -372,7 +372,23 @@ func (s *Sampler) Model() Model {
 		if math.IsInf(sig, 0) || math.IsNaN(sig) {
 			sig = 0
 		}
-		m = Model{B: sig * sig, Floor: math.Max(1e-6, 0.1*sig*sig), Source: "immerkaer (too few pixels for the intensity fit)", Samples: len(s.res)}
+		m = Model{B: sig * sig, Floor: constantFloor(sig * sig), Source: "immerkaer (too few pixels for the intensity fit)", Samples: len(s.res)}
 	}
 	return m
 }
+
+// The variance floors: the smallest variance a model returns, so that the
+// weights 1/var of the automatic choice stay finite on dark pixels. Each
+// kind of model has its rule (our prototype's values, common practice, no
+// source); they live together here so that they are changed together.
+
+// fitFloor is a fitted model's floor: a tenth of its smallest bin variance.
+func fitFloor(minVar float64) float64 { return 0.1 * minVar }
+
+// constantFloor is the floor of a constant-variance fallback v: a tenth of
+// it, at least 1e-6.
+func constantFloor(v float64) float64 { return math.Max(1e-6, 0.1*v) }
+
+// GivenFloor is the floor of a model var = A DN + B given by the user:
+// 1 % of B, at least 1e-6.
+func GivenFloor(b float64) float64 { return math.Max(1e-6, 0.01*b) }
