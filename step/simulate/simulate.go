@@ -15,12 +15,6 @@ import (
 	"limpid/step/scene"
 )
 
-// Simulation: the degradation that turns a sharp scene into an observation,
-// for validating restoration settings on data whose truth is known. It
-// follows limpid's PSF convention (the input is the scene as an ideal sensor
-// on the same grid records it; the PSF operator is the Conv restore uses,
-// half-sample symmetric boundaries), then adds sensor noise and quantises.
-
 // NoiseKind is the model of the noise Simulate adds. The zero value is
 // NoiseNone. Its text form ("none", "poisson", "gaussian") is the name
 // ParseNoise reads.

@@ -12,14 +12,6 @@ import (
 	"limpid/step"
 )
 
-// Tile streams (arrowio): the same tiles, halos, solver and blend weights as
-// Restore, with the tiles travelling one by one. A tile row of the stream
-// carries the tile's input window InSpan clipped to the scene; the mirrored
-// positions outside the scene are rebuilt from it, so a tile restored from a
-// stream is the same Problem (same pixels, mask, background and Key) as in
-// Restore, and Assembler adds the weighted windows in Restore's order:
-// pack | restore | unpack gives Restore's output bit for bit.
-
 // TileSource yields tiles in stream order (arrowio.Reader, SceneTiler).
 type TileSource interface {
 	Next(t *arrowio.Tile) (bool, error)

@@ -1,0 +1,3 @@
+// Package steptest holds test fixtures shared by the restoration engine's
+// packages (scenes of the invented demo scenario). Tests only.
+package steptest
