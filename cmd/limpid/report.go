@@ -50,6 +50,8 @@ type htmlPage struct {
 	Caution                        string
 	Finished                       string
 	HasUncertainty, HasConvergence bool
+	// PSFNote and ConvNote replace a figure that could not be drawn.
+	PSFNote, ConvNote string
 }
 
 var pageTmpl = template.Must(template.New("page").Parse(`<!DOCTYPE html>
@@ -65,7 +67,7 @@ th{background:#eee}td.l{text-align:left}img{max-width:100%;border:1px solid #ccc
 <h2>Job</h2>
 <table>{{range .Rows}}<tr><th>{{index . 0}}</th><td class="l">{{index . 1}}</td></tr>{{end}}</table>
 <h2>PSF and its MTF</h2>
-<img id="psf" alt="PSF profiles and MTF" src="{{.PSFPlot}}">
+{{if .PSFPlot}}<img id="psf" alt="PSF profiles and MTF" src="{{.PSFPlot}}">{{else}}<p class="note" id="psf-note">{{.PSFNote}}</p>{{end}}
 <h2>Observed | restored{{if .HasUncertainty}} | Monte Carlo standard error{{end}}</h2>
 <p>Centre crop; observed and restored share one 2-98 % stretch per channel; scale bar in map units.</p>
 <img id="quicklook" alt="quicklook" src="{{.Quicklook}}">
@@ -81,7 +83,7 @@ flux over the whole band from the run. Definitions: README, "limpid assess".</p>
 <td>{{.RingObs}}</td><td>{{.RingRes}}</td><td>{{.FluxChange}}</td><td>{{.ValidPixels}}</td></tr>
 {{end}}</table>
 <h2>Convergence</h2>
-<img id="convergence" alt="convergence" src="{{.ConvPlot}}">
+{{if .ConvPlot}}<img id="convergence" alt="convergence" src="{{.ConvPlot}}">{{else}}<p class="note" id="convergence-note">{{.ConvNote}}</p>{{end}}
 <p>Left: each tile's iterations and final relative L1 change (one point per tile), or, when the stop rule records no change, each tile's iterations.
 {{if .HasConvergence}}Right: the automatic choice's risk estimate per iteration, summed over the tiles used, per candidate bandwidth (band 1; the minimum is marked by the choice).{{else}}Right: no risk curves (the automatic choice was not used).{{end}}</p>
 <p>Written {{.Finished}} by limpid.</p>
@@ -99,23 +101,27 @@ func fmtOr(v float64, format string) string {
 	return fmt.Sprintf(format, v)
 }
 
-// htmlReport builds the page.
-func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, quicklookPNG []byte) ([]byte, error) {
-	psfPNG, err := psfPlotPNG(j.cfg.PSF, rep.PSF)
-	if err != nil {
-		return nil, err
-	}
-	convPNG, hasRisk, err := convergencePNG(rep)
-	if err != nil {
-		return nil, err
-	}
+// htmlReport builds the page. A figure that cannot be drawn is left out
+// with a note on the page; warnings says which (the product stays).
+func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, quicklookPNG []byte) (page []byte, warnings []string, err error) {
 	metrics, window, err := cropMetrics(inPath, bands, j.out)
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	p := htmlPage{Title: "limpid restoration: " + j.in, Caution: caution, Finished: time.Now().UTC().Format(time.RFC3339),
-		PSFPlot: dataURL(psfPNG), Quicklook: dataURL(quicklookPNG), ConvPlot: dataURL(convPNG),
-		MetricWindow: window, HasUncertainty: j.uncPath != "", HasConvergence: hasRisk}
+		Quicklook: dataURL(quicklookPNG), MetricWindow: window, HasUncertainty: j.uncPath != ""}
+	if psfPNG, err := psfPlotPNG(j.cfg.PSF, rep.PSF); err != nil {
+		p.PSFNote = "The PSF figure could not be drawn: " + err.Error()
+		warnings = append(warnings, "--report-html: the PSF figure is left out: "+err.Error())
+	} else {
+		p.PSFPlot = dataURL(psfPNG)
+	}
+	if convPNG, hasRisk, err := convergencePNG(rep); err != nil {
+		p.ConvNote = "The convergence figure could not be drawn: " + err.Error()
+		warnings = append(warnings, "--report-html: the convergence figure is left out: "+err.Error())
+	} else {
+		p.ConvPlot, p.HasConvergence = dataURL(convPNG), hasRisk
+	}
 	p.Rows = [][2]string{
 		{"input", j.in}, {"output", j.out + " (" + string(j.format) + ")"},
 		{"scene", fmt.Sprintf("%d x %d pixels, %d bands restored", rep.Width, rep.Height, len(rep.Bands))},
@@ -160,9 +166,9 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 	}
 	var buf bytes.Buffer
 	if err := pageTmpl.Execute(&buf, p); err != nil {
-		return nil, err
+		return nil, nil, err
 	}
-	return buf.Bytes(), nil
+	return buf.Bytes(), warnings, nil
 }
 
 // cropMetrics runs step.Assess (no reference) on the centre window of at most
@@ -218,7 +224,14 @@ func transfer(k *psf.Kernel, fx, fy float64) float64 {
 	return math.Hypot(re, im)
 }
 
-func plotPNG(plots []*plot.Plot, w, h float64) ([]byte, error) {
+// plotPNG draws plots side by side into a PNG. gonum/plot panics on data it
+// cannot draw (a log axis over values <= 0, for one); that becomes an error.
+func plotPNG(plots []*plot.Plot, w, h float64) (png []byte, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			png, err = nil, fmt.Errorf("%v", r)
+		}
+	}()
 	img := vgimg.New(vg.Points(w), vg.Points(h))
 	dc := draw.New(img)
 	tiles := draw.Tiles{Rows: 1, Cols: len(plots), PadX: vg.Points(10), PadTop: vg.Points(5), PadBottom: vg.Points(5), PadLeft: vg.Points(5), PadRight: vg.Points(10)}

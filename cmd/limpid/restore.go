@@ -411,7 +411,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 		return nil, err
 	}
 	// The product is finished; quicklook and HTML page are made from it.
-	if err := writeViews(j, inPath, bands, rep); err != nil {
+	if err := writeViews(j, inPath, bands, rep, stderr); err != nil {
 		return rep, err
 	}
 	return rep, nil

@@ -1,6 +1,8 @@
 package main
 
 import (
+	"fmt"
+	"io"
 	"path/filepath"
 
 	"github.com/urfave/cli/v2"
@@ -53,7 +55,7 @@ func absPath(p string) string {
 // writeViews makes the quicklook and the HTML report of a committed
 // restoration (inPath: the observed file as read, bands: its 0-based bands
 // that became the output's).
-func writeViews(j *restoreJob, inPath string, bands []int, rep *step.Report) error {
+func writeViews(j *restoreJob, inPath string, bands []int, rep *step.Report, stderr io.Writer) error {
 	if j.quicklookPath == "" && j.htmlPath == "" {
 		return nil
 	}
@@ -71,9 +73,12 @@ func writeViews(j *restoreJob, inPath string, bands []int, rep *step.Report) err
 		}
 	}
 	if j.htmlPath != "" {
-		page, err := htmlReport(j, inPath, bands, rep, ql)
+		page, warnings, err := htmlReport(j, inPath, bands, rep, ql)
 		if err != nil {
 			return err
+		}
+		for _, w := range warnings {
+			fmt.Fprintf(stderr, "limpid: warning: %s\n", w)
 		}
 		if err := writeFileAtomic("--report-html", j.htmlPath, page); err != nil {
 			return err

@@ -221,3 +221,33 @@ func cropFixture(t *testing.T, dir string, n int) string {
 	}
 	return path
 }
+
+// A figure that cannot be drawn must not cost the product: with the
+// particle method (whose final change can be 0, which a log axis cannot
+// show) --report-html writes the page with a note in the figure's place and
+// one warning line, and the run succeeds. Source: the project's error
+// contract (README "Exit codes": a product that was written is kept);
+// no outside source.
+func TestHTMLReportSurvivesAnUndrawableFigure(t *testing.T) {
+	dir := t.TempDir()
+	in := cropFixture(t, dir, 64)
+	page, out := filepath.Join(dir, "p.html"), filepath.Join(dir, "p.tif")
+	code, _, errs := limpid(t, nil, "restore", "--psf", "gaussian:sigma=1.4", "--method", "particle", "--smooth", "0.2",
+		"--bands", "2", "--particles-per-pixel", "2", "--iterations", "4", "--batches", "2", "--report-html", page, in, out)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	html := string(mustRead(t, page))
+	if !strings.Contains(html, `id="psf"`) {
+		t.Error("the PSF figure is missing although it can be drawn")
+	}
+	if strings.Contains(html, `id="convergence"`) == strings.Contains(html, `id="convergence-note"`) {
+		t.Error("the convergence section must hold either the figure or the note, not both or neither")
+	}
+	if strings.Contains(html, `id="convergence-note"`) && !strings.Contains(errs, "limpid: warning: --report-html: the convergence figure is left out") {
+		t.Errorf("a left-out figure needs a warning line, stderr: %s", errs)
+	}
+	if _, err := os.Stat(out); err != nil {
+		t.Errorf("the product is missing: %v", err)
+	}
+}

@@ -1,8 +1,9 @@
 #!/usr/bin/env bash
 # Same bytes before and after a change that must not change behaviour.
 #
-# Builds limpid at BASE (a git revision, default: the last commit before the
-# package layout change) and from the working tree, runs the same fixed set of
+# Builds limpid at BASE (a git revision, default HEAD: the last commit, for
+# an uncommitted refactoring; the package layout change was checked against
+# b78008b) and from the working tree, runs the same fixed set of
 # commands with both (demo scene, the 256 px fixture, the grid, particle,
 # automatic, COG, stdin/stdout and Arrow stream routes, PSF measurement,
 # simulate, noise, assess) and compares every output:
@@ -16,7 +17,7 @@
 # Usage: scripts/samebytes/run.sh [BASE]      (needs gdal-bin and python3)
 # Exit status 0 when everything matches, 1 with the list of differences.
 set -euo pipefail
-BASE=${1:-b78008b}
+BASE=${1:-HEAD}
 ROOT=$(git -C "$(dirname "$0")" rev-parse --show-toplevel)
 WORK=$(mktemp -d "${TMPDIR:-/tmp}/limpid-samebytes.XXXXXX")
 trap 'git -C "$ROOT" worktree remove --force "$WORK/base-src" >/dev/null 2>&1 || true; rm -rf "$WORK"' EXIT
