@@ -40,7 +40,7 @@ One row (and one record batch) per band and tile; invalid pixels become NaN.
 
 Examples:
    limpid tiles pack --tile 512 --overlap 32 scene.tif scene.arrows
-   limpid tiles pack --bands 3,2,1 scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 - - | limpid tiles unpack - restored.tif`,
+   limpid tiles pack --bands 3,2,1 scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 --smooth 0.2 --stop change - - | limpid tiles unpack - restored.tif`,
 				Flags: []cli.Flag{
 					&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels (16-16384)"},
 					&cli.IntFlag{Name: "overlap", Value: DefaultPackOverlap, EnvVars: env("overlap"), Usage: "halo in pixels around each tile (restore needs at least 4 x (PSF radius + smoothing radius))"},
