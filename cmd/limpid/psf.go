@@ -171,7 +171,7 @@ file (text, or GeoTIFF by extension) usable as --psf kernel:FILE, --png FILE a
 plot of the e-SFR curves with their fitted models and of the ESF/LSF.
 
 Examples:
-   limpid psf measure --edge 540,120,600,220 --edge 300,400,400,460 --json psf.json scene.tif
+   limpid psf measure --edge 168,30,200,82 --json psf.json scene.tif
    limpid restore --psf measured:psf.json scene.tif restored.tif`,
 		Flags: []cli.Flag{
 			&cli.StringSliceFlag{Name: "edge", Usage: "edge window X0,Y0,X1,Y1 in pixels (repeatable)"},

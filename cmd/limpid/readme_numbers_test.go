@@ -23,6 +23,7 @@ const (
 // against itself as the "restored" input). Source: the project's contract
 // that documented figures are reproducible (README); no outside source.
 func TestREADMENumbers(t *testing.T) {
+	skipUnderRace(t)
 	dir := t.TempDir()
 	ref, obs, res := fixture("reference.tif"), fixture("observed.tif"), filepath.Join(dir, "restored.tif")
 	if code, _, errs := limpid(t, nil, "restore", "--psf", "gaussian:sigma=1.4", obs, res); code != 0 {
