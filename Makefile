@@ -46,7 +46,7 @@ test: deps
 	$(GO) vet ./...
 	CGO_ENABLED=0 $(GO) vet ./step/... ./psf/... ./arrowio/... ./raster
 	$(GO) test -race -count=1 -timeout $(TEST_TIMEOUT) ./...
-	$(GO) test -count=1 -timeout $(TEST_TIMEOUT) -run 'TestHelpExamplesRun|TestREADMENumbers' ./cmd/limpid
+	$(GO) test -count=1 -timeout $(TEST_TIMEOUT) -run 'TestHelpExamplesRun|TestREADMEExamplesRun|TestREADMENumbers' ./cmd/limpid
 	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s -timeout 2m ./arrowio
 
 test-long: deps

@@ -130,3 +130,73 @@ func skipUnderRace(t *testing.T) {
 		t.Skip("documentation check: runs without -race (make test's docs pass)")
 	}
 }
+
+// The README's shell examples run as written (the same substitutions as
+// the help examples: truth.tif is the fixture's reference, observed.tif the
+// file an earlier example simulated; GDAL pipes as programs). Lines that
+// only configure a shell (export, loops, make rules) are not commands and
+// are skipped. Source: the project's contract that documented examples
+// work (README); no outside source.
+func TestREADMEExamplesRun(t *testing.T) {
+	skipUnderRace(t)
+	dir := t.TempDir()
+	crop := cropFixture(t, dir, 96)
+	n := 0
+	for _, line := range readmeCommands(t) {
+		n++
+		wholeScene := strings.Contains(line, "psf measure") || strings.Contains(line, "--psf auto")
+		var mapFile func(a string) string
+		mapFile = func(a string) string {
+			for _, p := range []string{"kernel:", "measured:"} {
+				if strings.HasPrefix(a, p) {
+					return p + mapFile(a[len(p):])
+				}
+			}
+			switch {
+			case a == "truth.tif":
+				return fixture("reference.tif")
+			case (a == "scene.tif" || a == "in.jp2") && wholeScene:
+				return fixture("observed.tif")
+			case a == "scene.tif" || a == "in.jp2":
+				return crop
+			case a == "curves" || regexp.MustCompile(`^[\w.-]+\.(tif|txt|json|arrows|png|html)$`).MatchString(a):
+				return filepath.Join(dir, a)
+			}
+			return a
+		}
+		runExample(t, line, mapFile)
+	}
+	if n < 12 {
+		t.Fatalf("found %d commands in the README's examples, expected at least 12", n)
+	}
+}
+
+// readmeCommands returns the limpid and GDAL command lines of the README's
+// sh blocks, continuation lines joined.
+func readmeCommands(t *testing.T) []string {
+	t.Helper()
+	var out []string
+	in, cur := false, ""
+	for _, l := range strings.Split(string(mustRead(t, filepath.Join("..", "..", "README.md"))), "\n") {
+		switch {
+		case strings.HasPrefix(l, "```sh"):
+			in = true
+			continue
+		case strings.HasPrefix(l, "```"):
+			in = false
+			continue
+		case !in:
+			continue
+		}
+		if cur != "" {
+			cur += " " + strings.TrimSpace(strings.TrimSuffix(l, "\\"))
+		} else if strings.HasPrefix(l, "limpid ") || strings.HasPrefix(l, "gdal_translate ") {
+			cur = strings.TrimSuffix(l, "\\")
+		}
+		if cur != "" && !strings.HasSuffix(l, "\\") {
+			out = append(out, strings.Join(strings.Fields(cur), " "))
+			cur = ""
+		}
+	}
+	return out
+}
