@@ -29,6 +29,15 @@ func Gaussian1D(sigma float64, r int) []float64 {
 	return v
 }
 
+// checkWidth checks a Gaussian standard deviation; key is the parameter
+// as the specification names it (sigma, sx, sy).
+func checkWidth(key string, v float64) error {
+	if math.IsNaN(v) || v <= 0 || v > 100 {
+		return fmt.Errorf("%w: gaussian %s=%g must be in (0, 100] pixels", ErrKernel, key, v)
+	}
+	return nil
+}
+
 // GaussianIso is an isotropic Gaussian PSF, point-sampled at pixel centres
 // (separable).
 func GaussianIso(sigma float64) (*Kernel, error) {
@@ -45,8 +54,8 @@ func GaussianAniso(sx, sy, angleDeg float64) (*Kernel, error) {
 		name string
 		v    float64
 	}{{"sx", sx}, {"sy", sy}} {
-		if math.IsNaN(s.v) || s.v <= 0 || s.v > 100 {
-			return nil, fmt.Errorf("%w: gaussian %s=%g must be in (0, 100] pixels", ErrKernel, s.name, s.v)
+		if err := checkWidth(s.name, s.v); err != nil {
+			return nil, err
 		}
 	}
 	if math.IsNaN(angleDeg) || math.IsInf(angleDeg, 0) {

@@ -195,6 +195,9 @@ func gaussianTransfer(sx, sy, angleDeg float64) Transfer {
 // gaussianOTF is the transfer function of the gaussian model's parameters.
 func gaussianOTF(p map[string]float64) (Transfer, error) {
 	if s, ok := p["sigma"]; ok {
+		if err := checkWidth("sigma", s); err != nil {
+			return nil, err
+		}
 		p = map[string]float64{"sx": s, "sy": s}
 	}
 	if _, err := GaussianAniso(p["sx"], p["sy"], p["angle"]); err != nil {

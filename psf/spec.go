@@ -88,6 +88,9 @@ func init() {
 		},
 		build: func(p map[string]float64) (*Kernel, error) {
 			if s, ok := p["sigma"]; ok {
+				if err := checkWidth("sigma", s); err != nil {
+					return nil, err
+				}
 				return GaussianAniso(s, s, 0)
 			}
 			return GaussianAniso(p["sx"], p["sy"], p["angle"])

@@ -31,14 +31,11 @@ PSNR/SSIM peak L: --data-range; else the reference's data type range for
 integer types (e.g. 65535 for UInt16, so give --data-range 4095 for 12-bit data),
 else the reference's max - min over valid pixels, per band.`,
 		Flags: []cli.Flag{
-			&cli.StringFlag{Name: "reference", EnvVars: env("reference"), Usage: "the true (sharp) scene, same grid and bands"},
-			&cli.Float64Flag{Name: "data-range", EnvVars: env("data-range"), Usage: "peak L of PSNR and SSIM (default: see the description)"},
-			&cli.StringFlag{Name: "json", EnvVars: env("json"), Usage: "also write the figures as JSON to this file"},
+			&cli.StringFlag{Name: "reference", Usage: "the true (sharp) scene, same grid and bands"},
+			&cli.Float64Flag{Name: "data-range", Usage: "peak L of PSNR and SSIM", DefaultText: "the reference's data type range, see the description"},
+			&cli.StringFlag{Name: "json", Usage: "also write the figures as JSON to this file"},
 		},
 		Action: func(c *cli.Context) error {
-			if c.NArg() != 2 {
-				return usagef("assess needs OBSERVED and RESTORED after the flags (got %d arguments); flags after the arguments are not read", c.NArg())
-			}
 			if c.IsSet("data-range") && assess.CheckDataRange(c.Float64("data-range")) != nil {
 				return usagef("--data-range %g must be a positive number", c.Float64("data-range"))
 			}

@@ -42,18 +42,15 @@ DIR/report.json, then prints PSNR and SSIM of observed and restored against the 
 
 ` + caution,
 		Flags: []cli.Flag{
-			&cli.StringFlag{Name: "out", Value: "limpid-demo", EnvVars: env("out"), Usage: "output directory (created)"},
-			&cli.IntFlag{Name: "size", Value: 768, EnvVars: env("size"), Usage: "scene width and height in pixels (64-4096)"},
-			&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs)"},
-			&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, EnvVars: env("particles-per-pixel"), Usage: "also restore with the particle method at K particles per pixel and print it beside grid (0 = grid only)"},
+			&cli.StringFlag{Name: "out", Value: "limpid-demo", Usage: "output directory (created)"},
+			&cli.IntFlag{Name: "size", Value: 768, Usage: "scene width and height in pixels (64-4096)"},
+			&cli.IntFlag{Name: "workers", Value: 0, Usage: "parallel tile workers (0 = number of CPUs)"},
+			&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, Usage: "also restore with the particle method at K particles per pixel and print it beside grid (0 = grid only)"},
 		},
 		Action: func(c *cli.Context) error {
 			n := c.Int("size")
 			if n < 64 || n > 4096 {
 				return usagef("--size %d must be between 64 and 4096", n)
-			}
-			if c.NArg() > 0 {
-				return usagef("demo takes no arguments (got %q)", c.Args().First())
 			}
 			if k := c.Int("particles-per-pixel"); k < 0 || k > 1024 {
 				return usagef("--particles-per-pixel %d must be between 0 and 1024", k)

@@ -17,7 +17,8 @@ import (
 	"limpid/step"
 )
 
-// Exit codes. 3 stays free: the CLI library uses it for unknown commands.
+// Exit codes. An unknown command is a usage error too (cli.go), never
+// urfave/cli's 3.
 const (
 	exitOK      = 0
 	exitFailure = 1
@@ -40,9 +41,13 @@ func usagef(format string, a ...any) error { return usageError{fmt.Errorf(format
 
 func exitCode(err error) int {
 	var u usageError
+	var ec cli.ExitCoder
 	switch {
 	case err == nil:
 		return exitOK
+	case errors.As(err, &ec) && ec.ExitCode() == 3:
+		// urfave/cli's "No help topic" (an unknown command): a usage error.
+		return exitUsage
 	case errors.As(err, &u), errors.Is(err, raster.ErrInput), errors.Is(err, step.ErrConfig),
 		errors.Is(err, psf.ErrSpec), errors.Is(err, psf.ErrKernel), errors.Is(err, arrowio.ErrStream):
 		return exitUsage
@@ -58,20 +63,31 @@ error map assume the PSF and the noise model are right; they do not certify it.`
 
 // run is the whole program: it parses args (args[0] is the program name),
 // reads stdin when INPUT is "-", writes data (only) to stdout when OUTPUT is
-// "-", and help, logs and errors to stderr. It returns the exit code.
+// "-", and logs and errors to stderr; help and the version go to stdout when
+// asked for (cli.go has the command-line contract). It returns the exit code.
 func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	err := newApp(stdin, stdout, stderr).RunContext(ctx, helpArgs(args))
+	if errors.Is(err, errHelpShown) {
+		return exitOK
+	}
+	if err != nil {
+		fmt.Fprintf(stderr, "limpid: %s\n", errorText(err))
+	}
+	return exitCode(err)
+}
+
+// newApp is the command tree with the command-line contract applied.
+func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 	app := &cli.App{
-		Name:            "limpid",
-		Usage:           "restore blurred optical satellite imagery (EMS deconvolution), georeferencing kept",
-		Version:         step.Version,
-		Writer:          stderr,
-		ErrWriter:       stderr,
-		HideHelpCommand: true,
-		Description:     caution,
-		ExitErrHandler:  func(*cli.Context, error) {},
-		OnUsageError: func(c *cli.Context, err error, isSub bool) error {
-			return usageError{err}
-		},
+		Name:    "limpid",
+		Usage:   "restore blurred optical satellite imagery (EMS deconvolution), georeferencing kept",
+		Version: step.Version,
+		// Nothing of urfave/cli's own is printed: help and the version go
+		// to stdout through prepareCLI, errors through run.
+		Writer:         stderr,
+		ErrWriter:      stderr,
+		Description:    caution,
+		ExitErrHandler: func(*cli.Context, error) {},
 		Commands: []*cli.Command{
 			restoreCommand(stdin, stdout, stderr),
 			noiseCommand(stdin, stdout, stderr),
@@ -84,12 +100,20 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 	}
 	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.
 	app.DisableSliceFlagSeparator = true
-	err := app.RunContext(ctx, args)
-	if err != nil {
-		msg := strings.ReplaceAll(strings.TrimSpace(flagText(err)), "\n", " ")
-		fmt.Fprintf(stderr, "limpid: %s\n", msg)
+	prepareCLI(app, stdout)
+	return app
+}
+
+// helpArgs turns `limpid help [COMMAND...]` into `limpid [COMMAND...] --help`.
+func helpArgs(args []string) []string {
+	if len(args) < 2 || args[1] != "help" {
+		return args
 	}
-	return exitCode(err)
+	rest := args[1:]
+	for len(rest) > 0 && rest[0] == "help" {
+		rest = rest[1:]
+	}
+	return append(append([]string{args[0]}, rest...), "--help")
 }
 
 // configFlags maps step.Config's fields to the flags that set them.

@@ -273,7 +273,7 @@ func badInputCases(t *testing.T, dir string) []badCase {
 		{"discrepancy with auto smooth", []string{"--psf", psfOK, "--stop", "discrepancy", obs, "OUT"}, "--stop discrepancy"},
 		{"same as input", []string{"--psf", psfOK, copyIn, copyIn}, "is the INPUT"},
 		{"missing directory", []string{"--psf", psfOK, obs, filepath.Join(dir, "no", "such", "out.tif")}, "does not exist"},
-		{"flags after args", []string{obs, "x.tif", "--psf", psfOK}, "after the flags"},
+		{"flags after args", []string{obs, "x.tif", "--psf", psfOK}, "flags go before the arguments"},
 	}
 }
 

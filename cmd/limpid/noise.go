@@ -32,9 +32,9 @@ variance at zero signal (read noise squared plus quantisation). Nodata and
 every bin. Pass the numbers back with restore --noise a=...,b=... to reuse
 or override them.`,
 		Flags: []cli.Flag{
-			&cli.StringFlag{Name: "bands", EnvVars: env("bands"), Usage: "1-based bands, e.g. 1,3 (default: all)"},
-			&cli.StringFlag{Name: "saturated", EnvVars: env("saturated"), Usage: "pixels at or above this value are left out"},
-			&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile size of the sampling grid"},
+			&cli.StringFlag{Name: "bands", Usage: "1-based bands, e.g. 1,3 (default: all)"},
+			&cli.StringFlag{Name: "saturated", Usage: "pixels at or above this value are left out"},
+			&cli.IntFlag{Name: "tile", Value: step.DefaultTile, Usage: "tile size of the sampling grid"},
 			&cli.StringFlag{Name: "json", Usage: "write the models with their bins to this JSON file"},
 		},
 		Action: func(c *cli.Context) error { return noiseAction(c, stdin, stdout) },
@@ -42,9 +42,6 @@ or override them.`,
 }
 
 func noiseAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
-	if c.NArg() != 1 {
-		return usagef("noise takes one INPUT after the flags (got %d arguments)", c.NArg())
-	}
 	in := c.Args().Get(0)
 	path, done, err := spoolInput(in, stdin)
 	if err != nil {

@@ -18,15 +18,15 @@ import (
 // particleFlags are restore's flags for --method particle.
 func particleFlags() []cli.Flag {
 	return []cli.Flag{
-		&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, EnvVars: env("particles-per-pixel"), Usage: "particle method: particles per valid pixel K (cost and memory grow with K, Monte Carlo error falls as 1/sqrt(K))"},
-		&cli.StringFlag{Name: "potential", Value: step.DefaultPotential.String(), EnvVars: env("potential"), Usage: "particle method: exact (potential integrated on the grid) or sampled (one PSF draw per particle)"},
-		&cli.StringFlag{Name: "resampling", Value: step.DefaultResampling.String(), EnvVars: env("resampling"), Usage: "particle method: stratified, systematic, residual or multinomial"},
-		&cli.Float64Flag{Name: "ess-threshold", Value: step.DefaultESSThreshold, EnvVars: env("ess-threshold"), Usage: "particle method: resample when the effective sample size falls below this fraction of the particles (0-1)"},
-		&cli.StringFlag{Name: "burn-in", Value: "auto", EnvVars: env("burn-in"), Usage: "particle method: iterations discarded before averaging (auto = half of --iterations)"},
-		&cli.StringFlag{Name: "start", Value: step.DefaultStart.String(), EnvVars: env("start"), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
-		&cli.IntFlag{Name: "batches", Value: step.DefaultBatches, EnvVars: env("batches"), Usage: "particle method: batch means for the Monte Carlo standard error (2 - iterations after burn-in)"},
-		&cli.IntFlag{Name: "replicates", Value: 0, EnvVars: env("replicates"), Usage: "particle method: independent clouds whose spread gives the standard error (must divide --particles-per-pixel; 1 = one cloud with batch means; 0 = auto: 4, 2 or 1)"},
-		&cli.StringFlag{Name: "uncertainty", EnvVars: env("uncertainty"), Usage: "particle method: write the per-pixel Monte Carlo standard error (DN, float32, same grid and bands) to this GeoTIFF"},
+		&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, Usage: "particle method: particles per valid pixel K (cost and memory grow with K, Monte Carlo error falls as 1/sqrt(K))"},
+		&cli.StringFlag{Name: "potential", Value: step.DefaultPotential.String(), Usage: "particle method: exact (potential integrated on the grid) or sampled (one PSF draw per particle)"},
+		&cli.StringFlag{Name: "resampling", Value: step.DefaultResampling.String(), Usage: "particle method: stratified, systematic, residual or multinomial"},
+		&cli.Float64Flag{Name: "ess-threshold", Value: step.DefaultESSThreshold, Usage: "particle method: resample when the effective sample size falls below this fraction of the particles (0-1)"},
+		&cli.StringFlag{Name: "burn-in", Value: "auto", Usage: "particle method: iterations discarded before averaging (auto = half of --iterations)"},
+		&cli.StringFlag{Name: "start", Value: step.DefaultStart.String(), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
+		&cli.IntFlag{Name: "batches", Value: step.DefaultBatches, Usage: "particle method: batch means for the Monte Carlo standard error (2 - iterations after burn-in)"},
+		&cli.IntFlag{Name: "replicates", Value: 0, Usage: "particle method: independent clouds whose spread gives the standard error (must divide --particles-per-pixel; 1 = one cloud with batch means; 0 = auto: 4, 2 or 1)"},
+		&cli.StringFlag{Name: "uncertainty", Usage: "particle method: write the per-pixel Monte Carlo standard error (DN, float32, same grid and bands) to this GeoTIFF"},
 	}
 }
 

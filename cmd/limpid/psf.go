@@ -50,9 +50,6 @@ Examples:
    limpid psf build 'diffraction:wavelength=0.65,fnumber=8,pitch=10*motion:length=0.8,angle=90' psf.txt
    limpid psf build gaussian-mtf:across=0.12,along=0.09 psf.tif`,
 		Action: func(c *cli.Context) error {
-			if c.NArg() != 2 {
-				return usagef("psf build takes SPEC OUTPUT (got %d arguments)", c.NArg())
-			}
 			return psfBuild(c.Args().Get(0), c.Args().Get(1), stderr)
 		},
 	}
@@ -323,9 +320,6 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 // INPUT is opened).
 func parseMeasureArgs(c *cli.Context) (measureArgs, error) {
 	var a measureArgs
-	if c.NArg() != 1 {
-		return a, usagef("psf measure takes one INPUT after the flags (got %d arguments: %s); flags after INPUT are not read", c.NArg(), strings.Join(c.Args().Slice(), " "))
-	}
 	a.in = c.Args().Get(0)
 	a.auto, a.band, a.pointWindow = c.Bool("auto"), c.Int("band"), c.Int("point-window")
 	a.json, a.csv, a.kernel, a.pngOut = c.String("json"), c.String("csv"), c.String("kernel"), c.String("png")

@@ -22,10 +22,6 @@ import (
 	"limpid/step/product"
 )
 
-func env(name string) []string {
-	return []string{"LIMPID_" + strings.ToUpper(strings.ReplaceAll(name, "-", "_"))}
-}
-
 func psfHelp() string {
 	var b strings.Builder
 	b.WriteString("PSF specification (required). Models:")
@@ -42,24 +38,24 @@ func psfHelp() string {
 
 func restoreFlags() []cli.Flag {
 	return append([]cli.Flag{
-		&cli.StringFlag{Name: "psf", EnvVars: env("psf"), Usage: psfHelp()},
-		&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff (tiled, DEFLATE, predictor, BIGTIFF=IF_SAFER) or cog (Cloud Optimized GeoTIFF)"},
-		&cli.StringFlag{Name: "bands", EnvVars: env("bands"), Usage: "1-based bands to restore, in output order, e.g. 1,3,4 (default: all)"},
-		&cli.StringFlag{Name: "output-type", Value: "same", EnvVars: env("output-type"), Usage: "same (round to nearest, clamp to the input type's range) or float32"},
-		&cli.StringFlag{Name: "saturated", EnvVars: env("saturated"), Usage: "pixels at or above this value are invalid: left out of the fit, written as nodata"},
-		&cli.StringFlag{Name: "background", Value: "0", EnvVars: env("background"), Usage: fmt.Sprintf("additive background b in DN, or auto (the %g percentile of each band's valid pixels)", step.BackgroundPercentile)},
-		&cli.StringFlag{Name: "smooth", Value: defaultSmoothFlag, EnvVars: env("smooth"), Usage: fmt.Sprintf("EMS smoothing bandwidth in pixels (0 = Richardson-Lucy), or auto: chosen per band among %v by a risk estimate", step.AutoSmooths)},
-		&cli.StringFlag{Name: "stop", Value: string(defaultStopFlag), EnvVars: env("stop"), Usage: "when to stop: auto (minimum of the risk estimate), discrepancy (Morozov: residual at the estimated noise level), change (relative change below --tolerance)"},
-		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, EnvVars: env("iterations"), Usage: fmt.Sprintf("iteration cap per tile (default %d with --stop change, %d with auto and discrepancy)", step.DefaultIterations, step.AutoCap)},
-		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, EnvVars: env("tolerance"), Usage: "--stop change: stop a tile when the relative L1 change falls below this (0 = never)"},
-		&cli.StringFlag{Name: "choose", Value: string(step.ChooseGlobal), EnvVars: env("choose"), Usage: "with auto: global (one choice per band from up to 16 tiles, uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
-		&cli.StringFlag{Name: "noise", Value: "auto", EnvVars: env("noise"), Usage: "noise model var = a*DN + b used by auto and discrepancy: auto (fitted per band from the scene) or a=GAIN,b=READVAR"},
-		&cli.StringFlag{Name: "method", Value: "grid", EnvVars: env("method"), Usage: "solver: grid (EMS on the pixel grid) or particle (sequential Monte Carlo EMS with per-pixel error bars; see the particle flags)"},
-		&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed for the particle method and for the probe of the automatic choice (recorded); same seed, same output"},
-		&cli.IntFlag{Name: "workers", Value: 0, EnvVars: env("workers"), Usage: "parallel tile workers (0 = number of CPUs); output is identical for any value"},
-		&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels"},
-		&cli.StringFlag{Name: "overlap", Value: "auto", EnvVars: env("overlap"), Usage: "halo in pixels read around each tile; auto = 4 x (PSF radius + smoothing radius), rounded up to 8, at least 16, at most the tile"},
-		&cli.StringFlag{Name: "report", EnvVars: env("report"), Usage: "write a JSON report of the run to this file"},
+		&cli.StringFlag{Name: "psf", Usage: psfHelp()},
+		&cli.StringFlag{Name: "format", Value: "gtiff", Usage: "output container: gtiff (tiled, DEFLATE, predictor, BIGTIFF=IF_SAFER) or cog (Cloud Optimized GeoTIFF)"},
+		&cli.StringFlag{Name: "bands", Usage: "1-based bands to restore, in output order, e.g. 1,3,4 (default: all)"},
+		&cli.StringFlag{Name: "output-type", Value: "same", Usage: "same (round to nearest, clamp to the input type's range) or float32"},
+		&cli.StringFlag{Name: "saturated", Usage: "pixels at or above this value are invalid: left out of the fit, written as nodata"},
+		&cli.StringFlag{Name: "background", Value: "0", Usage: fmt.Sprintf("additive background b in DN, or auto (the %g percentile of each band's valid pixels)", step.BackgroundPercentile)},
+		&cli.StringFlag{Name: "smooth", Value: defaultSmoothFlag, Usage: fmt.Sprintf("EMS smoothing bandwidth in pixels (0 = Richardson-Lucy), or auto: chosen per band among %v by a risk estimate", step.AutoSmooths)},
+		&cli.StringFlag{Name: "stop", Value: string(defaultStopFlag), Usage: "when to stop: auto (minimum of the risk estimate), discrepancy (Morozov: residual at the estimated noise level), change (relative change below --tolerance)"},
+		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, Usage: "iteration cap per tile", DefaultText: fmt.Sprintf("%d with --stop change (the particle method's default stop), %d with auto and discrepancy", step.DefaultIterations, step.AutoCap)},
+		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, Usage: "--stop change: stop a tile when the relative L1 change falls below this (0 = never)"},
+		&cli.StringFlag{Name: "choose", Value: string(step.ChooseGlobal), Usage: "with auto: global (one choice per band from up to 16 tiles, uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
+		&cli.StringFlag{Name: "noise", Value: "auto", Usage: "noise model var = a*DN + b used by auto and discrepancy: auto (fitted per band from the scene) or a=GAIN,b=READVAR"},
+		&cli.StringFlag{Name: "method", Value: "grid", Usage: "solver: grid (EMS on the pixel grid) or particle (sequential Monte Carlo EMS with per-pixel error bars; see the particle flags)"},
+		&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "random seed for the particle method and for the probe of the automatic choice (recorded); same seed, same output"},
+		&cli.IntFlag{Name: "workers", Value: 0, Usage: "parallel tile workers (0 = number of CPUs); output is identical for any value"},
+		&cli.IntFlag{Name: "tile", Value: step.DefaultTile, Usage: "tile core size in pixels"},
+		&cli.StringFlag{Name: "overlap", Value: "auto", Usage: "halo in pixels read around each tile; auto = 4 x (PSF radius + smoothing radius), rounded up to 8, at least 16, at most the tile"},
+		&cli.StringFlag{Name: "report", Usage: "write a JSON report of the run to this file"},
 	}, append(particleFlags(), viewFlags()...)...)
 }
 
@@ -131,12 +127,6 @@ func parseBands(s string, n int) ([]int, error) {
 }
 
 func parseJob(c *cli.Context) (*restoreJob, error) {
-	if c.NArg() != 2 {
-		if c.NArg() > 2 {
-			return nil, usagef("restore takes INPUT OUTPUT after the flags (got %d arguments: %s); flags after the arguments are not read", c.NArg(), strings.Join(c.Args().Slice(), " "))
-		}
-		return nil, usagef("restore needs INPUT and OUTPUT (see limpid restore --help)")
-	}
 	j := &restoreJob{in: c.Args().Get(0), out: c.Args().Get(1), reportPath: c.String("report"), bandSpec: c.String("bands")}
 	switch f := c.String("format"); f {
 	case "gtiff", "cog":

@@ -39,11 +39,11 @@ Noise (DN):
 Example:
    limpid simulate --psf gaussian:sigma=0.7 --noise poisson:gain=0.4,read=3 --quantize UInt16 truth.tif observed.tif`,
 		Flags: []cli.Flag{
-			&cli.StringFlag{Name: "psf", EnvVars: env("psf"), Usage: "PSF specification (as restore's --psf, e.g. gaussian:sigma=0.7 or kernel:psf.txt; not auto)"},
-			&cli.StringFlag{Name: "noise", EnvVars: env("noise"), Usage: "noise model: poisson:gain=G,read=R | gaussian:sigma=S | none (required)"},
-			&cli.StringFlag{Name: "quantize", Value: "same", EnvVars: env("quantize"), Usage: "output data type: same (the input's), Byte, UInt16, Int16, UInt32, Int32, Float32"},
-			&cli.Uint64Flag{Name: "seed", Value: 1, EnvVars: env("seed"), Usage: "random seed; the same seed gives the same output"},
-			&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff or cog"},
+			&cli.StringFlag{Name: "psf", Usage: "PSF specification (as restore's --psf, e.g. gaussian:sigma=0.7 or kernel:psf.txt; not auto)"},
+			&cli.StringFlag{Name: "noise", Usage: "noise model: poisson:gain=G,read=R | gaussian:sigma=S | none (required)"},
+			&cli.StringFlag{Name: "quantize", Value: "same", Usage: "output data type: same (the input's), Byte, UInt16, Int16, UInt32, Int32, Float32"},
+			&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "random seed; the same seed gives the same output"},
+			&cli.StringFlag{Name: "format", Value: "gtiff", Usage: "output container: gtiff or cog"},
 		},
 		Action: func(c *cli.Context) error { return simulateAction(c, stdin, stdout, stderr) },
 	}
@@ -63,9 +63,6 @@ type simulateJob struct {
 // parseSimulate reads simulate's arguments and flags, in the order their
 // errors are reported.
 func parseSimulate(c *cli.Context) (*simulateJob, error) {
-	if c.NArg() != 2 {
-		return nil, usagef("simulate needs INPUT and OUTPUT after the flags (got %d arguments); flags after the arguments are not read", c.NArg())
-	}
 	j := &simulateJob{in: c.Args().Get(0), out: c.Args().Get(1), noiseSpec: c.String("noise")}
 	j.psfSpec = strings.TrimSpace(c.String("psf"))
 	if j.psfSpec == "" {

@@ -42,11 +42,11 @@ Examples:
    limpid tiles pack --tile 512 --overlap 32 scene.tif scene.arrows
    limpid tiles pack --bands 3,2,1 scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 --smooth 0.2 --stop change - - | limpid tiles unpack - restored.tif`,
 				Flags: []cli.Flag{
-					&cli.IntFlag{Name: "tile", Value: step.DefaultTile, EnvVars: env("tile"), Usage: "tile core size in pixels (16-16384)"},
-					&cli.IntFlag{Name: "overlap", Value: DefaultPackOverlap, EnvVars: env("overlap"), Usage: "halo in pixels around each tile (restore needs at least 4 x (PSF radius + smoothing radius))"},
-					&cli.StringFlag{Name: "bands", EnvVars: env("bands"), Usage: "1-based bands to pack, in stream order (default: all)"},
-					&cli.StringFlag{Name: "scene-id", EnvVars: env("scene-id"), Usage: "scene identifier written to every row (default: INPUT's base name without extension; stdin for -)"},
-					&cli.StringFlag{Name: "compress", Value: "none", EnvVars: env("compress"), Usage: "IPC buffer compression: none, zstd or lz4 (the JavaScript Arrow reader cannot decompress)"},
+					&cli.IntFlag{Name: "tile", Value: step.DefaultTile, Usage: "tile core size in pixels (16-16384)"},
+					&cli.IntFlag{Name: "overlap", Value: DefaultPackOverlap, Usage: "halo in pixels around each tile (restore needs at least 4 x (PSF radius + smoothing radius))"},
+					&cli.StringFlag{Name: "bands", Usage: "1-based bands to pack, in stream order (default: all)"},
+					&cli.StringFlag{Name: "scene-id", Usage: "scene identifier written to every row (default: INPUT's base name without extension; stdin for -)"},
+					&cli.StringFlag{Name: "compress", Value: "none", Usage: "IPC buffer compression: none, zstd or lz4 (the JavaScript Arrow reader cannot decompress)"},
 				},
 				Action: func(c *cli.Context) error { return packAction(c, stdin, stdout) },
 			},
@@ -58,8 +58,8 @@ Examples:
 Restored streams are blended with restore's weights (the result equals restore's raster output);
 observed streams give back the packed bands.`,
 				Flags: []cli.Flag{
-					&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff or cog"},
-					&cli.StringFlag{Name: "output-type", Value: "same", EnvVars: env("output-type"), Usage: "same (the stream's source data type, rounded and clamped) or float32"},
+					&cli.StringFlag{Name: "format", Value: "gtiff", Usage: "output container: gtiff or cog"},
+					&cli.StringFlag{Name: "output-type", Value: "same", Usage: "same (the stream's source data type, rounded and clamped) or float32"},
 				},
 				Action: func(c *cli.Context) error { return unpackAction(c, stdin, stdout) },
 			},
@@ -70,21 +70,11 @@ observed streams give back the packed bands.`,
 // streamFlags are restore's tile-stream flags.
 func streamFlags() []cli.Flag {
 	return []cli.Flag{
-		&cli.StringFlag{Name: "input-format", Value: "raster", EnvVars: env("input-format"), Usage: "raster (anything GDAL reads) or arrow (a tile stream from limpid tiles pack or any Arrow writer)"},
-		&cli.StringFlag{Name: "output-format", Value: "raster", EnvVars: env("output-format"), Usage: "raster (see --format) or arrow (a restored tile stream, tiles in input order)"},
-		&cli.StringFlag{Name: "compress", Value: "none", EnvVars: env("compress"), Usage: "arrow output: IPC buffer compression none, zstd or lz4"},
-		&cli.StringFlag{Name: "scene-id", EnvVars: env("scene-id"), Usage: "raster input, arrow output: the scene identifier (default: INPUT's base name)"},
+		&cli.StringFlag{Name: "input-format", Value: "raster", Usage: "raster (anything GDAL reads) or arrow (a tile stream from limpid tiles pack or any Arrow writer)"},
+		&cli.StringFlag{Name: "output-format", Value: "raster", Usage: "raster (see --format) or arrow (a restored tile stream, tiles in input order)"},
+		&cli.StringFlag{Name: "compress", Value: "none", Usage: "arrow output: IPC buffer compression none, zstd or lz4"},
+		&cli.StringFlag{Name: "scene-id", Usage: "raster input, arrow output: the scene identifier (default: INPUT's base name)"},
 	}
-}
-
-func twoArgs(c *cli.Context, cmd string) (string, string, error) {
-	if c.NArg() != 2 {
-		if c.NArg() > 2 {
-			return "", "", usagef("%s takes INPUT OUTPUT after the flags (got %d arguments: %s); flags after the arguments are not read", cmd, c.NArg(), strings.Join(c.Args().Slice(), " "))
-		}
-		return "", "", usagef("%s needs INPUT and OUTPUT", cmd)
-	}
-	return c.Args().Get(0), c.Args().Get(1), nil
 }
 
 func sceneID(flag, in string) string {
@@ -198,10 +188,7 @@ func (o *streamOutput) abort() {
 }
 
 func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
-	in, out, err := twoArgs(c, "tiles pack")
-	if err != nil {
-		return err
-	}
+	in, out := c.Args().Get(0), c.Args().Get(1) // count checked by checkOperands (cli.go)
 	if err := checkCompress(c.String("compress")); err != nil {
 		return err
 	}
@@ -288,10 +275,7 @@ func createRasterFor(h *arrowio.Header, out string, format gdal.Format, outType 
 }
 
 func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
-	in, out, err := twoArgs(c, "tiles unpack")
-	if err != nil {
-		return err
-	}
+	in, out := c.Args().Get(0), c.Args().Get(1) // count checked by checkOperands (cli.go)
 	format := gdal.Format(c.String("format"))
 	if format != gdal.GTiff && format != gdal.COG {
 		return usagef("--format %q: use gtiff or cog", c.String("format"))

@@ -15,8 +15,8 @@ import (
 
 func viewFlags() []cli.Flag {
 	return []cli.Flag{
-		&cli.StringFlag{Name: "quicklook", EnvVars: env("quicklook"), Usage: "write a PNG: observed | restored (| Monte Carlo error) centre crops, shared 2-98 % stretch, scale bar in map units"},
-		&cli.StringFlag{Name: "report-html", EnvVars: env("report-html"), Usage: "write one self-contained HTML page: job, PSF and MTF, quicklook, per-band metrics, convergence, caution"},
+		&cli.StringFlag{Name: "quicklook", Usage: "write a PNG: observed | restored (| Monte Carlo error) centre crops, shared 2-98 % stretch, scale bar in map units"},
+		&cli.StringFlag{Name: "report-html", Usage: "write one self-contained HTML page: job, PSF and MTF, quicklook, per-band metrics, convergence, caution"},
 	}
 }
 
