@@ -52,6 +52,9 @@ DIR/report.json, then prints PSNR and SSIM of observed and restored against the 
 			if n < 64 || n > 4096 {
 				return usagef("--size %d must be between 64 and 4096", n)
 			}
+			if w := c.Int("workers"); w < 0 {
+				return usagef("--workers %d must be >= 0", w)
+			}
 			if k := c.Int("particles-per-pixel"); k < 0 || k > 1024 {
 				return usagef("--particles-per-pixel %d must be between 0 and 1024", k)
 			}

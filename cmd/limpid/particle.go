@@ -33,6 +33,19 @@ func particleFlags() []cli.Flag {
 // parseParticle reads the particle flags into cfg (validated by Resolve).
 func parseParticle(c *cli.Context, cfg *step.Config, j *restoreJob) error {
 	j.uncPath = c.String("uncertainty")
+	// A negative count or fraction is refused whichever method runs (the
+	// grid method does not read these flags).
+	switch {
+	case c.Int("particles-per-pixel") < 0:
+		return usagef("--particles-per-pixel %d must be at least 1", c.Int("particles-per-pixel"))
+	case c.Int("batches") < 0:
+		return usagef("--batches %d: give at least 2", c.Int("batches"))
+	case c.Int("replicates") < 0:
+		return usagef("--replicates %d must be >= 0 (0 = auto)", c.Int("replicates"))
+	}
+	if v := c.Float64("ess-threshold"); v < 0 {
+		return usagef("--ess-threshold %g must be between 0 and 1", v)
+	}
 	if cfg.Method != step.MethodParticle {
 		if j.uncPath != "" {
 			return usagef("--uncertainty %s: the grid method has no Monte Carlo error; use --method particle", j.uncPath)

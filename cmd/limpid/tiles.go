@@ -198,6 +198,9 @@ func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	if c.Int("overlap") < 0 {
 		return usagef("--overlap %d must be >= 0", c.Int("overlap"))
 	}
+	if t := c.Int("tile"); t < 16 || t > 16384 {
+		return usagef("--tile %d must be between 16 and 16384", t)
+	}
 	src, cleanup, err := openRaster(in, stdin)
 	if err != nil {
 		return err
