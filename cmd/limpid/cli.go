@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"os"
 	"reflect"
 	"regexp"
 	"strings"
@@ -101,8 +102,9 @@ var (
 )
 
 // prepareCLI applies the contract above to app and every command below it.
-// Help and the version go to stdout.
-func prepareCLI(app *cli.App, stdout io.Writer) {
+// Help and the version go to stdout; argv is the command line (for naming
+// the environment variable behind a bad value).
+func prepareCLI(app *cli.App, stdout io.Writer, argv []string) {
 	app.HideHelp, app.HideHelpCommand, app.HideVersion = true, true, true
 	app.CustomAppHelpTemplate = appHelpTemplate
 	app.Flags = append(app.Flags, helpFlag(),
@@ -121,13 +123,17 @@ func prepareCLI(app *cli.App, stdout io.Writer) {
 	}
 	app.Action = func(c *cli.Context) error { return missingCommand(nil, app.Commands, c.Args().Slice()) }
 	for _, cmd := range app.Commands {
-		prepareCommand(cmd, nil, stdout)
+		prepareCommand(cmd, nil, stdout, argv)
 	}
 }
 
-func prepareCommand(cmd *cli.Command, parent []string, stdout io.Writer) {
+func prepareCommand(cmd *cli.Command, parent []string, stdout io.Writer, argv []string) {
 	path := append(append([]string{}, parent...), cmd.Name)
-	cmd.HelpName = strings.Join(append([]string{"limpid"}, path...), " ")
+	full := strings.Join(append([]string{"limpid"}, path...), " ")
+	if len(parent) > 0 {
+		// App.Setup prefixes the top-level commands' names itself.
+		cmd.HelpName = full
+	}
 	cmd.HideHelp, cmd.HideHelpCommand = true, true
 	for _, f := range cmd.Flags {
 		setEnvVars(f, envName(path, f.Names()[0]))
@@ -145,7 +151,7 @@ func prepareCommand(cmd *cli.Command, parent []string, stdout io.Writer) {
 	}
 	if group {
 		cmd.CustomHelpTemplate = groupHelpTemplate
-		cmd.UsageText = cmd.HelpName + " COMMAND [command options] [arguments...]"
+		cmd.UsageText = full + " COMMAND [command options] [arguments...]"
 		subs := cmd.Subcommands
 		cmd.Action = func(c *cli.Context) error {
 			args := c.Args().Slice()
@@ -155,7 +161,7 @@ func prepareCommand(cmd *cli.Command, parent []string, stdout io.Writer) {
 			return missingCommand(path, subs, args)
 		}
 		for _, sub := range cmd.Subcommands {
-			prepareCommand(sub, path, stdout)
+			prepareCommand(sub, path, stdout, argv)
 		}
 		return
 	}
@@ -168,10 +174,32 @@ func prepareCommand(cmd *cli.Command, parent []string, stdout io.Writer) {
 		err := action(c)
 		if err != nil && exitCode(err) == exitUsage && strings.HasPrefix(errorText(err), "-") {
 			// An error that names a flag first is about the command line.
-			return hinted{err, hint(path)}
+			return hinted{err, envSource(path, errorText(err), argv) + hint(path)}
 		}
 		return err
 	}
+}
+
+var reLeadingFlag = regexp.MustCompile(`^--([a-z0-9-]+)`)
+
+// envSource is "(from LIMPID_...) " when the flag that msg starts with was
+// not on the command line but set by its environment variable.
+func envSource(path []string, msg string, argv []string) string {
+	m := reLeadingFlag.FindStringSubmatch(msg)
+	if m == nil {
+		return ""
+	}
+	name := envName(path, m[1])
+	if _, set := os.LookupEnv(name); !set {
+		return ""
+	}
+	for _, a := range argv {
+		a, _, _ = strings.Cut(a, "=")
+		if a == "--"+m[1] || a == "-"+m[1] {
+			return ""
+		}
+	}
+	return "(from " + name + ") "
 }
 
 // setEnvVars sets the EnvVars field every urfave/cli flag type has.

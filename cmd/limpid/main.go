@@ -66,7 +66,7 @@ error map assume the PSF and the noise model are right; they do not certify it.`
 // "-", and logs and errors to stderr; help and the version go to stdout when
 // asked for (cli.go has the command-line contract). It returns the exit code.
 func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	err := newApp(stdin, stdout, stderr).RunContext(ctx, helpArgs(args))
+	err := newApp(stdin, stdout, stderr, args).RunContext(ctx, helpArgs(args))
 	if errors.Is(err, errHelpShown) {
 		return exitOK
 	}
@@ -76,8 +76,9 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 	return exitCode(err)
 }
 
-// newApp is the command tree with the command-line contract applied.
-func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
+// newApp is the command tree with the command-line contract applied; argv
+// is the command line it will run.
+func newApp(stdin io.Reader, stdout, stderr io.Writer, argv []string) *cli.App {
 	app := &cli.App{
 		Name:    "limpid",
 		Usage:   "restore blurred optical satellite imagery (EMS deconvolution), georeferencing kept",
@@ -100,7 +101,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer) *cli.App {
 	}
 	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.
 	app.DisableSliceFlagSeparator = true
-	prepareCLI(app, stdout)
+	prepareCLI(app, stdout, argv)
 	return app
 }
 
