@@ -1,15 +1,39 @@
 # limpid build, demo, test and benchmark entry points.
-# `make demo` and `make test` install what is missing (Debian packages, Go
-# modules, the pinned npm packages of testdata/node) themselves and are safe
-# to run again.
+# Each target installs what it needs and is missing (Debian packages with
+# --no-install-recommends, Go modules, the pinned npm packages of
+# testdata/node) and is safe to run again:
+#   make build / make demo   gcc libgdal-dev pkg-config (the cgo build), Go modules
+#   make test / test-long    + gdal-bin python3-gdal chromium (the tests'
+#                            cross-checks), nodejs npm when `node` is absent,
+#                            npm ci in testdata/node
+#   make deps-ref            python3-skimage, only to regenerate the committed
+#                            reference vectors (testdata/ref/*.py)
 SHELL := /bin/bash
 GO ?= go
-APT_PKGS := libgdal-dev gdal-bin python3-gdal python3-skimage pkg-config chromium
+# The cgo build of raster/gdal. gcc is named: without recommends nothing
+# else brings a C compiler (libc6-dev only recommends one).
+BUILD_PKGS := gcc libgdal-dev pkg-config
+# What the tests run: gdalinfo and gdal_translate (gdal-bin), the COG
+# validator under /usr/bin/python3 (python3-gdal), the headless browser of
+# the HTML report test (chromium; no driver is used).
+TEST_PKGS := gdal-bin python3-gdal chromium
+# Only the generators of testdata/ref run scikit-image (and scipy, numpy).
+REF_PKGS := python3-skimage
 SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
+APT_INSTALL := DEBIAN_FRONTEND=noninteractive $(SUDO) apt-get install -y -q --no-install-recommends
 # The Node cross-check of the Arrow tile stream (npm apache-arrow, pinned).
 NODE_DIR := testdata/node
 
-.PHONY: deps demo test test-long bench build clean
+# apt_missing installs the Debian packages of $(1) that are not installed.
+define apt_missing
+	@missing="$$(for p in $(1); do dpkg -s $$p >/dev/null 2>&1 || echo $$p; done)"; \
+	if [ -n "$$missing" ]; then \
+		echo "installing" $$missing; \
+		$(SUDO) apt-get update -q && $(APT_INSTALL) $$missing; \
+	fi
+endef
+
+.PHONY: deps deps-build deps-test deps-ref demo test test-long bench build clean
 
 # go test's -timeout is per package (per test binary). The default run takes
 # about 1.5 minutes per package with -race on an idle 2-core machine
@@ -23,25 +47,33 @@ TEST_TIMEOUT ?= 5m
 # -race), far inside its timeout.
 LONG_TIMEOUT ?= 60m
 
-deps:
-	@if ! dpkg -s $(APT_PKGS) >/dev/null 2>&1; then \
-		echo "installing $(APT_PKGS)"; \
-		$(SUDO) apt-get update -q && DEBIAN_FRONTEND=noninteractive $(SUDO) apt-get install -y -q $(APT_PKGS); \
-	fi
-	@command -v node >/dev/null 2>&1 && command -v npm >/dev/null 2>&1 || { \
-		echo "installing nodejs npm"; \
-		$(SUDO) apt-get update -q && DEBIAN_FRONTEND=noninteractive $(SUDO) apt-get install -y -q nodejs npm; \
-	}
-	@cd $(NODE_DIR) && npm ci --no-audit --no-fund --loglevel=error
+deps-build:
+	$(call apt_missing,$(BUILD_PKGS))
 	@$(GO) mod download
 
-build: deps
+# nodejs/npm come from apt only when no `node` and `npm` are on PATH (a
+# NodeSource or nvm install is kept).
+deps-test: deps-build
+	$(call apt_missing,$(TEST_PKGS))
+	@command -v node >/dev/null 2>&1 && command -v npm >/dev/null 2>&1 || { \
+		echo "installing nodejs npm"; \
+		$(SUDO) apt-get update -q && $(APT_INSTALL) nodejs npm; \
+	}
+	@cd $(NODE_DIR) && npm ci --no-audit --no-fund --loglevel=error
+
+deps-ref:
+	$(call apt_missing,$(REF_PKGS))
+
+# deps: everything the tests need (kept for existing scripts).
+deps: deps-test
+
+build: deps-build
 	$(GO) build -o bin/limpid ./cmd/limpid
 
 demo: build
 	./bin/limpid demo --out limpid-demo
 
-test: deps
+test: deps-test
 	@test -z "$$(gofmt -l $$(git ls-files '*.go' 2>/dev/null || find . -name '*.go'))" || { echo "gofmt needed:"; gofmt -l .; exit 1; }
 	$(GO) vet ./...
 	CGO_ENABLED=0 $(GO) vet ./step/... ./psf/... ./arrowio/... ./raster
@@ -49,10 +81,10 @@ test: deps
 	$(GO) test -count=1 -timeout $(TEST_TIMEOUT) -run 'TestHelpExamplesRun|TestREADMEExamplesRun|TestREADMENumbers' ./cmd/limpid
 	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s -timeout 2m ./arrowio
 
-test-long: deps
+test-long: deps-test
 	LIMPID_LONG=1 $(GO) test -race -count=1 -timeout $(LONG_TIMEOUT) ./...
 
-bench: deps
+bench: deps-build
 	$(GO) test -run '^$$' -bench . -benchmem -benchtime 10x ./step
 	LIMPID_BENCH_SCENE=1 $(GO) test -run '^$$' -bench 'BenchmarkScene' -benchtime 1x -timeout 60m ./cmd/limpid
 	LIMPID_BENCH_STREAM=1 $(GO) test -run '^$$' -bench 'BenchmarkStreamRSS200' -benchtime 1x -cpu 1 ./cmd/limpid

@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"io"
+	"os"
 	"path/filepath"
 	"regexp"
 	"strings"
@@ -302,6 +303,20 @@ func TestEnvNames(t *testing.T) {
 			if !strings.Contains(fmt.Sprint(f), "[$"+name+"]") {
 				t.Errorf("%s: help does not show $%s: %s", where, name, f)
 			}
+		}
+	}
+	// README's "Environment" table gives each command's rule.
+	readme, err := os.ReadFile("../../README.md")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, n := range tree {
+		if len(n.cmd.Flags) < 2 { // --help only
+			continue
+		}
+		rule := "`" + envName(n.path, "<FLAG>") + "`"
+		if !strings.Contains(string(readme), rule) {
+			t.Errorf("README does not give %s's variables %s", n.name(), rule)
 		}
 	}
 	// The names users of restore already export.
