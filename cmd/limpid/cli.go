@@ -16,25 +16,25 @@ import (
 )
 
 // The command-line contract, applied to the whole command tree in one place
-// (prepareCLI) so that every command and nested subcommand behaves alike:
+// (prepareCLI) so that every command and nested subcommand behaves alike
+// (the quoted wording below is recalled from memory):
 //
 //   - --help and -h on any command, `limpid help [COMMAND...]` and
 //     `limpid --version` print to standard output and exit 0. Source: GNU
-//     Coding Standards 4.8 "--help" and "--version": "print ... on standard
-//     output, then exit successfully". Help is printed only when asked for,
-//     so it never mixes with data on stdout (OUTPUT "-").
+//     Coding Standards 4.8.1 "--version" and 4.8.2 "--help": print "on
+//     standard output, then exit successfully". Help is printed only when
+//     asked for, so it never mixes with data on stdout (OUTPUT "-").
 //   - Every usage error (unknown flag or command, a word where a number is
 //     expected, a bad LIMPID_* value, a wrong argument count) exits 2 with
 //     one stderr line "limpid: ..." ending in a hint to --help; no help
-//     dump. Source: POSIX.1-2017 XCU 1.4 "Utility Description Defaults",
-//     CONSEQUENCES OF ERRORS / EXIT STATUS (diagnostics to standard error,
-//     non-zero status), and the >1 status for usage errors of utilities
-//     such as diff and cmp (XCU diff, cmp: "exit status >1: an error
-//     occurred"); the one-line "see --help" hint is common practice, no
-//     source.
-//   - Flags come before the operands. Source: POSIX.1-2017 XBD 12.2 Utility
-//     Syntax Guidelines, Guideline 9: "All options should precede operands
-//     on the command line."
+//     dump. Source: POSIX.1-2017 XCU 1.4 Utility Description Defaults
+//     (diagnostic messages go to standard error; an error gives a non-zero
+//     exit status) and the status above 1 for errors of utilities such as
+//     cmp and diff (XCU cmp, diff: ">1 An error occurred"); the one-line
+//     "see --help" hint is common practice, no source.
+//   - Flags come before the operands. Source: POSIX.1-2017 XBD 12.1 Utility
+//     Argument Syntax and 12.2 Utility Syntax Guidelines, Guideline 9: "All
+//     options should precede operands on the command line."
 //   - Every flag can be set from the environment: restore's flags (the main
 //     job) from LIMPID_<FLAG>, every other command's from
 //     LIMPID_<COMMAND>_<FLAG> (envName), so that one variable never means
@@ -42,8 +42,8 @@ import (
 
 func init() {
 	// Help is a flag of limpid's own on every command (helpFlag), printed
-	// to stdout by helpBefore; urfave/cli's built-in one writes to
-	// App.Writer (stderr here) and treats `--help ARG` as a help topic.
+	// to stdout by the command's Before; urfave/cli's built-in one writes
+	// to App.Writer (stderr here) and takes `--help ARG` as a help topic.
 	cli.HelpFlag = nil
 }
 
@@ -141,15 +141,18 @@ func prepareCommand(cmd *cli.Command, parent []string, stdout io.Writer, argv []
 	cmd.Flags = append(cmd.Flags, helpFlag())
 	flags := cmd.Flags
 	cmd.OnUsageError = func(_ *cli.Context, err error, _ bool) error { return flagUsageError(path, flags, err) }
-	group := len(cmd.Subcommands) > 0
+	before := cmd.Before
 	cmd.Before = func(c *cli.Context) error {
 		if c.Bool("help") {
 			printHelp(stdout, cmd)
 			return errHelpShown
 		}
+		if before != nil {
+			return before(c)
+		}
 		return nil
 	}
-	if group {
+	if len(cmd.Subcommands) > 0 {
 		cmd.CustomHelpTemplate = groupHelpTemplate
 		cmd.UsageText = full + " COMMAND [command options] [arguments...]"
 		subs := cmd.Subcommands
