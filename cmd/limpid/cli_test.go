@@ -343,6 +343,12 @@ func TestEnvPerCommand(t *testing.T) {
 	if code != exitUsage || !strings.Contains(stderr, "bogus:x=1") {
 		t.Errorf("simulate did not read LIMPID_SIMULATE_NOISE: exit %d, %s", code, stderr)
 	}
+	// A flag on the command line wins over its variable: --noise none is
+	// read, so the next check (--format) is the one that fails.
+	code, _, stderr = limpid(t, nil, "simulate", "--psf", "gaussian:sigma=1", "--noise", "none", "--format", "bogus", fixture("reference.tif"), out)
+	if code != exitUsage || !strings.Contains(stderr, `--format "bogus"`) {
+		t.Errorf("--noise none did not win over LIMPID_SIMULATE_NOISE: exit %d, %s", code, stderr)
+	}
 }
 
 // Each flag's help states at most one default: either urfave/cli's
