@@ -154,7 +154,7 @@ func assessFiles(obsPath, resPath, refPath string, L float64) (*assessReport, er
 		}
 		if ref != nil {
 			row["data_range"] = peak
-			row["psnr"], row["ssim"], row["rmse"], row["mae"], row["bias"] = finite(a.PSNR), finite(a.SSIM), finite(a.RMSE), finite(a.MAE), finite(a.Bias)
+			row["psnr"], row["ssim"], row["rmse"], row["mae"], row["bias"] = finite(a.Restored.PSNR), finite(a.Restored.SSIM), finite(a.Restored.RMSE), finite(a.Restored.MAE), finite(a.Restored.Bias)
 		}
 		rep.Bands = append(rep.Bands, row)
 	}
