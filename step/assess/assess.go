@@ -38,9 +38,16 @@ func noFidelity() Fidelity {
 // Compare is the Fidelity of img against ref over the pixels where valid
 // is true (nil: all) of w x h planes, with peak L for PSNR and SSIM.
 func Compare(ref, img []float32, valid []bool, w, h int, L float64) Fidelity {
+	return compare(newSSIMReference(ref, valid, w, h, L), img, L)
+}
+
+// compare is Compare with the reference's SSIM side prepared (shared by
+// the observed and restored comparisons).
+func compare(s *ssimReference, img []float32, L float64) Fidelity {
+	ref, valid := s.ref, s.valid
 	var se, ae, be float64
 	n := 0
-	for i := range ref[:w*h] {
+	for i := range ref[:s.w*s.h] {
 		if valid != nil && !valid[i] {
 			continue
 		}
@@ -54,7 +61,7 @@ func Compare(ref, img []float32, valid []bool, w, h int, L float64) Fidelity {
 		return noFidelity()
 	}
 	fn := float64(n)
-	return Fidelity{PSNR: PSNR(ref, img, valid, L), SSIM: SSIM(ref, img, valid, w, h, L),
+	return Fidelity{PSNR: PSNR(ref, img, valid, L), SSIM: s.against(img),
 		RMSE: math.Sqrt(se / fn), MAE: ae / fn, Bias: be / fn}
 }
 
@@ -143,8 +150,9 @@ func Measure(obs, res, ref []float32, valid []bool, w, h int, L float64) Band {
 		a.FluxChange = (sr - so) / so
 	}
 	if ref != nil {
-		a.Observed = Compare(ref, obs, valid, w, h, L)
-		a.Restored = Compare(ref, res, valid, w, h, L)
+		s := newSSIMReference(ref, valid, w, h, L)
+		a.Observed = compare(s, obs, L)
+		a.Restored = compare(s, res, L)
 	}
 	a.NoiseObserved, a.NoiseRule = PlaneNoise(obs, valid, w, h)
 	a.NoiseRestored, _ = PlaneNoise(res, valid, w, h)
