@@ -2,14 +2,17 @@ package main
 
 import (
 	"encoding/json"
+	"fmt"
 	"math"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/raster/gdal"
 	"limpid/step/simulate"
 )
 
@@ -150,6 +153,25 @@ func TestAssessCLI(t *testing.T) {
 				t.Errorf("key %s missing", k)
 			}
 		}
+		// Side by side: both images are the reference, so both
+		// comparisons are perfect and the gain is 0 (PSNR: not
+		// measurable, null).
+		for _, k := range []string{"observed_vs_reference", "restored_vs_reference"} {
+			m, _ := b[k].(map[string]any)
+			if m == nil || m["ssim"] != 1.0 || m["rmse"] != 0.0 || m["mae"] != 0.0 || m["bias"] != 0.0 || m["psnr"] != nil {
+				t.Errorf("identical: %s = %v", k, b[k])
+			}
+		}
+		if g, _ := b["gain"].(map[string]any); g == nil || g["ssim"] != 0.0 || g["rmse"] != 0.0 || g["psnr"] != nil {
+			t.Errorf("identical: gain = %v", b["gain"])
+		}
+	}
+	// The table: the per-band table, a blank line, then per band the rows
+	// observed, restored and gain against the reference.
+	if tables := strings.Split(strings.TrimSpace(out), "\n\n"); len(tables) != 2 ||
+		strings.Count(tables[1], "\n") != 3*4 || !strings.Contains(tables[1], "\n3    restored") ||
+		!strings.Contains(tables[1], "\n4    gain") || strings.Contains(tables[0], "PSNR") {
+		t.Errorf("stdout:\n%s", out)
 	}
 	// No reference: no reference keys.
 	code, _, errs = limpid(t, nil, "assess", "--json", js, obs, obs)
@@ -160,7 +182,7 @@ func TestAssessCLI(t *testing.T) {
 	if err := json.Unmarshal(mustRead(t, js), &rep); err != nil {
 		t.Fatal(err)
 	}
-	for _, k := range []string{"psnr", "ssim", "rmse", "mae", "bias", "data_range"} {
+	for _, k := range []string{"psnr", "ssim", "rmse", "mae", "bias", "data_range", "observed_vs_reference", "restored_vs_reference", "gain"} {
 		if _, ok := rep.Bands[0][k]; ok {
 			t.Errorf("without --reference the key %s is present", k)
 		}
@@ -176,6 +198,12 @@ func TestSimulateAssessBadInputs(t *testing.T) {
 	out := filepath.Join(dir, "o.tif")
 	small := flatScene(t, dir)
 	ref := fixture("reference.tif")
+	// One band on the fixtures' 256 x 256 grid (they have 4).
+	oneBand := filepath.Join(dir, "one.tif")
+	if err := gdal.WriteFloat32(oneBand, raster.Meta{Width: 256, Height: 256, DataType: "Float32", Bands: []raster.BandInfo{{Description: "one"}}},
+		[][]float32{make([]float32, 256*256)}, gdal.WriteOptions{Format: gdal.GTiff, DataType: "Float32"}); err != nil {
+		t.Fatal(err)
+	}
 	cases := []struct {
 		args []string
 		want []string
@@ -192,6 +220,9 @@ func TestSimulateAssessBadInputs(t *testing.T) {
 		{[]string{"assess", ref}, []string{"OBSERVED and RESTORED"}},
 		{[]string{"assess", ref, small}, []string{"must match"}},
 		{[]string{"assess", "--reference", small, ref, ref}, []string{"must match"}},
+		{[]string{"assess", "--reference", oneBand, ref, ref}, []string{"--reference", "with 1 band;", "with 4 bands", "must match"}},
+		{[]string{"assess", "--reference", ref, ref, oneBand}, []string{"RESTORED", "with 1 band;", "must match"}},
+		{[]string{"assess", "--reference", filepath.Join(dir, "missing.tif"), ref, ref}, []string{"--reference", "no such file"}},
 		{[]string{"assess", "--data-range", "-1", ref, ref}, []string{"--data-range", "must be a positive number"}},
 		{[]string{"assess", filepath.Join(dir, "missing.tif"), ref}, []string{"OBSERVED", "no such file"}},
 	}
@@ -207,6 +238,139 @@ func TestSimulateAssessBadInputs(t *testing.T) {
 		}
 		if _, err := os.Stat(out); err == nil {
 			t.Errorf("%v left %s", c.args, out)
+		}
+	}
+}
+
+// TestAssessSideBySideFiles: assess --reference on GeoTIFFs with three
+// different nodata encodings (the observed fixture's 0, the reference's NaN,
+// and a Float32 RESTORED with nodata -9999 and a hole of its own): OBSERVED
+// and RESTORED are compared with the reference over the same pixels, and
+// each figure is what scikit-image gives on the pixels GDAL reports valid in
+// all three files.
+// Source: scikit-image 0.19.3 (Debian python3-skimage) and GDAL 3.6's
+// Python bindings (python3-gdal), through testdata/ref/assess_files_skimage.py
+// run with /usr/bin/python3 (PSNR = 10 log10(L^2 / MSE); SSIM of Wang,
+// Bovik, Sheikh & Simoncelli, IEEE TIP 13(4):600, 2004).
+func TestAssessSideBySideFiles(t *testing.T) {
+	const python = "/usr/bin/python3"
+	script := filepath.Join("..", "..", "testdata", "ref", "assess_files_skimage.py")
+	if err := exec.Command(python, "-c", "import skimage, osgeo.gdal, scipy").Run(); err != nil {
+		msg := fmt.Sprintf("SKIPPED: the outside reference for assess's side-by-side figures needs %s with Debian's python3-skimage and python3-gdal (apt-get install python3-skimage python3-gdal): %v", python, err)
+		fmt.Fprintln(os.Stderr, "limpid tests: "+msg)
+		t.Skip(msg)
+	}
+	dir := t.TempDir()
+	obs, ref := fixture("observed.tif"), fixture("reference.tif")
+	m, op, err := readAll(obs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, rp, err := readAll(ref)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// RESTORED stand-in: halfway between observed and reference where both
+	// are finite, a 40 x 60 hole of nodata, and the observed nodata pixels
+	// left valid (5 DN) so that only the other inputs exclude them.
+	const nodata = -9999
+	res := make([][]float32, len(op))
+	for b := range op {
+		res[b] = make([]float32, len(op[b]))
+		for i, v := range op[b] {
+			x, y := i%m.Width, i/m.Width
+			switch r := rp[b][i]; {
+			case y >= 100 && y < 140 && x >= 30 && x < 90:
+				res[b][i] = nodata
+			case v == 0 || math.IsNaN(float64(r)):
+				res[b][i] = 5
+			default:
+				res[b][i] = (v + r) / 2
+			}
+		}
+	}
+	rm := m
+	rm.DataType = "Float32"
+	rm.Bands = append([]raster.BandInfo(nil), m.Bands...)
+	for b := range rm.Bands {
+		rm.Bands[b].NoData, rm.Bands[b].HasNoData = nodata, true
+	}
+	resPath := filepath.Join(dir, "restored.tif")
+	if err := gdal.WriteFloat32(resPath, rm, res, gdal.WriteOptions{Format: gdal.GTiff, DataType: "Float32", NoData: nodata, HasNoData: true}); err != nil {
+		t.Fatal(err)
+	}
+	js := filepath.Join(dir, "a.json")
+	if code, _, errs := limpid(t, nil, "assess", "--reference", ref, "--data-range", "4095", "--json", js, obs, resPath); code != 0 {
+		t.Fatalf("exit %d: %s", code, errs)
+	}
+	var got struct{ Bands []map[string]any }
+	if err := json.Unmarshal(mustRead(t, js), &got); err != nil {
+		t.Fatal(err)
+	}
+	py, err := exec.Command(python, script, ref, obs, resPath, "4095").Output()
+	if err != nil {
+		t.Fatalf("%s: %v", script, err)
+	}
+	type fid struct{ PSNR, SSIM, RMSE, MAE, Bias float64 }
+	var want struct {
+		Bands []struct {
+			ValidPixels        int `json:"valid_pixels"`
+			Observed, Restored fid
+		}
+	}
+	if err := json.Unmarshal(py, &want); err != nil {
+		t.Fatalf("%s: %v: %s", script, err, py)
+	}
+	if len(got.Bands) != len(want.Bands) || len(got.Bands) != 4 {
+		t.Fatalf("%d bands, scikit-image %d", len(got.Bands), len(want.Bands))
+	}
+	// Tolerance: both sides compute in float64 from the same float32
+	// pixels and differ only in summation order over ~60,000 pixels
+	// (relative rounding ~1e-12 measured); 1e-9 relative leaves room.
+	const relTol = 1e-9
+	num := func(m map[string]any, k string) float64 {
+		v, ok := m[k].(float64)
+		if !ok {
+			t.Fatalf("assess JSON: %q is %v, not a number", k, m[k])
+		}
+		return v
+	}
+	for b, w := range want.Bands {
+		g := got.Bands[b]
+		if int(num(g, "valid_pixels")) != w.ValidPixels || w.ValidPixels == 0 {
+			t.Errorf("band %d: %v valid pixels, GDAL/numpy %d", b+1, g["valid_pixels"], w.ValidPixels)
+		}
+		o, _ := g["observed_vs_reference"].(map[string]any)
+		r, _ := g["restored_vs_reference"].(map[string]any)
+		gain, _ := g["gain"].(map[string]any)
+		if o == nil || r == nil || gain == nil {
+			t.Fatalf("band %d: side-by-side keys missing: %v", b+1, g)
+		}
+		for _, c := range []struct {
+			key    string
+			wo, wr float64
+		}{
+			{"psnr", w.Observed.PSNR, w.Restored.PSNR}, {"ssim", w.Observed.SSIM, w.Restored.SSIM},
+			{"rmse", w.Observed.RMSE, w.Restored.RMSE}, {"mae", w.Observed.MAE, w.Restored.MAE},
+			{"bias", w.Observed.Bias, w.Restored.Bias},
+		} {
+			near := func(x, y float64) bool { return math.Abs(x-y) <= relTol*math.Max(1, math.Abs(y)) }
+			if !near(num(o, c.key), c.wo) || !near(num(r, c.key), c.wr) || !near(num(gain, c.key), c.wr-c.wo) {
+				t.Errorf("band %d %s: observed %v, restored %v, gain %v; scikit-image %v, %v, %v",
+					b+1, c.key, o[c.key], r[c.key], gain[c.key], c.wo, c.wr, c.wr-c.wo)
+			}
+			// The flat keys keep their meaning: RESTORED's figures.
+			if g[c.key] != r[c.key] {
+				t.Errorf("band %d: %s = %v, restored_vs_reference has %v", b+1, c.key, g[c.key], r[c.key])
+			}
+		}
+		// Halfway to the reference halves every difference, so the PSNR
+		// gain is 20 log10(2) = 6.02 dB (derived). Tolerance: the halfway
+		// values are rounded to float32 (relative 6e-8 of ~1000 DN, against
+		// differences of ~100 DN RMS), far below 0.01 dB.
+		const halfwayTol = 0.01
+		if math.Abs(num(gain, "psnr")-20*math.Log10(2)) > halfwayTol {
+			t.Errorf("band %d: PSNR gain %v, want 6.02 dB for a halfway image", b+1, gain["psnr"])
 		}
 	}
 }

@@ -11,13 +11,14 @@ import (
 )
 
 // helpExamples are the subcommands whose --help prints examples.
-var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}}
+var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}, {"assess"}}
 
 // Every example that a subcommand's --help prints runs as written, in
 // order, on the fixtures: input names (scene.tif, in.tif, truth.tif,
 // in.jp2) stand for a 96-pixel crop of the observed fixture (the whole
-// fixture for psf measure, whose edge window is the demo tarp's), other
-// file names for files in one temporary directory, so that one example can
+// fixture for psf measure, whose edge window is the demo tarp's), paths
+// under testdata/ for the repository's files (the examples run from its
+// root), other file names for files in one temporary directory, so that one example can
 // read what an earlier one wrote; pipes run through stdin and stdout, GDAL's
 // own tools as programs. Source: the project's contract that documented
 // examples work (README "Usage"); no outside source.
@@ -42,6 +43,8 @@ func TestHelpExamplesRun(t *testing.T) {
 					}
 				}
 				switch {
+				case strings.HasPrefix(a, "testdata/"):
+					return filepath.Join("..", "..", a)
 				case inputs[a] && strings.HasPrefix(line, "limpid psf measure"):
 					return fixture("observed.tif")
 				case inputs[a]:

@@ -21,12 +21,72 @@ const Plateau = 0.2
 // MaxEdges bounds the edges measured per band (cost).
 const MaxEdges = 8
 
+// Fidelity is an image's agreement with the reference over the valid
+// pixels: PSNR (dB) and SSIM with peak L, and the root-mean-square, mean
+// absolute and mean signed difference image - reference (DN). Non-finite
+// values mean "not measurable" (no reference, PSNR of identical images).
+type Fidelity struct {
+	PSNR, SSIM, RMSE, MAE, Bias float64
+}
+
+// noFidelity is the Fidelity of a band without a reference.
+func noFidelity() Fidelity {
+	nan := math.NaN()
+	return Fidelity{nan, nan, nan, nan, nan}
+}
+
+// Compare is the Fidelity of img against ref over the pixels where valid
+// is true (nil: all) of w x h planes, with peak L for PSNR and SSIM.
+func Compare(ref, img []float32, valid []bool, w, h int, L float64) Fidelity {
+	return compare(newSSIMReference(ref, valid, w, h, L), img, L)
+}
+
+// compare is Compare with the reference's SSIM side prepared (shared by
+// the observed and restored comparisons).
+func compare(s *ssimReference, img []float32, L float64) Fidelity {
+	ref, valid := s.ref, s.valid
+	var se, ae, be float64
+	n := 0
+	for i := range ref[:s.w*s.h] {
+		if valid != nil && !valid[i] {
+			continue
+		}
+		d := float64(img[i]) - float64(ref[i])
+		se += d * d
+		ae += math.Abs(d)
+		be += d
+		n++
+	}
+	if n == 0 {
+		return noFidelity()
+	}
+	fn := float64(n)
+	return Fidelity{PSNR: PSNR(ref, img, valid, L), SSIM: s.against(img),
+		RMSE: math.Sqrt(se / fn), MAE: ae / fn, Bias: be / fn}
+}
+
+// Gain is f minus base, metric by metric (for a restoration: restored
+// minus observed, so positive is better for PSNR and SSIM, negative for
+// RMSE and MAE). A gain involving a non-finite value is NaN, including
+// infinite PSNRs (identical images) on either side.
+func (f Fidelity) Gain(base Fidelity) Fidelity {
+	d := func(a, b float64) float64 {
+		if math.IsInf(a, 0) || math.IsInf(b, 0) {
+			return math.NaN()
+		}
+		return a - b
+	}
+	return Fidelity{d(f.PSNR, base.PSNR), d(f.SSIM, base.SSIM), d(f.RMSE, base.RMSE), d(f.MAE, base.MAE), d(f.Bias, base.Bias)}
+}
+
 // Band is the result for one band. Non-finite values mean "not
-// measurable" (no reference, no edge, identical images for PSNR).
+// measurable" (no reference, no edge).
 type Band struct {
-	Pixels                           int
-	DataRange                        float64
-	PSNR, SSIM, RMSE, MAE, Bias      float64
+	Pixels    int
+	DataRange float64
+	// Observed and Restored are OBSERVED's and RESTORED's fidelity to the
+	// reference, over the same pixels with the same peak.
+	Observed, Restored               Fidelity
 	NoiseObserved, NoiseRestored     float64
 	NoiseRule                        string
 	Edges                            int
@@ -67,12 +127,12 @@ func CheckDataRange(L float64) error {
 	return fmt.Errorf("%w: DataRange %g must be positive and finite", ErrDataRange, L)
 }
 
-// Assess compares the restored plane res with the observed plane obs (and
-// with ref when it is not nil, using peak L for PSNR and SSIM) over the
-// pixels where valid is true (w x h planes).
+// Measure compares the restored plane res with the observed plane obs over
+// the pixels where valid is true (w x h planes) and, when ref is not nil,
+// both with ref over the same pixels, using peak L for PSNR and SSIM.
 func Measure(obs, res, ref []float32, valid []bool, w, h int, L float64) Band {
 	nan := math.NaN()
-	a := Band{PSNR: nan, SSIM: nan, RMSE: nan, MAE: nan, Bias: nan, DataRange: L,
+	a := Band{Observed: noFidelity(), Restored: noFidelity(), DataRange: L,
 		MTF50Observed: nan, MTF50Restored: nan, SharpnessGain: nan, RingingObserved: nan, RingingRestored: nan, FluxChange: nan}
 	var so, sr float64
 	for i, ok := range valid {
@@ -90,19 +150,9 @@ func Measure(obs, res, ref []float32, valid []bool, w, h int, L float64) Band {
 		a.FluxChange = (sr - so) / so
 	}
 	if ref != nil {
-		var se, ae, be float64
-		for i, ok := range valid {
-			if ok {
-				d := float64(res[i]) - float64(ref[i])
-				se += d * d
-				ae += math.Abs(d)
-				be += d
-			}
-		}
-		n := float64(a.Pixels)
-		a.RMSE, a.MAE, a.Bias = math.Sqrt(se/n), ae/n, be/n
-		a.PSNR = PSNR(ref, res, valid, L)
-		a.SSIM = SSIM(ref, res, valid, w, h, L)
+		s := newSSIMReference(ref, valid, w, h, L)
+		a.Observed = compare(s, obs, L)
+		a.Restored = compare(s, res, L)
 	}
 	a.NoiseObserved, a.NoiseRule = PlaneNoise(obs, valid, w, h)
 	a.NoiseRestored, _ = PlaneNoise(res, valid, w, h)

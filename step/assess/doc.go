@@ -4,7 +4,9 @@
 //
 // Assessment of a restoration: fidelity to a reference when one exists
 // (PSNR, SSIM of Wang, Bovik, Sheikh & Simoncelli, IEEE TIP 13(4):600-612,
-// 2004, RMSE, MAE, bias) and, always, what the restoration did to noise,
+// 2004, RMSE, MAE, bias), of the observation and of the restoration side by
+// side over the same pixels with the same peak, and their gain (restored
+// minus observed); and, always, what the restoration did to noise,
 // sharpness, ringing and flux.
 //
 // Definitions (README, "limpid assess"):

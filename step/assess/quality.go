@@ -34,35 +34,75 @@ func PSNR(ref, img []float32, valid []bool, L float64) float64 {
 // border whose whole window is valid (nil: all pixels valid), as
 // scikit-image crops its map.
 func SSIM(ref, img []float32, valid []bool, w, h int, L float64) float64 {
-	g := ssimWindow()
+	return newSSIMReference(ref, valid, w, h, L).against(img)
+}
+
+// ssimReference is SSIM's reference side, computed once for comparing
+// several images with one reference: the local means of x and x^2, the
+// windows holding invalid pixels, and buffers for the image's moments.
+type ssimReference struct {
+	ref          []float32
+	valid        []bool
+	w, h         int
+	c1, c2       float64
+	mx, mxx      []float64
+	my, myy, mxy []float64
+	bad          []int32
+}
+
+func newSSIMReference(ref []float32, valid []bool, w, h int, L float64) *ssimReference {
 	n := w * h
-	// The moments x, y, x^2, y^2, x y (0 on invalid pixels), blurred in
-	// place into local means.
-	mx, my := make([]float64, n), make([]float64, n)
-	mxx, myy, mxy := make([]float64, n), make([]float64, n), make([]float64, n)
+	s := &ssimReference{ref: ref, valid: valid, w: w, h: h, c1: (0.01 * L) * (0.01 * L), c2: (0.03 * L) * (0.03 * L),
+		mx: make([]float64, n), mxx: make([]float64, n)}
+	// The moments x, x^2 (0 on invalid pixels), blurred in place into
+	// local means.
 	for i := 0; i < n; i++ {
-		a, b := float64(ref[i]), float64(img[i])
+		a := float64(ref[i])
 		if valid != nil && !valid[i] {
-			a, b = 0, 0
+			a = 0
 		}
-		mx[i], my[i], mxx[i], myy[i], mxy[i] = a, b, a*a, b*b, a*b
+		s.mx[i], s.mxx[i] = a, a*a
 	}
-	for _, p := range [][]float64{mx, my, mxx, myy, mxy} {
+	g := ssimWindow()
+	for _, p := range [][]float64{s.mx, s.mxx} {
 		copy(p, conv.Blur64(p, w, h, g))
 	}
-	bad := ssimInvalidWindows(valid, w, h)
-	c1, c2 := (0.01*L)*(0.01*L), (0.03*L)*(0.03*L)
+	s.bad = ssimInvalidWindows(valid, w, h)
+	return s
+}
+
+// against is the SSIM of img against the reference; the map is averaged
+// over pixels at least ssimRadius from the border whose whole window is
+// valid.
+func (s *ssimReference) against(img []float32) float64 {
+	w, h, n := s.w, s.h, s.w*s.h
+	if s.my == nil {
+		s.my, s.myy, s.mxy = make([]float64, n), make([]float64, n), make([]float64, n)
+	}
+	// The moments y, y^2, x y (0 on invalid pixels), blurred in place
+	// into local means.
+	for i := 0; i < n; i++ {
+		a, b := float64(s.ref[i]), float64(img[i])
+		if s.valid != nil && !s.valid[i] {
+			a, b = 0, 0
+		}
+		s.my[i], s.myy[i], s.mxy[i] = b, b*b, a*b
+	}
+	g := ssimWindow()
+	for _, p := range [][]float64{s.my, s.myy, s.mxy} {
+		copy(p, conv.Blur64(p, w, h, g))
+	}
 	var sum float64
 	cnt := 0
 	for row := ssimRadius; row < h-ssimRadius; row++ {
 		for col := ssimRadius; col < w-ssimRadius; col++ {
 			i := row*w + col
-			if bad[i] != 0 {
+			if s.bad[i] != 0 {
 				continue
 			}
-			ux, uy := mx[i], my[i]
-			vx, vy, cxy := mxx[i]-ux*ux, myy[i]-uy*uy, mxy[i]-ux*uy
-			sum += ((2*ux*uy + c1) * (2*cxy + c2)) / ((ux*ux + uy*uy + c1) * (vx + vy + c2))
+			ux, uy := s.mx[i], s.my[i]
+			vx, vy, cxy := s.mxx[i]-ux*ux, s.myy[i]-uy*uy, s.mxy[i]-ux*uy
+			sum += ((2*ux*uy + s.c1) * (2*cxy + s.c2)) / ((ux*ux + uy*uy + s.c1) * (vx + vy + s.c2))
 			cnt++
 		}
 	}
