@@ -80,6 +80,12 @@ test: deps-test
 	$(GO) test -race -count=1 -timeout $(TEST_TIMEOUT) ./...
 	$(GO) test -count=1 -timeout $(TEST_TIMEOUT) -run 'TestHelpExamplesRun|TestREADMEExamplesRun|TestREADMENumbers' ./cmd/limpid
 	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s -timeout 2m ./arrowio
+	$(GO) test -run '^$$' -fuzz '^FuzzParse$$' -fuzztime 5s -timeout 2m ./psf
+	$(GO) test -run '^$$' -fuzz '^FuzzReadTextMatrix$$' -fuzztime 5s -timeout 2m ./psf
+	$(GO) test -run '^$$' -fuzz '^FuzzParseMeasured$$' -fuzztime 5s -timeout 2m ./psf
+	$(GO) test -run '^$$' -fuzz '^FuzzParseNoise$$' -fuzztime 5s -timeout 2m ./step/simulate
+	$(GO) test -run '^$$' -fuzz '^FuzzParseBands$$' -fuzztime 5s -timeout 2m ./cmd/limpid
+	$(GO) test -run '^$$' -fuzz '^FuzzParseNoiseFlag$$' -fuzztime 5s -timeout 2m ./cmd/limpid
 
 test-long: deps-test
 	LIMPID_LONG=1 $(GO) test -race -count=1 -timeout $(LONG_TIMEOUT) ./...

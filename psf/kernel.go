@@ -65,6 +65,11 @@ const MaxKernelSize = 1025
 // NewKernel validates raw weights (row-major, w*h) and returns a normalised
 // kernel. It refuses even sizes, negative, NaN or infinite weights and a
 // zero sum. Rank-one kernels are detected and get their 1-D factors.
+//
+// A sum that overflows float64 (weights near 1e308) is computed on the
+// weights divided by the largest one (an exact scaling when that weight is a
+// power of two, else one rounding per weight), so such a kernel is
+// normalised like any other instead of becoming all zeros.
 func NewKernel(w, h int, data []float64) (*Kernel, error) {
 	if w <= 0 || h <= 0 || len(data) != w*h {
 		return nil, fmt.Errorf("%w: size %dx%d does not match %d values", ErrKernel, w, h, len(data))
@@ -75,7 +80,7 @@ func NewKernel(w, h int, data []float64) (*Kernel, error) {
 	if w%2 == 0 || h%2 == 0 {
 		return nil, fmt.Errorf("%w: size %dx%d is even; the PSF centre must be a pixel, use an odd width and height", ErrKernel, w, h)
 	}
-	var sum float64
+	var sum, peak float64
 	for i, v := range data {
 		if math.IsNaN(v) || math.IsInf(v, 0) {
 			return nil, fmt.Errorf("%w: value %d (row %d, column %d) is not finite", ErrKernel, i, i/w+1, i%w+1)
@@ -84,13 +89,30 @@ func NewKernel(w, h int, data []float64) (*Kernel, error) {
 			return nil, fmt.Errorf("%w: value %g at row %d, column %d is negative", ErrKernel, v, i/w+1, i%w+1)
 		}
 		sum += v
+		peak = max(peak, v)
 	}
-	if !(sum > 0) {
+	if !(peak > 0) {
 		return nil, fmt.Errorf("%w: weights sum to zero", ErrKernel)
 	}
 	k := &Kernel{W: w, H: h, Data: make([]float64, len(data))}
-	for i, v := range data {
-		k.Data[i] = v / sum
+	if math.IsInf(sum, 0) {
+		// Every v/peak is in [0, 1], so their sum is at most w*h.
+		sum = 0
+		for _, v := range data {
+			sum += v / peak
+		}
+		for i, v := range data {
+			k.Data[i] = v / peak / sum
+		}
+	} else {
+		for i, v := range data {
+			k.Data[i] = v / sum
+		}
+	}
+	for i, v := range k.Data {
+		if math.IsNaN(v) || math.IsInf(v, 0) {
+			return nil, fmt.Errorf("%w: weight %d (row %d, column %d) is not finite after normalising (sum %g)", ErrKernel, i, i/w+1, i%w+1, sum)
+		}
 	}
 	k.detectSeparable()
 	return k, nil

@@ -532,6 +532,27 @@ func (m Measured) Spec() (string, error) {
 	return fmt.Sprintf("gaussian:sx=%.6g,sy=%.6g", sx, sy), nil
 }
 
+// ParseMeasured reads a `limpid psf measure` JSON summary (one JSON object,
+// nothing but white space after it) and returns the gaussian spec it stands
+// for (Measured.Spec).
+func ParseMeasured(r io.Reader) (string, error) {
+	var m Measured
+	dec := json.NewDecoder(r)
+	if err := dec.Decode(&m); err != nil {
+		return "", fmt.Errorf("is not a limpid psf measure JSON summary: %v", err)
+	}
+	return measuredSpec(&m, dec)
+}
+
+// measuredSpec refuses data after the decoded summary (a second object, a
+// truncated concatenation) and returns the summary's spec.
+func measuredSpec(m *Measured, dec *json.Decoder) (string, error) {
+	if _, err := dec.Token(); err != io.EOF {
+		return "", errors.New("has data after its JSON object (one summary per file)")
+	}
+	return m.Spec()
+}
+
 // maxMeasuredBytes bounds the JSON summary read by measured: (security).
 const maxMeasuredBytes = 64 << 20
 
@@ -544,12 +565,7 @@ func loadMeasured(path string, env Env) (*Kernel, error) {
 		return nil, fmt.Errorf("%w: measured file %s: %v", ErrSpec, path, errors.Unwrap(err))
 	}
 	defer f.Close()
-	var m Measured
-	dec := json.NewDecoder(io.LimitReader(f, maxMeasuredBytes))
-	if err := dec.Decode(&m); err != nil {
-		return nil, fmt.Errorf("%w: measured file %s is not a limpid psf measure JSON summary: %v", ErrSpec, path, err)
-	}
-	spec, err := m.Spec()
+	spec, err := ParseMeasured(io.LimitReader(f, maxMeasuredBytes))
 	if err != nil {
 		return nil, fmt.Errorf("%w: measured file %s %v", ErrSpec, path, err)
 	}

@@ -61,6 +61,53 @@ func TestNewKernelRefuses(t *testing.T) {
 	}
 }
 
+// Weights whose float64 sum overflows (each near the largest float64,
+// 1.8e308: IEEE 754 binary64) normalise like the same weights scaled down:
+// a kernel is defined up to a positive factor. Source: NewKernel's contract
+// (normalised to sum 1); IEEE 754-2008 for the float64 range.
+func TestNewKernelHugeWeights(t *testing.T) {
+	// Two roundings per weight (v/peak, then /sum) against one.
+	const tol = 4e-16
+	big, err := NewKernel(3, 3, []float64{1e308, 2e308 / 2, 1e308, 1e308, 1.5e308, 1e308, 1e308, 1e308, 1e308})
+	if err != nil {
+		t.Fatalf("1e308 weights: %v", err)
+	}
+	small, err := NewKernel(3, 3, []float64{1, 1, 1, 1, 1.5, 1, 1, 1, 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var sum float64
+	for i := range big.Data {
+		sum += big.Data[i]
+		if math.Abs(big.Data[i]-small.Data[i]) > tol {
+			t.Errorf("weight %d: %g, want %g", i, big.Data[i], small.Data[i])
+		}
+	}
+	if math.Abs(sum-1) > 9*tol {
+		t.Errorf("weights sum to %g, want 1", sum)
+	}
+	// The largest float64 everywhere, and one such weight among zeros.
+	for _, d := range [][]float64{{math.MaxFloat64, math.MaxFloat64, math.MaxFloat64}, {0, math.MaxFloat64, 0}} {
+		k, err := NewKernel(3, 1, d)
+		if err != nil {
+			t.Fatalf("%v: %v", d, err)
+		}
+		var s float64
+		for _, v := range k.Data {
+			s += v
+		}
+		if math.Abs(s-1) > 3*tol || !(k.Data[1] > 0) {
+			t.Errorf("%v: weights %v", d, k.Data)
+		}
+	}
+	// Infinite, NaN and negative-only weights stay refused.
+	for _, d := range [][]float64{{0, math.Inf(1), 0}, {-1, -2, -1}, {math.NaN(), 1, 1}} {
+		if _, err := NewKernel(3, 1, d); !errors.Is(err, ErrKernel) {
+			t.Errorf("%v: error %v, want ErrKernel", d, err)
+		}
+	}
+}
+
 func TestParseSpecs(t *testing.T) {
 	for _, bad := range []string{"", "gaussian", "gaussian:", "gaussian:sigma", "gaussian:sigma=1,sigma=2", "gaussian:sx=1", "blob:r=1", "gaussian:foo=1", "kernel:"} {
 		if _, err := Parse(bad, Env{}); err == nil {

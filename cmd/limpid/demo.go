@@ -114,6 +114,13 @@ func readAll(path string) (raster.Meta, [][]float32, error) {
 	}
 	defer r.Close()
 	m := r.Meta()
+	lim, err := raster.LimitsFrom(os.Getenv)
+	if err == nil {
+		err = lim.CheckWhole("input "+path, fmt.Sprintf("every band (%d)", len(m.Bands)), m.Width, m.Height, len(m.Bands))
+	}
+	if err != nil {
+		return m, nil, err
+	}
 	bands := make([]int, len(m.Bands))
 	planes := make([][]float32, len(m.Bands))
 	for i := range bands {

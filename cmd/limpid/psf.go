@@ -252,11 +252,11 @@ func parseInts(flag, s string, n int) ([]int, error) {
 }
 
 // readWindow reads a window of one band as float32 with nodata as NaN.
-func readWindow(src raster.Reader, band, x0, y0, x1, y1 int) []float32 {
+func readWindow(src raster.Reader, band, x0, y0, x1, y1 int) ([]float32, error) {
 	m := src.Meta()
 	rows := make([]float32, (y1-y0)*m.Width)
 	if err := src.ReadRows(y0, y1, []int{band}, [][]float32{rows}); err != nil {
-		return nil
+		return nil, err
 	}
 	bi := m.Bands[band]
 	out := make([]float32, 0, (x1-x0)*(y1-y0))
@@ -269,7 +269,7 @@ func readWindow(src raster.Reader, band, x0, y0, x1, y1 int) []float32 {
 			out = append(out, v)
 		}
 	}
-	return out
+	return out, nil
 }
 
 // measureArgs are psf measure's checked arguments.
@@ -374,7 +374,7 @@ func measureScene(src raster.Reader, args measureArgs) (measureSummary, error) {
 		return measureSummary{}, err
 	}
 	if args.auto {
-		found, err := autoEdges(src, b)
+		found, err := autoEdges(src, args.in, b)
 		if err != nil {
 			return measureSummary{}, err
 		}
@@ -412,9 +412,9 @@ func measureWindows(src raster.Reader, b int, windows [][4]int) ([]edgeSummary, 
 		if wnd[0] < 0 || wnd[1] < 0 || wnd[2] > meta.Width || wnd[3] > meta.Height {
 			return nil, usagef("--edge %d,%d,%d,%d: the window is outside the raster (%dx%d pixels)", wnd[0], wnd[1], wnd[2], wnd[3], meta.Width, meta.Height)
 		}
-		win := readWindow(src, b, wnd[0], wnd[1], wnd[2], wnd[3])
-		if win == nil {
-			return nil, fmt.Errorf("--edge %d,%d,%d,%d: reading the window failed", wnd[0], wnd[1], wnd[2], wnd[3])
+		win, err := readWindow(src, b, wnd[0], wnd[1], wnd[2], wnd[3])
+		if err != nil {
+			return nil, fmt.Errorf("--edge %d,%d,%d,%d: %w", wnd[0], wnd[1], wnd[2], wnd[3], err)
 		}
 		r, err := psf.MeasureEdge(win, wnd[2]-wnd[0], wnd[3]-wnd[1])
 		if err != nil {
@@ -434,7 +434,10 @@ func measurePointTarget(src raster.Reader, b int, point []int, pw int) (*pointSu
 	if x0 < 0 || y0 < 0 || x0+pw > meta.Width || y0+pw > meta.Height {
 		return nil, usagef("--point %d,%d: the %dx%d window around it is outside the raster (%dx%d pixels)", point[0], point[1], pw, pw, meta.Width, meta.Height)
 	}
-	win := readWindow(src, b, x0, y0, x0+pw, y0+pw)
+	win, err := readWindow(src, b, x0, y0, x0+pw, y0+pw)
+	if err != nil {
+		return nil, fmt.Errorf("--point %d,%d: %w", point[0], point[1], err)
+	}
 	r, err := psf.MeasurePoint(win, pw, pw)
 	if err != nil {
 		return nil, usagef("--point %d,%d: %v", point[0], point[1], strings.TrimPrefix(err.Error(), "psf: cannot measure: "))
@@ -583,11 +586,18 @@ func writeEdgeMTFCSV(w io.Writer, r *psf.EdgeResult, sigma float64) error {
 // autoEdges is the --auto search: psf.MeasureAuto on the whole band
 // (nodata as NaN). No usable edge is not an error here: the result then
 // holds no edge.
-func autoEdges(src raster.Reader, band int) (psf.AutoResult, error) {
+func autoEdges(src raster.Reader, name string, band int) (psf.AutoResult, error) {
 	m := src.Meta()
-	plane := readWindow(src, band, 0, 0, m.Width, m.Height)
-	if plane == nil {
-		return psf.AutoResult{}, fmt.Errorf("--auto: reading band %d failed", band+1)
+	lim, err := raster.LimitsFrom(os.Getenv)
+	if err == nil {
+		err = lim.CheckWhole("input "+name, fmt.Sprintf("band %d (the --auto edge search)", band+1), m.Width, m.Height, 1)
+	}
+	if err != nil {
+		return psf.AutoResult{}, err
+	}
+	plane, err := readWindow(src, band, 0, 0, m.Width, m.Height)
+	if err != nil {
+		return psf.AutoResult{}, err
 	}
 	res, err := psf.MeasureAuto(plane, m.Width, m.Height, psf.AutoOptions{})
 	if err != nil && !errors.Is(err, psf.ErrNoEdge) {
@@ -642,7 +652,7 @@ func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
 		}
 		band = n - 1
 	}
-	found, err := autoEdges(src, band)
+	found, err := autoEdges(src, in, band)
 	if err != nil {
 		return nil, "", err
 	}

@@ -337,8 +337,11 @@ func TestRestorePSFAuto(t *testing.T) {
 		t.Fatal(err)
 	}
 	m := src.Meta()
-	plane := readWindow(src, 0, 0, 0, m.Width, m.Height)
+	plane, err := readWindow(src, 0, 0, 0, m.Width, m.Height)
 	src.Close()
+	if err != nil {
+		t.Fatal(err)
+	}
 	lib, err := psf.MeasureAuto(plane, m.Width, m.Height, psf.AutoOptions{})
 	if err != nil {
 		t.Fatal(err)

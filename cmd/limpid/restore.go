@@ -378,7 +378,15 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	if err != nil {
 		return nil, err
 	}
-	cfg := j.cfg
+	// The radiometric guard (radiometry.go): negative or huge values are
+	// restored in exact changed units, stated and recorded.
+	units, err := scanRadiometry(src, bands, j.cfg, inputName(j.in))
+	if err != nil {
+		dst.Abort()
+		return nil, err
+	}
+	units.warn(stderr, inputName(j.in))
+	cfg := units.config(j.cfg)
 	cfg.Progress = progress(stderr, len(bands)*tileCount(meta, cfg))
 	cfg.Stage = func(what string) { fmt.Fprintf(stderr, "limpid: %s\n", what) }
 	unc, err := createUncertainty(j, om)
@@ -389,7 +397,20 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	if unc != nil {
 		cfg.Uncertainty = unc
 	}
-	rep, err := step.Restore(ctx, src, bands, dst, cfg)
+	var engSrc raster.Reader = src
+	var engDst raster.Writer = dst
+	if units.active() {
+		engSrc = newUnitsReader(src, units, j.cfg)
+		engDst = &unitsWriter{Writer: dst, r: units, width: meta.Width}
+		if unc != nil {
+			cfg.Uncertainty = &unitsWriter{Writer: unc, r: radiometry{Scale: units.Scale}, width: meta.Width}
+		}
+	}
+	rep, err := step.Restore(ctx, engSrc, bands, engDst, cfg)
+	units.report(rep, j.cfg)
+	if err == nil && units.active() {
+		err = recordUnits(dst, units)
+	}
 	if err != nil {
 		dst.Abort()
 		if unc != nil {

@@ -49,6 +49,14 @@ func (r *Reader) readMeta() error {
 	if st.SizeX <= 0 || st.SizeY <= 0 {
 		return fmt.Errorf("%w: input %s has size %dx%d", raster.ErrInput, r.name, st.SizeX, st.SizeY)
 	}
+	// The declared size is checked before anything is sized from it.
+	lim, err := raster.LimitsFrom(os.Getenv)
+	if err != nil {
+		return err
+	}
+	if err := lim.CheckScene("input "+r.name, st.SizeX, st.SizeY, len(bands)); err != nil {
+		return err
+	}
 	m := raster.Meta{Width: st.SizeX, Height: st.SizeY, Metadata: r.ds.Metadatas()}
 	for i, b := range bands {
 		bt := b.Structure().DataType
@@ -60,6 +68,11 @@ func (r *Reader) readMeta() error {
 			m.DataType = name
 		} else if name != m.DataType {
 			m.DataType = widerType(m.DataType, name)
+		}
+		if ci := b.ColorInterp(); ci == godal.CIPalette {
+			// Palette values are indices into a colour table, not
+			// radiometry: deconvolving them mixes unrelated colours.
+			return fmt.Errorf("%w: input %s band %d is a palette (colour-table) band: its values are colour indices, not radiometry; limpid refuses palette bands (expand the colours into bands first, e.g. gdal_translate -expand rgb)", raster.ErrInput, r.name, i+1)
 		}
 		nd, hasND := b.NoData()
 		m.Bands = append(m.Bands, raster.BandInfo{
@@ -111,7 +124,9 @@ func (r *Reader) ReadRows(y0, y1 int, bands []int, dst [][]float32) error {
 			return fmt.Errorf("%w: band %d does not exist (input has %d)", raster.ErrInput, b+1, len(all))
 		}
 		if err := all[b].Read(0, y0, dst[i][:r.meta.Width*h], r.meta.Width, h, quiet); err != nil {
-			return fmt.Errorf("raster: reading %s band %d rows %d-%d: %w", r.name, b+1, y0, y1-1, err)
+			// The file's pixel data cannot be read (truncated, corrupt
+			// compressed blocks): the input is unreadable, exit 2.
+			return fmt.Errorf("%w: input %s: reading band %d rows %d-%d: %v", raster.ErrInput, r.name, b+1, y0, y1-1, err)
 		}
 	}
 	return nil

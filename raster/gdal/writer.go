@@ -64,6 +64,9 @@ func Create(path string, meta raster.Meta, opts WriteOptions) (*Writer, error) {
 	if !ok {
 		return nil, fmt.Errorf("%w: output data type %q is not supported", raster.ErrInput, opts.DataType)
 	}
+	if err := checkWKT(meta.Geo.WKT); err != nil {
+		return nil, err
+	}
 	w := &Writer{final: path, opts: opts, meta: meta}
 	w.lo, w.hi, w.integer = raster.TypeRange(opts.DataType)
 	dir := os.TempDir()
@@ -96,6 +99,24 @@ func Create(path string, meta raster.Meta, opts WriteOptions) (*Writer, error) {
 		return nil, err
 	}
 	return w, nil
+}
+
+// checkWKT refuses, before any file is created, a CRS that GDAL cannot
+// read (it comes from the input: a raster's or a tile stream's metadata).
+func checkWKT(wkt string) error {
+	if wkt == "" {
+		return nil
+	}
+	sr, err := godal.NewSpatialRefFromWKT(wkt, quiet)
+	if err != nil {
+		short := wkt
+		if len(short) > 40 {
+			short = short[:40] + "..."
+		}
+		return fmt.Errorf("%w: the input's CRS %q is not a coordinate reference system GDAL can read: %v", raster.ErrInput, short, err)
+	}
+	sr.Close()
+	return nil
 }
 
 func colorInterpByName(name string) godal.ColorInterp {

@@ -298,6 +298,26 @@ type streamRun struct {
 	n           int
 }
 
+// MaxEngineValue bounds the data values the engine restores (2^40, about
+// 1.1e12): their squares (1.2e24) and sums of squares over a scene of 10^9
+// pixels stay far inside float32's range (3.4e38; IEEE 754), where values
+// near 3e38 overflowed to zeros. The raster route scales larger data by a
+// power of two (cmd/limpid); a tile stream above it is refused.
+const MaxEngineValue float64 = 1 << 40
+
+// checkRange refuses a tile whose valid values EMS cannot restore as they
+// are: below 0 (EMS models non-negative counts; the raster route offsets
+// such a scene, a stream cannot be scanned first) or above MaxEngineValue.
+func checkRange(t *arrowio.Tile, valid step.ValidFunc) error {
+	lo, hi := float32(0), float32(MaxEngineValue)
+	for _, v := range t.Pix[:t.W*t.H] {
+		if valid(v) && (v < lo || v > hi) {
+			return arrowio.TileErrorf(t, arrowio.ColPixels, "holds %g: EMS restores values from 0 to %g only (limpid restore on the raster offsets or scales such a scene; or rescale it before packing)", v, MaxEngineValue)
+		}
+	}
+	return nil
+}
+
 // produce reads the next tile into a free buffer and checks it against the
 // tiling.
 func (st *streamRun) produce(ctx context.Context) (*arrowio.Tile, bool, error) {
@@ -305,6 +325,9 @@ func (st *streamRun) produce(ctx context.Context) (*arrowio.Tile, bool, error) {
 	ok, err := st.src.Next(t)
 	if err == nil && ok {
 		err = CheckPlan(st.plan, t)
+	}
+	if err == nil && ok {
+		err = checkRange(t, st.valid[t.Band])
 	}
 	if err != nil || !ok {
 		st.free <- t
