@@ -5,9 +5,8 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"os"
-	"os/signal"
 	"strings"
+	"syscall"
 
 	"github.com/urfave/cli/v2"
 
@@ -24,13 +23,6 @@ const (
 	exitUsage   = 2
 )
 
-func main() {
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
-	code := run(ctx, os.Args, os.Stdin, os.Stdout, os.Stderr)
-	stop()
-	os.Exit(code)
-}
-
 // usageError marks errors caused by the command line or the input (exit 2).
 type usageError struct{ error }
 
@@ -43,6 +35,8 @@ func exitCode(err error) int {
 	switch {
 	case err == nil:
 		return exitOK
+	case errors.Is(err, syscall.EPIPE):
+		return exitBrokenPipe
 	case errors.As(err, &u), errors.Is(err, raster.ErrInput), errors.Is(err, step.ErrConfig),
 		errors.Is(err, psf.ErrSpec), errors.Is(err, psf.ErrKernel), errors.Is(err, arrowio.ErrStream):
 		return exitUsage
@@ -60,6 +54,7 @@ error map assume the PSF and the noise model are right; they do not certify it.`
 // reads stdin when INPUT is "-", writes data (only) to stdout when OUTPUT is
 // "-", and help, logs and errors to stderr. It returns the exit code.
 func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	stdin, stopped := watchRun(ctx, stdin) // signals.go: interruptions
 	app := &cli.App{
 		Name:            "limpid",
 		Usage:           "restore blurred optical satellite imagery (EMS deconvolution), georeferencing kept",
@@ -80,11 +75,15 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			psfCommand(stdin, stdout, stderr),
 			simulateCommand(stdin, stdout, stderr),
 			assessCommand(stdout, stderr),
+			cleanCommand(stderr),
 		},
 	}
 	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.
 	app.DisableSliceFlagSeparator = true
 	err := app.RunContext(ctx, args)
+	if code, ok := stopped(stderr); ok {
+		return code
+	}
 	if err != nil {
 		msg := strings.ReplaceAll(strings.TrimSpace(flagText(err)), "\n", " ")
 		fmt.Fprintf(stderr, "limpid: %s\n", msg)

@@ -46,6 +46,9 @@ func noiseAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 		return usagef("noise takes one INPUT after the flags (got %d arguments)", c.NArg())
 	}
 	in := c.Args().Get(0)
+	if err := checkOutputs(stdout, c.App.ErrWriter, []namedPath{{"INPUT", in}}, []namedPath{{"--json", c.String("json")}}); err != nil {
+		return err
+	}
 	path, done, err := spoolInput(in, stdin)
 	if err != nil {
 		return err
