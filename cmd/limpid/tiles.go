@@ -10,6 +10,7 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"syscall"
 
 	"github.com/urfave/cli/v2"
 
@@ -225,6 +226,16 @@ func (o *streamOutput) commit() error {
 	return nil
 }
 
+// fail aborts the output after err and returns err, said in words when the
+// stream's reader went away (EPIPE).
+func (o *streamOutput) fail(err error) error {
+	o.abort()
+	if errors.Is(err, syscall.EPIPE) {
+		return gdal.StreamError(o.name, err)
+	}
+	return err
+}
+
 // abort: on stdout or an open FIFO or device, the complete batches already
 // buffered are flushed (no end-of-stream marker follows, so the reader
 // sees a truncated stream); a file output is removed.
@@ -283,27 +294,28 @@ func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	}
 	w, err := arrowio.NewWriter(o.w, hdr, arrowio.WithCompression(c.String("compress")))
 	if err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	var t arrowio.Tile
 	for {
-		ok, err := tiler.Next(&t)
+		err := c.Context.Err()
+		ok := false
+		if err == nil {
+			ok, err = tiler.Next(&t)
+		}
 		if err == nil && ok {
 			err = w.Write(&t)
 		}
 		if err != nil {
 			w.Abandon()
-			o.abort()
-			return err
+			return o.fail(err)
 		}
 		if !ok {
 			break
 		}
 	}
 	if err := w.Close(); err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	return o.commit()
 }
@@ -546,17 +558,14 @@ func restoreToStream(ctx context.Context, c *cli.Context, j *restoreJob, in *str
 	}
 	w, err := arrowio.NewWriter(o.w, outHdr, arrowio.WithCompression(c.String("compress")))
 	if err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	if err := stream.RestoreTiles(ctx, in.hdr, bgs, in.src, w, in.cfg); err != nil {
 		w.Abandon()
-		o.abort()
-		return streamErr(j.in, err)
+		return o.fail(streamErr(j.in, err))
 	}
 	if err := w.Close(); err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	return o.commit()
 }
