@@ -10,10 +10,11 @@
 // 21-026), made by GDAL's COG driver from a finished GeoTIFF (GDAL 3.6's
 // COG driver only copies).
 //
-// Outputs are written under a temporary name (in the target directory, or
-// in the system's temporary directory for stdout) and moved into place or
-// copied to stdout on Commit, so a failed run leaves nothing at the output
-// path. GDAL datasets are not shared between goroutines: callers funnel all
+// Outputs are written into a private temporary directory (limpid/raster/
+// scratch: in the target directory, or in the system's temporary directory
+// for stdout, a FIFO or a character device) and moved into place or copied
+// to the stream on Commit, so a failed run leaves nothing at the output
+// path and a FIFO or device is never replaced by a file. GDAL datasets are not shared between goroutines: callers funnel all
 // raster I/O through one goroutine. Error messages keep the "raster:" prefix
 // they had before the adapter moved into this package, so the command's
 // error lines do not change.
