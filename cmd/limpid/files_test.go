@@ -264,11 +264,14 @@ func TestOutputsNeverClash(t *testing.T) {
 		{"report is kernel", append([]string{"restore", "--psf", "kernel:" + kernel, "--report", kernel}, in, out), "is the --psf kernel:"},
 		{"report is directory", r("--report", dir), "is a directory"},
 		{"report dir missing", r("--report", filepath.Join(dir, "no", "r.json")), "does not exist"},
-		{"noise json is input", []string{"noise", "--json", in, in}, "--json " + in + " is the INPUT"},
+		{"noise json is input", []string{"noise", "--json", in, in}, "is the INPUT"},
 		{"assess json is observed", []string{"assess", "--json", in, in, restored}, "is the OBSERVED"},
 		{"assess json is restored", []string{"assess", "--json", restored, in, restored}, "is the RESTORED"},
 		{"assess json is reference", []string{"assess", "--reference", kernel, "--json", kernel, in, restored}, "is the --reference"},
 		{"pack output is input", []string{"tiles", "pack", in, link}, "is the INPUT"},
+		{"simulate output is input", []string{"simulate", "--psf", "gaussian:sigma=1", "--noise", "none", in, link}, "is the INPUT"},
+		{"psf measure json is input", []string{"psf", "measure", "--auto", "--json", in, in}, "is the INPUT"},
+		{"psf build output is kernel", []string{"psf", "build", "kernel:" + kernel, kernel}, "is the --psf kernel:"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
