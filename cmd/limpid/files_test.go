@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"context"
+	"errors"
 	"io"
 	"os"
 	"os/exec"
@@ -501,3 +502,50 @@ func hostTagForTest(t *testing.T) string {
 
 func itoa(n int) string     { return strconv.Itoa(n) }
 func itoa64(n int64) string { return strconv.FormatInt(n, 10) }
+
+// OUTPUT - and a side file naming stdout's own file are one file: refused
+// (stdout is compared by its descriptor's identity, os.File.Stat).
+// Source: os.SameFile (device and inode).
+func TestStdoutClashesWithSideFile(t *testing.T) {
+	dir := t.TempDir()
+	in := cropFixture(t, dir, 64)
+	outPath := filepath.Join(dir, "stdout.tif")
+	f, err := os.Create(outPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	code, e := limpidTo(t, context.Background(), nil, f, append(append([]string{"restore", "--report", outPath}, fastPSF...), in, "-")...)
+	if code != exitUsage {
+		t.Fatalf("exit %d, want 2: %s", code, e)
+	}
+	oneLine(t, e, "OUTPUT - (stdout) and --report "+outPath+" are the same file")
+}
+
+// A read from stdin returns as soon as the run is interrupted, even while
+// the producer sends nothing; bytes before that arrive unchanged. Source:
+// Go context package documentation (Done is closed on cancel); the 1 s
+// bound is the project's.
+func TestInterruptibleStdin(t *testing.T) {
+	pr, pw := io.Pipe()
+	ctx, stop := withSignal(context.Background())
+	r := interruptible(ctx, pr)
+	go pw.Write([]byte("abc"))
+	b := make([]byte, 10)
+	n, err := r.Read(b)
+	if err != nil || string(b[:n]) != "abc" {
+		t.Fatalf("read %q, %v; want abc", b[:n], err)
+	}
+	time.AfterFunc(50*time.Millisecond, func() { stop(syscall.SIGTERM) })
+	t0 := time.Now()
+	if _, err := r.Read(b); !errors.Is(err, context.Canceled) {
+		t.Fatalf("read after the signal: %v, want context.Canceled", err)
+	}
+	if el := time.Since(t0); el > time.Second {
+		t.Errorf("the read returned %v after the signal", el)
+	}
+	if sig, ok := interrupted(ctx); !ok || sig != syscall.SIGTERM {
+		t.Errorf("interrupted(ctx) = %v, %v", sig, ok)
+	}
+	pw.Close()
+}
