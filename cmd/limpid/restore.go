@@ -480,6 +480,7 @@ func removeOutput(path string) {
 	}
 	if t, err := scratch.Inspect(path); err == nil && t.Kind == scratch.File {
 		os.Remove(t.Path)
+		scratch.Retract(t.Path)
 	}
 }
 

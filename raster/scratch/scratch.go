@@ -145,6 +145,18 @@ func Written(name string) {
 	registry.written = append(registry.written, name)
 }
 
+// Retract takes back a finished output that was removed again (a run that
+// failed after writing it).
+func Retract(name string) {
+	registry.Lock()
+	defer registry.Unlock()
+	for i, x := range registry.written {
+		if x == name {
+			registry.written[i] = ""
+		}
+	}
+}
+
 // Marker is a point in the record of outputs (Mark).
 type Marker struct{ written, started int }
 
@@ -161,10 +173,12 @@ func Mark() Marker {
 func OutputsSince(m Marker) (written, incomplete []string) {
 	registry.Lock()
 	defer registry.Unlock()
-	w := registry.written[m.written:]
 	done := map[string]bool{}
-	for _, x := range w {
-		done[x] = true
+	for _, x := range registry.written[m.written:] {
+		if x != "" { // "": retracted
+			written = append(written, x)
+			done[x] = true
+		}
 	}
 	for _, s := range registry.started[m.started:] {
 		if !done[s] {
@@ -172,7 +186,7 @@ func OutputsSince(m Marker) (written, incomplete []string) {
 			done[s] = true
 		}
 	}
-	return append([]string(nil), w...), incomplete
+	return written, incomplete
 }
 
 // Tracked returns the temporaries the process holds now (for tests).

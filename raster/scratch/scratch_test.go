@@ -192,3 +192,24 @@ func TestRemoveAllStops(t *testing.T) {
 		t.Errorf("Commit after RemoveAll: %v, want ErrStopping", err)
 	}
 }
+
+// The record of outputs since a mark: finished ones, started streams not
+// finished, retracted ones left out (the one line of an interrupted run
+// must not claim a file that was taken back). Project rule, no outside
+// source.
+func TestOutputsSince(t *testing.T) {
+	Written("before")
+	m := Mark()
+	Written("a.tif")
+	Started("stdout")
+	Written("r.json")
+	Retract("r.json")
+	w, inc := OutputsSince(m)
+	if len(w) != 1 || w[0] != "a.tif" || len(inc) != 1 || inc[0] != "stdout" {
+		t.Errorf("written %v incomplete %v, want [a.tif] [stdout]", w, inc)
+	}
+	Written("stdout")
+	if _, inc := OutputsSince(m); len(inc) != 0 {
+		t.Errorf("a finished stream is still incomplete: %v", inc)
+	}
+}
