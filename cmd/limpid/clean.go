@@ -28,8 +28,8 @@ directory and TMPDIR. Each removal is one line on stderr. Runs that find such
 leftovers in their output directories or TMPDIR say so in one line.
 
 Examples:
-   limpid clean
-   limpid clean --dry-run .`,
+   limpid clean --dry-run
+   limpid clean .`,
 		Flags: []cli.Flag{
 			&cli.BoolFlag{Name: "dry-run", Usage: "list what would be removed, remove nothing"},
 		},
