@@ -31,7 +31,7 @@ import (
 
 // interruptGrace is how long main waits for the run to stop by itself after
 // a signal; with the cleanup it keeps the exit within 1 s of the signal.
-const interruptGrace = 600 * time.Millisecond
+const interruptGrace = 400 * time.Millisecond
 
 // exitBrokenPipe is the exit status when a stream OUTPUT's reader goes away
 // (EPIPE): 128 + SIGPIPE (13), what a shell reports for a command killed by

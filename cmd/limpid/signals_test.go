@@ -188,6 +188,7 @@ func TestSignalsBinary(t *testing.T) {
 				if code != 128+int(sig) {
 					t.Errorf("exit %d, want %d; stderr:\n%s", code, 128+int(sig), p.all)
 				}
+				t.Logf("exit %d %v after %s", code, el.Round(time.Millisecond), sigName(sig))
 				if el > time.Second {
 					t.Errorf("exit %v after the signal, want within 1 s", el)
 				}
