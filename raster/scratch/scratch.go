@@ -121,8 +121,13 @@ func RemoveAll() []string {
 	registry.stopping = true
 	var out []string
 	for p := range registry.paths {
-		if err := os.RemoveAll(p); err == nil {
-			out = append(out, p)
+		// A writer still running (GDAL inside a cgo call) may add a file
+		// between RemoveAll's listing and its rmdir: try again.
+		for try := 0; try < 3; try++ {
+			if err := os.RemoveAll(p); err == nil {
+				out = append(out, p)
+				break
+			}
 		}
 		delete(registry.paths, p)
 	}
