@@ -19,8 +19,10 @@ import (
 // phase stops at its next check (the stdin copy at once, the tile pipeline
 // between tiles, the commit between phases and 1 MiB pieces), its deferred
 // cleanups remove its temporaries, and the command exits 128 + the signal's
-// number with one line. Phases that cannot be interrupted (a GDAL read or
-// the COG copy inside GDAL, a write blocked on a full pipe) are cut short:
+// number with one line; GDAL's COG copy stops at its next progress step
+// (raster/gdal's translate). Phases that cannot be interrupted (GDAL
+// reading a block or flushing a GeoTIFF on close, a write blocked on a
+// full pipe) are cut short:
 // interruptGrace after the signal (or at a second signal) main removes every
 // temporary the process holds (scratch.RemoveAll) and exits.
 //

@@ -1,7 +1,8 @@
 // Package gdal is limpid's GDAL adapter, the only cgo in the module: it opens
 // any raster GDAL can read as a raster.Reader (Open), writes the products as
 // a raster.Writer (Create: a tiled, DEFLATE-compressed GeoTIFF, finished as a
-// Cloud Optimized GeoTIFF on request), reads raster kernels (LoadKernel) and
+// Cloud Optimized GeoTIFF on request, through GDAL's C API so that the copy
+// can be canceled: cog.go), reads raster kernels (LoadKernel) and
 // resolves EPSG codes (EPSGToWKT).
 //
 // Verified with GDAL 3.6.2 through github.com/airbusgeo/godal v0.0.18. The

@@ -253,9 +253,10 @@ func (w *Writer) Commit() error { return w.CommitContext(context.Background()) }
 
 // CommitContext finishes the output: the GeoTIFF is closed, made a COG on
 // request, then renamed to its path or copied to its stream. It stops with
-// ctx's error between phases and between the 1 MiB pieces of a copy.
-// GDAL's COG copy itself cannot be interrupted (godal v0.0.18's Translate
-// takes no progress callback): a caller that must stop sooner exits the
+// ctx's error between phases, inside GDAL's COG copy (at its next progress
+// step: translate) and between the 1 MiB pieces of a copy to a stream.
+// Closing the GeoTIFF (GDAL flushing its cache) and a write blocked on a
+// full pipe cannot be interrupted: a caller that must stop sooner exits the
 // process and removes the private directory with scratch.RemoveAll.
 // Nothing is left at the path when it fails.
 func (w *Writer) CommitContext(ctx context.Context) error {
@@ -273,23 +274,15 @@ func (w *Writer) CommitContext(ctx context.Context) error {
 	}
 	src := w.tmp
 	if w.opts.Format == COG {
-		in, err := godal.Open(w.tmp, quiet)
-		if err != nil {
-			w.cleanup()
-			return fmt.Errorf("raster: reopening for COG: %w", err)
-		}
 		w.tmpCOG = filepath.Join(w.dir, "product.cog.tif")
-		pred := "PREDICTOR=YES"
-		out, err := in.Translate(w.tmpCOG, []string{"-of", "COG", "-co", "COMPRESS=DEFLATE", "-co", pred,
-			"-co", "BIGTIFF=IF_SAFER", "-co", "BLOCKSIZE=512"}, quiet)
-		in.Close()
+		err := translate(ctx, w.tmpCOG, w.tmp, []string{"-of", "COG", "-co", "COMPRESS=DEFLATE", "-co", "PREDICTOR=YES",
+			"-co", "BIGTIFF=IF_SAFER", "-co", "BLOCKSIZE=512"})
 		if err != nil {
 			w.cleanup()
+			if ctx.Err() != nil {
+				return ctx.Err()
+			}
 			return fmt.Errorf("raster: writing COG %s: %w", w.final, err)
-		}
-		if err := out.Close(quiet); err != nil {
-			w.cleanup()
-			return fmt.Errorf("raster: finishing COG %s: %w", w.final, err)
 		}
 		os.Remove(w.tmp)
 		os.Chmod(w.tmpCOG, 0o644)
