@@ -47,6 +47,10 @@ Example (from the repository's root, on its test scene and its truth):
 			if c.IsSet("data-range") && assess.CheckDataRange(c.Float64("data-range")) != nil {
 				return usagef("--data-range %g must be a positive number", c.Float64("data-range"))
 			}
+			ins := []namedPath{{"OBSERVED", c.Args().Get(0)}, {"RESTORED", c.Args().Get(1)}, {"--reference", c.String("reference")}}
+			if err := checkOutputs(stdout, stderr, ins, []namedPath{{"--json", c.String("json")}}); err != nil {
+				return err
+			}
 			rep, err := assessFiles(c.Args().Get(0), c.Args().Get(1), c.String("reference"), c.Float64("data-range"))
 			if err != nil {
 				return err

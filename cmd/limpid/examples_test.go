@@ -11,7 +11,7 @@ import (
 )
 
 // helpExamples are the subcommands whose --help prints examples.
-var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}, {"assess"}}
+var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}, {"assess"}, {"clean"}}
 
 // Every example that a subcommand's --help prints runs as written, in
 // order, on the fixtures: input names (scene.tif, in.tif, truth.tif,

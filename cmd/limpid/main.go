@@ -5,9 +5,8 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"os"
-	"os/signal"
 	"strings"
+	"syscall"
 
 	"github.com/urfave/cli/v2"
 
@@ -25,13 +24,6 @@ const (
 	exitUsage   = 2
 )
 
-func main() {
-	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt)
-	code := run(ctx, os.Args, os.Stdin, os.Stdout, os.Stderr)
-	stop()
-	os.Exit(code)
-}
-
 // usageError marks errors caused by the command line or the input (exit 2).
 type usageError struct{ error }
 
@@ -48,6 +40,8 @@ func exitCode(err error) int {
 	case errors.As(err, &ec) && ec.ExitCode() == 3:
 		// urfave/cli's "No help topic" (an unknown command): a usage error.
 		return exitUsage
+	case errors.Is(err, syscall.EPIPE):
+		return exitBrokenPipe
 	case errors.As(err, &u), errors.Is(err, raster.ErrInput), errors.Is(err, step.ErrConfig),
 		errors.Is(err, psf.ErrSpec), errors.Is(err, psf.ErrKernel), errors.Is(err, arrowio.ErrStream):
 		return exitUsage
@@ -66,7 +60,11 @@ error map assume the PSF and the noise model are right; they do not certify it.`
 // "-", and logs and errors to stderr; help and the version go to stdout when
 // asked for (cli.go has the command-line contract). It returns the exit code.
 func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	stdin, stopped := watchRun(ctx, stdin) // signals.go: interruptions
 	err := newApp(stdin, stdout, stderr, args).RunContext(ctx, helpArgs(args))
+	if code, ok := stopped(stderr); ok {
+		return code
+	}
 	if errors.Is(err, errHelpShown) {
 		return exitOK
 	}
@@ -97,6 +95,7 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer, argv []string) *cli.App {
 			psfCommand(stdin, stdout, stderr),
 			simulateCommand(stdin, stdout, stderr),
 			assessCommand(stdout, stderr),
+			cleanCommand(stderr),
 		},
 	}
 	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.

@@ -43,6 +43,9 @@ or override them.`,
 
 func noiseAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	in := c.Args().Get(0)
+	if err := checkOutputs(stdout, c.App.ErrWriter, []namedPath{{"INPUT", in}}, []namedPath{{"--json", c.String("json")}}); err != nil {
+		return err
+	}
 	path, done, err := spoolInput(in, stdin)
 	if err != nil {
 		return err

@@ -62,6 +62,10 @@ func psfBuild(spec, out string, stderr io.Writer) error {
 	if err := checkPaths("-", out); err != nil {
 		return err
 	}
+	csvOut := strings.TrimSuffix(out, filepath.Ext(out)) + "_mtf.csv"
+	if err := checkOutputs(nil, stderr, psfInputs(spec), []namedPath{{"OUTPUT", out}, {"OUTPUT's curves", csvOut}}); err != nil {
+		return err
+	}
 	k, err := psf.Parse(spec, psfEnv())
 	if err != nil {
 		return usageError{fmt.Errorf("SPEC %w", err)}
@@ -286,6 +290,10 @@ type measureArgs struct {
 func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
 	args, err := parseMeasureArgs(c)
 	if err != nil {
+		return err
+	}
+	outs := []namedPath{{"--json", args.json}, {"--kernel", args.kernel}, {"--png", args.pngOut}}
+	if err := checkOutputs(stdout, stderr, []namedPath{{"INPUT", args.in}}, outs); err != nil {
 		return err
 	}
 	path, done, err := spoolInput(args.in, stdin)

@@ -17,6 +17,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/raster/gdal"
+	"limpid/raster/scratch"
 	"limpid/step"
 	"limpid/step/noise"
 	"limpid/step/product"
@@ -318,6 +319,14 @@ func checkPaths(in, out string) error {
 }
 
 func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
+	// Every output path before any work (--psf auto measures INPUT in
+	// parseJob).
+	ins := append([]namedPath{{"INPUT", c.Args().Get(0)}}, psfInputs(c.String("psf"))...)
+	outs := []namedPath{{"OUTPUT", c.Args().Get(1)}, {"--report", c.String("report")}, {"--uncertainty", c.String("uncertainty")},
+		{"--quicklook", c.String("quicklook")}, {"--report-html", c.String("report-html")}}
+	if err := checkOutputs(stdout, stderr, ins, outs); err != nil {
+		return err
+	}
 	j, err := parseJob(c)
 	if err != nil {
 		return err
@@ -418,7 +427,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 		}
 		return nil, err
 	}
-	if err := commitRestore(j, meta, om, rep, dst, unc); err != nil {
+	if err := commitRestore(ctx, j, meta, om, rep, dst, unc); err != nil {
 		return nil, err
 	}
 	// The product is finished; quicklook and HTML page are made from it.
@@ -431,7 +440,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 // commitRestore labels the outputs, writes the JSON report and commits the
 // standard-error raster and then OUTPUT; on failure nothing is left at
 // their paths.
-func commitRestore(j *restoreJob, meta, om raster.Meta, rep *step.Report, dst, unc *gdal.Writer) error {
+func commitRestore(ctx context.Context, j *restoreJob, meta, om raster.Meta, rep *step.Report, dst, unc *gdal.Writer) error {
 	abort := func() {
 		dst.Abort()
 		if unc != nil {
@@ -458,24 +467,32 @@ func commitRestore(j *restoreJob, meta, om raster.Meta, rep *step.Report, dst, u
 		}
 	}
 	if unc != nil {
-		if err := unc.Commit(); err != nil {
+		if err := unc.CommitContext(ctx); err != nil {
 			dst.Abort()
-			if j.reportPath != "" {
-				os.Remove(j.reportPath)
-			}
+			removeOutput(j.reportPath)
 			return err
 		}
 	}
-	if err := dst.Commit(); err != nil {
-		if j.reportPath != "" {
-			os.Remove(j.reportPath)
-		}
+	if err := dst.CommitContext(ctx); err != nil {
+		removeOutput(j.reportPath)
 		if unc != nil {
-			os.Remove(j.uncPath)
+			removeOutput(j.uncPath)
 		}
 		return err
 	}
 	return nil
+}
+
+// removeOutput takes back a file this run committed at path (nothing for
+// "", stdout or a stream: a FIFO or device is never removed).
+func removeOutput(path string) {
+	if path == "" || path == "-" {
+		return
+	}
+	if t, err := scratch.Inspect(path); err == nil && t.Kind == scratch.File {
+		os.Remove(t.Path)
+		scratch.Retract(t.Path)
+	}
 }
 
 func tileCount(meta raster.Meta, cfg step.Config) int {

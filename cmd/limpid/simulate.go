@@ -120,6 +120,10 @@ func simulateAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) e
 	if err := checkPaths(j.in, j.out); err != nil {
 		return err
 	}
+	ins := append([]namedPath{{"INPUT", j.in}}, psfInputs(j.psfSpec)...)
+	if err := checkOutputs(stdout, stderr, ins, []namedPath{{"OUTPUT", j.out}}); err != nil {
+		return err
+	}
 	inPath, done, err := spoolInput(j.in, stdin)
 	if err != nil {
 		return err

@@ -10,12 +10,14 @@ import (
 	"path/filepath"
 	"strconv"
 	"strings"
+	"syscall"
 
 	"github.com/urfave/cli/v2"
 
 	"limpid/arrowio"
 	"limpid/raster"
 	"limpid/raster/gdal"
+	"limpid/raster/scratch"
 	"limpid/step"
 	"limpid/step/product"
 	"limpid/step/stream"
@@ -134,57 +136,110 @@ func streamErr(in string, err error) error {
 	return err
 }
 
-// streamOutput is an arrow OUTPUT: stdout (buffered) or a temporary file in
-// the target directory renamed on commit.
+// streamOutput is an arrow OUTPUT: stdout (buffered), a FIFO or character
+// device written directly, or a temporary file in the target directory
+// renamed on commit.
 type streamOutput struct {
 	w     io.Writer
 	bw    *bufio.Writer
-	f     *os.File
-	final string
+	f     *os.File // the temporary of a file OUTPUT
+	final string   // where the temporary goes
+	sw    *scratch.StreamWriter
+	std   *notedWriter
+	name  string
+}
+
+// notedWriter records the first byte written to stdout (scratch.Started).
+type notedWriter struct {
+	w       io.Writer
+	name    string
+	started bool
+}
+
+func (n *notedWriter) Write(p []byte) (int, error) {
+	if !n.started {
+		n.started = true
+		scratch.Started(n.name)
+	}
+	return n.w.Write(p)
 }
 
 func createStreamOutput(out string, stdout io.Writer) (*streamOutput, error) {
 	if out == "-" {
-		bw := bufio.NewWriterSize(stdout, 1<<20)
-		return &streamOutput{w: bw, bw: bw}, nil
+		nw := &notedWriter{w: stdout, name: "stdout"}
+		bw := bufio.NewWriterSize(nw, 1<<20)
+		return &streamOutput{w: bw, bw: bw, std: nw, name: "stdout"}, nil
 	}
-	f, err := os.CreateTemp(filepath.Dir(out), ".limpid-*.arrows")
+	t, err := scratch.Inspect(out)
 	if err != nil {
-		return nil, usagef("OUTPUT %s: cannot create a file in %s: %v", out, filepath.Dir(out), errors.Unwrap(err))
+		return nil, usagef("OUTPUT %s: %v", out, err)
 	}
-	os.Chmod(f.Name(), 0o644)
+	if t.Kind == scratch.Stream {
+		sw := &scratch.StreamWriter{Path: out, Name: out}
+		bw := bufio.NewWriterSize(sw, 1<<20)
+		return &streamOutput{w: bw, bw: bw, sw: sw, name: out}, nil
+	}
+	dir := filepath.Dir(t.Path)
+	f, err := scratch.CreateTemp(dir, ".arrows")
+	if err != nil {
+		return nil, usagef("OUTPUT %s: cannot create a file in %s: %v", out, dir, reason(err))
+	}
+	f.Chmod(0o644 &^ umask)
 	bw := bufio.NewWriterSize(f, 1<<20)
-	return &streamOutput{w: bw, bw: bw, f: f, final: out}, nil
+	return &streamOutput{w: bw, bw: bw, f: f, final: t.Path, name: out}, nil
 }
 
 func (o *streamOutput) commit() error {
 	if err := o.bw.Flush(); err != nil {
 		o.abort()
-		return fmt.Errorf("writing the stream: %w", err)
+		return gdal.StreamError(o.name, err)
 	}
-	if o.f == nil {
+	switch {
+	case o.sw != nil:
+		if err := o.sw.Close(); err != nil {
+			o.sw.Release()
+			return gdal.StreamError(o.name, err)
+		}
+		return nil
+	case o.f == nil:
+		scratch.Written(o.name)
 		return nil
 	}
 	if err := o.f.Close(); err != nil {
-		os.Remove(o.f.Name())
+		scratch.Remove(o.f.Name())
 		return fmt.Errorf("writing the stream: %w", err)
 	}
-	if err := os.Rename(o.f.Name(), o.final); err != nil {
-		os.Remove(o.f.Name())
-		return fmt.Errorf("moving the stream to %s: %w", o.final, err)
+	if err := scratch.Commit(o.f.Name(), o.final, o.f.Name()); err != nil {
+		scratch.Remove(o.f.Name())
+		return fmt.Errorf("moving the stream to %s: %w", o.name, err)
 	}
 	return nil
 }
 
-// abort: on stdout, the complete batches already buffered are flushed (no
-// end-of-stream marker follows); a file output is removed.
-func (o *streamOutput) abort() {
-	if o.f == nil {
-		o.bw.Flush()
-		return
+// fail aborts the output after err and returns err, said in words when the
+// stream's reader went away (EPIPE).
+func (o *streamOutput) fail(err error) error {
+	o.abort()
+	if errors.Is(err, syscall.EPIPE) {
+		return gdal.StreamError(o.name, err)
 	}
-	o.f.Close()
-	os.Remove(o.f.Name())
+	return err
+}
+
+// abort: on stdout or an open FIFO or device, the complete batches already
+// buffered are flushed (no end-of-stream marker follows, so the reader
+// sees a truncated stream); a file output is removed.
+func (o *streamOutput) abort() {
+	switch {
+	case o.sw != nil:
+		o.bw.Flush()
+		o.sw.Release()
+	case o.f == nil:
+		o.bw.Flush()
+	default:
+		o.f.Close()
+		scratch.Remove(o.f.Name())
+	}
 }
 
 func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
@@ -193,6 +248,9 @@ func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 		return err
 	}
 	if err := checkPaths(in, out); err != nil {
+		return err
+	}
+	if err := checkOutputs(stdout, c.App.ErrWriter, []namedPath{{"INPUT", in}}, []namedPath{{"OUTPUT", out}}); err != nil {
 		return err
 	}
 	if c.Int("overlap") < 0 {
@@ -226,27 +284,28 @@ func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	}
 	w, err := arrowio.NewWriter(o.w, hdr, arrowio.WithCompression(c.String("compress")))
 	if err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	var t arrowio.Tile
 	for {
-		ok, err := tiler.Next(&t)
+		err := c.Context.Err()
+		ok := false
+		if err == nil {
+			ok, err = tiler.Next(&t)
+		}
 		if err == nil && ok {
 			err = w.Write(&t)
 		}
 		if err != nil {
 			w.Abandon()
-			o.abort()
-			return err
+			return o.fail(err)
 		}
 		if !ok {
 			break
 		}
 	}
 	if err := w.Close(); err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	return o.commit()
 }
@@ -288,6 +347,9 @@ func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 		return usagef("--output-type %q: use same or float32", outType)
 	}
 	if err := checkPaths(in, out); err != nil {
+		return err
+	}
+	if err := checkOutputs(stdout, c.App.ErrWriter, []namedPath{{"INPUT", in}}, []namedPath{{"OUTPUT", out}}); err != nil {
 		return err
 	}
 	r, closeIn, err := openStream(in, stdin)
@@ -336,7 +398,7 @@ func unpackAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 			return err
 		}
 	}
-	return dst.Commit()
+	return dst.CommitContext(c.Context)
 }
 
 // runStreamRestore is restore with a tile stream on either side: the flag
@@ -483,17 +545,14 @@ func restoreToStream(ctx context.Context, c *cli.Context, j *restoreJob, in *str
 	}
 	w, err := arrowio.NewWriter(o.w, outHdr, arrowio.WithCompression(c.String("compress")))
 	if err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	if err := stream.RestoreTiles(ctx, in.hdr, bgs, in.src, w, in.cfg); err != nil {
 		w.Abandon()
-		o.abort()
-		return streamErr(j.in, err)
+		return o.fail(streamErr(j.in, err))
 	}
 	if err := w.Close(); err != nil {
-		o.abort()
-		return err
+		return o.fail(err)
 	}
 	return o.commit()
 }
@@ -526,5 +585,5 @@ func restoreToRaster(ctx context.Context, j *restoreJob, in *streamInput, bgs []
 		dst.Abort()
 		return err
 	}
-	return dst.Commit()
+	return dst.CommitContext(ctx)
 }

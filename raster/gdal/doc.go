@@ -1,7 +1,8 @@
 // Package gdal is limpid's GDAL adapter, the only cgo in the module: it opens
 // any raster GDAL can read as a raster.Reader (Open), writes the products as
 // a raster.Writer (Create: a tiled, DEFLATE-compressed GeoTIFF, finished as a
-// Cloud Optimized GeoTIFF on request), reads raster kernels (LoadKernel) and
+// Cloud Optimized GeoTIFF on request, through GDAL's C API so that the copy
+// can be canceled: cog.go), reads raster kernels (LoadKernel) and
 // resolves EPSG codes (EPSGToWKT).
 //
 // Verified with GDAL 3.6.2 through github.com/airbusgeo/godal v0.0.18. The
@@ -10,10 +11,11 @@
 // 21-026), made by GDAL's COG driver from a finished GeoTIFF (GDAL 3.6's
 // COG driver only copies).
 //
-// Outputs are written under a temporary name (in the target directory, or
-// in the system's temporary directory for stdout) and moved into place or
-// copied to stdout on Commit, so a failed run leaves nothing at the output
-// path. GDAL datasets are not shared between goroutines: callers funnel all
+// Outputs are written into a private temporary directory (limpid/raster/
+// scratch: in the target directory, or in the system's temporary directory
+// for stdout, a FIFO or a character device) and moved into place or copied
+// to the stream on Commit, so a failed run leaves nothing at the output
+// path and a FIFO or device is never replaced by a file. GDAL datasets are not shared between goroutines: callers funnel all
 // raster I/O through one goroutine. Error messages keep the "raster:" prefix
 // they had before the adapter moved into this package, so the command's
 // error lines do not change.

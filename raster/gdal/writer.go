@@ -1,6 +1,7 @@
 package gdal
 
 import (
+	"context"
 	"errors"
 	"fmt"
 	"io"
@@ -8,10 +9,12 @@ import (
 	"os"
 	"path/filepath"
 	"sort"
+	"syscall"
 
 	"github.com/airbusgeo/godal"
 
 	"limpid/raster"
+	"limpid/raster/scratch"
 )
 
 // Format is an output container.
@@ -38,13 +41,28 @@ type WriteOptions struct {
 	Stdout io.Writer
 }
 
-// Writer writes a GeoTIFF or COG under a temporary name and moves it to
-// its final path (or copies it to stdout) on Commit.
+// Writer writes a GeoTIFF or COG into a private temporary directory and
+// moves it to its final path (or copies it to stdout, a FIFO or a character
+// device) on Commit.
+//
+// A path that names a FIFO or a character device (/dev/null, /dev/stdout)
+// is never replaced: GeoTIFF needs a seekable file, so the product is
+// finished in the system's temporary directory as for stdout and then
+// copied into the stream; Commit succeeds only when every byte was
+// accepted. An existing regular file reached through symbolic links is
+// replaced at the links' end, in its own directory; the links stay.
 type Writer struct {
-	ds      *godal.Dataset
-	final   string
+	ds    *godal.Dataset
+	final string // the path as given (messages)
+	dest  string // where the file is renamed to ("" for a stream)
+	// dir is the private temporary directory holding tmp, tmpCOG and
+	// whatever GDAL's COG driver adds next to tmpCOG.
+	dir     string
 	tmp     string
 	tmpCOG  string
+	out     io.Writer // stdout or a stream target; nil for a file
+	outName string
+	sw      *scratch.StreamWriter
 	opts    WriteOptions
 	meta    raster.Meta
 	buf     []float32
@@ -70,16 +88,28 @@ func Create(path string, meta raster.Meta, opts WriteOptions) (*Writer, error) {
 	w := &Writer{final: path, opts: opts, meta: meta}
 	w.lo, w.hi, w.integer = raster.TypeRange(opts.DataType)
 	dir := os.TempDir()
-	if opts.Stdout == nil {
-		dir = filepath.Dir(path)
+	switch {
+	case opts.Stdout != nil:
+		w.out, w.outName = opts.Stdout, "stdout"
+	default:
+		t, err := scratch.Inspect(path)
+		if err != nil {
+			return nil, fmt.Errorf("%w: output %s: %v", raster.ErrInput, path, err)
+		}
+		if t.Kind == scratch.Stream {
+			w.sw = &scratch.StreamWriter{Path: path, Name: path}
+			w.out, w.outName = w.sw, path
+		} else {
+			w.dest = t.Path
+			dir = filepath.Dir(t.Path)
+		}
 	}
-	f, err := os.CreateTemp(dir, ".limpid-*.tif")
+	d, err := scratch.MkdirTemp(dir)
 	if err != nil {
 		return nil, fmt.Errorf("%w: output %s: cannot create a file in %s: %v", raster.ErrInput, path, dir, errors.Unwrap(err))
 	}
-	w.tmp = f.Name()
-	f.Close()
-	os.Chmod(w.tmp, 0o644) // CreateTemp makes 0600; products are ordinary files
+	w.dir = d
+	w.tmp = filepath.Join(d, "product.tif")
 	pred := "PREDICTOR=2"
 	if !w.integer {
 		pred = "PREDICTOR=3"
@@ -90,9 +120,10 @@ func Create(path string, meta raster.Meta, opts WriteOptions) (*Writer, error) {
 	}
 	ds, err := godal.Create(godal.GTiff, w.tmp, len(meta.Bands), dt, meta.Width, meta.Height, godal.CreationOption(co...), quiet)
 	if err != nil {
-		os.Remove(w.tmp)
+		scratch.Remove(w.dir)
 		return nil, fmt.Errorf("raster: creating %s: %w", path, err)
 	}
+	os.Chmod(w.tmp, 0o644) // products are ordinary files, whatever the umask made of GDAL's 0666
 	w.ds = ds
 	if err := w.writeMeta(); err != nil {
 		w.Abort()
@@ -239,7 +270,17 @@ func (w *Writer) SetBandMetadata(i int, key, value string) error {
 }
 
 // Commit implements raster.Writer.
-func (w *Writer) Commit() error {
+func (w *Writer) Commit() error { return w.CommitContext(context.Background()) }
+
+// CommitContext finishes the output: the GeoTIFF is closed, made a COG on
+// request, then renamed to its path or copied to its stream. It stops with
+// ctx's error between phases, inside GDAL's COG copy (at its next progress
+// step: translate) and between the 1 MiB pieces of a copy to a stream.
+// Closing the GeoTIFF (GDAL flushing its cache) and a write blocked on a
+// full pipe cannot be interrupted: a caller that must stop sooner exits the
+// process and removes the private directory with scratch.RemoveAll.
+// Nothing is left at the path when it fails.
+func (w *Writer) CommitContext(ctx context.Context) error {
 	if w.closed {
 		return errors.New("raster: output already finished")
 	}
@@ -248,58 +289,114 @@ func (w *Writer) Commit() error {
 		w.cleanup()
 		return fmt.Errorf("raster: finishing %s: %w", w.final, err)
 	}
+	if err := ctx.Err(); err != nil {
+		w.cleanup()
+		return err
+	}
 	src := w.tmp
 	if w.opts.Format == COG {
-		in, err := godal.Open(w.tmp, quiet)
+		w.tmpCOG = filepath.Join(w.dir, "product.cog.tif")
+		err := translate(ctx, w.tmpCOG, w.tmp, []string{"-of", "COG", "-co", "COMPRESS=DEFLATE", "-co", "PREDICTOR=YES",
+			"-co", "BIGTIFF=IF_SAFER", "-co", "BLOCKSIZE=512"})
 		if err != nil {
 			w.cleanup()
-			return fmt.Errorf("raster: reopening for COG: %w", err)
-		}
-		w.tmpCOG = w.tmp + ".cog.tif"
-		pred := "PREDICTOR=YES"
-		out, err := in.Translate(w.tmpCOG, []string{"-of", "COG", "-co", "COMPRESS=DEFLATE", "-co", pred,
-			"-co", "BIGTIFF=IF_SAFER", "-co", "BLOCKSIZE=512"}, quiet)
-		in.Close()
-		if err != nil {
-			w.cleanup()
+			if ctx.Err() != nil {
+				return ctx.Err()
+			}
 			return fmt.Errorf("raster: writing COG %s: %w", w.final, err)
 		}
-		if err := out.Close(quiet); err != nil {
-			w.cleanup()
-			return fmt.Errorf("raster: finishing COG %s: %w", w.final, err)
-		}
 		os.Remove(w.tmp)
+		os.Chmod(w.tmpCOG, 0o644)
 		src = w.tmpCOG
-	}
-	if w.opts.Stdout != nil {
-		f, err := os.Open(src)
-		if err != nil {
+		if err := ctx.Err(); err != nil {
 			w.cleanup()
-			return fmt.Errorf("raster: %w", err)
+			return err
 		}
-		_, err = io.Copy(w.opts.Stdout, f)
-		f.Close()
-		w.cleanup()
-		if err != nil {
-			return fmt.Errorf("raster: copying the output to stdout: %w", err)
-		}
-		return nil
 	}
-	if err := os.Rename(src, w.final); err != nil {
+	if w.out != nil {
+		err := w.copyOut(ctx, src)
+		w.cleanup()
+		return err
+	}
+	if err := scratch.Commit(src, w.dest, w.dir); err != nil {
 		w.cleanup()
 		return fmt.Errorf("raster: moving the output to %s: %w", w.final, err)
 	}
 	return nil
 }
 
-func (w *Writer) cleanup() {
-	os.Remove(w.tmp)
-	if w.tmpCOG != "" {
-		os.Remove(w.tmpCOG)
+// copyOut copies the finished file src to the stream output.
+func (w *Writer) copyOut(ctx context.Context, src string) error {
+	f, err := os.Open(src)
+	if err != nil {
+		return fmt.Errorf("raster: %w", err)
+	}
+	defer f.Close()
+	if w.sw == nil {
+		scratch.Started(w.outName)
+	}
+	err = CopyContext(ctx, w.out, f)
+	if err == nil && w.sw != nil {
+		err = w.sw.Close()
+	}
+	if err != nil {
+		if ctx.Err() != nil {
+			return ctx.Err()
+		}
+		return StreamError(w.outName, err)
+	}
+	if w.sw == nil {
+		scratch.Written(w.outName)
+	}
+	return nil
+}
+
+// StreamError names the stream output whose write failed; a reader that
+// went away (EPIPE) is said in words and stays testable with errors.Is.
+func StreamError(name string, err error) error {
+	if errors.Is(err, syscall.EPIPE) {
+		return fmt.Errorf("the reader of %s closed it before the end of the output (%w); what it got is incomplete", name, syscall.EPIPE)
+	}
+	return fmt.Errorf("raster: copying the output to %s: %w", name, err)
+}
+
+// CopyContext copies src to dst in 1 MiB pieces, stopping with ctx's error
+// between pieces.
+func CopyContext(ctx context.Context, dst io.Writer, src io.Reader) error {
+	buf := make([]byte, 1<<20)
+	for {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		n, err := src.Read(buf)
+		if n > 0 {
+			if _, werr := dst.Write(buf[:n]); werr != nil {
+				return werr
+			}
+		}
+		if err == io.EOF {
+			return nil
+		}
+		if err != nil {
+			return err
+		}
 	}
 }
 
-// Abort implements raster.Writer.
+func (w *Writer) release() {
+	if w.sw != nil {
+		w.sw.Release()
+	}
+}
+
+// cleanup removes the temporaries and releases an unfinished stream.
+func (w *Writer) cleanup() {
+	w.release()
+	scratch.Remove(w.dir)
+}
+
+// Abort implements raster.Writer: the temporaries go and a stream output
+// is released (its reader sees the end).
 func (w *Writer) Abort() {
 	if !w.closed {
 		w.closed = true
