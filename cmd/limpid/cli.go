@@ -252,10 +252,18 @@ func missingCommand(path []string, cmds []*cli.Command, args []string) error {
 }
 
 // checkOperands checks the operand count against the command's ArgsUsage
-// (e.g. "INPUT OUTPUT"; a command without ArgsUsage takes none).
+// (e.g. "INPUT OUTPUT"; a command without ArgsUsage takes none; a last
+// "[NAME...]" takes any number).
 func checkOperands(path []string, names, got []string) error {
 	if len(got) == len(names) {
 		return nil
+	}
+	if n := len(names); n > 0 && strings.HasPrefix(names[n-1], "[") && strings.HasSuffix(names[n-1], "...]") {
+		// A trailing [NAME...] takes any number of operands.
+		if len(got) >= n-1 {
+			return nil
+		}
+		names = names[:n-1]
 	}
 	cmd := strings.Join(path, " ")
 	shown := got
