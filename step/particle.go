@@ -11,6 +11,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/draw"
 	"limpid/step/mix"
 	"limpid/step/resample"
 )
@@ -170,97 +171,13 @@ type ParticleEMS struct {
 
 	once       sync.Once
 	s          *conv.Operator
-	mutX, mutY moveTable
+	mutX, mutY draw.Move
 	jump       jumpTable
-	alias      aliasTable
+	alias      draw.Alias
 }
 
 // Name implements Solver.
 func (pe *ParticleEMS) Name() string { return "particle" }
-
-// moveTable samples an integer displacement from a 1-D kernel by inversion
-// of its CDF in 32-bit fixed point.
-type moveTable struct {
-	cum []uint64 // cum[t] = round(2^32 * sum_{u <= t} k[u]); last = 2^32
-	r   int
-}
-
-func newMoveTable(k []float64) moveTable {
-	if len(k) <= 1 {
-		return moveTable{}
-	}
-	m := moveTable{cum: make([]uint64, len(k)), r: (len(k) - 1) / 2}
-	var acc float64
-	for i, v := range k {
-		acc += v
-		m.cum[i] = uint64(math.Round(acc * (1 << 32)))
-	}
-	m.cum[len(k)-1] = 1 << 32
-	return m
-}
-
-// move maps a 32-bit uniform to a displacement in [-r, r].
-func (m *moveTable) move(u uint32) float32 {
-	t := 0
-	for uint64(u) >= m.cum[t] {
-		t++
-	}
-	return float32(t - m.r)
-}
-
-// aliasTable is Walker's alias method (Walker, ACM TOMS 3:253, 1977; Vose's
-// construction, IEEE TSE 17:972, 1991) over the PSF taps.
-type aliasTable struct {
-	prob   []uint32
-	alias  []int32
-	dx, dy []int32
-}
-
-func newAliasTable(k *psf.Kernel) aliasTable {
-	n := len(k.Data)
-	a := aliasTable{prob: make([]uint32, n), alias: make([]int32, n), dx: make([]int32, n), dy: make([]int32, n)}
-	var sum float64
-	for _, v := range k.Data {
-		sum += v
-	}
-	p := make([]float64, n)
-	var small, large []int
-	for i, v := range k.Data {
-		p[i] = v / sum * float64(n)
-		a.dx[i] = int32(i%k.W - k.Rx())
-		a.dy[i] = int32(i/k.W - k.Ry())
-		if p[i] < 1 {
-			small = append(small, i)
-		} else {
-			large = append(large, i)
-		}
-	}
-	for len(small) > 0 && len(large) > 0 {
-		s, l := small[len(small)-1], large[len(large)-1]
-		small = small[:len(small)-1]
-		a.prob[s] = uint32(math.Min(p[s]*(1<<32), math.MaxUint32))
-		a.alias[s] = int32(l)
-		p[l] -= 1 - p[s]
-		if p[l] < 1 {
-			large = large[:len(large)-1]
-			small = append(small, l)
-		}
-	}
-	for _, i := range append(small, large...) {
-		a.prob[i] = math.MaxUint32
-		a.alias[i] = int32(i)
-	}
-	return a
-}
-
-// draw returns a tap index from 64 random bits.
-func (a *aliasTable) draw(u uint64) int {
-	k := int((u >> 32) * uint64(len(a.prob)) >> 32)
-	if uint32(u) < a.prob[k] {
-		return k
-	}
-	return int(a.alias[k])
-}
 
 func (pe *ParticleEMS) init() {
 	sx, sy := pe.SmoothX, pe.SmoothY
@@ -273,10 +190,10 @@ func (pe *ParticleEMS) init() {
 	if len(sx) > 1 || len(sy) > 1 {
 		pe.s = conv.NewSeparable(sx, sy)
 	}
-	pe.mutX, pe.mutY = newMoveTable(pe.SmoothX), newMoveTable(pe.SmoothY)
+	pe.mutX, pe.mutY = draw.NewMove(pe.SmoothX), draw.NewMove(pe.SmoothY)
 	pe.jump = newJumpTable(pe.SmoothX, pe.SmoothY)
 	if pe.Potential == PotentialSampled && pe.PSF != nil {
-		pe.alias = newAliasTable(pe.PSF)
+		pe.alias = draw.NewAlias(pe.PSF)
 	}
 }
 
@@ -417,8 +334,8 @@ func (pe *ParticleEMS) reweightSampled(pw *particleWork, r, s []float32, width, 
 		si := s[cy*width+cx]
 		v := w[i] * alpha
 		if si > sensitivityFloor {
-			t := a.draw(pw.rng.Uint64())
-			yx, yy := cx+int(a.dx[t]), cy+int(a.dy[t])
+			t := a.Draw(pw.rng.Uint64())
+			yx, yy := cx+int(a.DX[t]), cy+int(a.DY[t])
 			if yx < 0 || yx >= width {
 				yx = raster.Mirror(yx, width)
 			}
@@ -536,17 +453,17 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 	mx, my := &pe.mutX, &pe.mutY
 	fw, fh := float32(width), float32(height)
 	switch {
-	case mx.cum != nil && my.cum != nil:
+	case mx.On() && my.On():
 		for i := range x {
 			u := pw.rng.Uint64()
-			if dx := mx.move(uint32(u)); dx != 0 {
+			if dx := mx.Move(uint32(u)); dx != 0 {
 				v := x[i] + dx
 				if v < 0 || v >= fw {
 					v = reflect(v, width)
 				}
 				x[i] = v
 			}
-			if dy := my.move(uint32(u >> 32)); dy != 0 {
+			if dy := my.Move(uint32(u >> 32)); dy != 0 {
 				v := y[i] + dy
 				if v < 0 || v >= fh {
 					v = reflect(v, height)
@@ -554,9 +471,9 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 				y[i] = v
 			}
 		}
-	case mx.cum != nil:
+	case mx.On():
 		for i := range x {
-			if dx := mx.move(uint32(pw.rng.Uint64())); dx != 0 {
+			if dx := mx.Move(uint32(pw.rng.Uint64())); dx != 0 {
 				v := x[i] + dx
 				if v < 0 || v >= fw {
 					v = reflect(v, width)
@@ -564,9 +481,9 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 				x[i] = v
 			}
 		}
-	case my.cum != nil:
+	case my.On():
 		for i := range y {
-			if dy := my.move(uint32(pw.rng.Uint64())); dy != 0 {
+			if dy := my.Move(uint32(pw.rng.Uint64())); dy != 0 {
 				v := y[i] + dy
 				if v < 0 || v >= fh {
 					v = reflect(v, height)

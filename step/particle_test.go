@@ -10,6 +10,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/draw"
 	"limpid/step/internal/steptest"
 	"limpid/step/resample"
 	"limpid/step/scene"
@@ -458,13 +459,13 @@ func TestParticleFluxEndToEnd(t *testing.T) {
 // normal deviate beyond 4 has probability 6e-5).
 func TestMutationVariance(t *testing.T) {
 	for _, eps := range []float64{0.2, 0.5, 0.9, 2} {
-		m := newMoveTable(conv.SmoothingKernel(eps))
+		m := draw.NewMove(conv.SmoothingKernel(eps))
 		var pcg rand.PCG
 		pcg.Seed(11, uint64(eps*100))
 		const n = 200000
 		var s, s2 float64
 		for i := 0; i < n; i++ {
-			d := float64(m.move(uint32(pcg.Uint64())))
+			d := float64(m.Move(uint32(pcg.Uint64())))
 			s += d
 			s2 += d * d
 		}
