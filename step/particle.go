@@ -142,6 +142,7 @@ type ParticleEMS struct {
 	// SmoothX, SmoothY are the 1-D smoothing kernels (odd length, from
 	// SmoothingKernel); nil means no move along that axis.
 	SmoothX, SmoothY []float64
+	Smooth           float64 // the bandwidth they come from (for the record)
 	Iterations       int
 	// PerPixel is K, the number of particles per valid pixel (>= 1).
 	PerPixel   int
