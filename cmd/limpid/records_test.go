@@ -110,7 +110,7 @@ func TestRecordsReproduceTheProduct(t *testing.T) {
 	var smooths []float64
 	for i, b := range m.Bands {
 		a := bandSettings(t, b)
-		if i >= len(params.Bands) || fmt.Sprint(params.Bands[i]) != fmt.Sprint(a) {
+		if i >= len(params.Bands) || mustJSON(params.Bands[i]) != mustJSON(a) {
 			t.Errorf("band %d: LIMPID_BAND_PARAMETERS %+v, LIMPID_PARAMETERS bands %+v", i+1, a, params.Bands)
 		}
 		if a.SmoothFrom != settings.Auto || a.IterationsFrom != settings.Auto || a.Stop != settings.StopFixed {
