@@ -173,7 +173,7 @@ type ParticleEMS struct {
 	once       sync.Once
 	s          *conv.Operator
 	mutX, mutY draw.Move
-	jump       jumpTable
+	jump       draw.Jump
 	alias      draw.Alias
 }
 
@@ -192,7 +192,7 @@ func (pe *ParticleEMS) init() {
 		pe.s = conv.NewSeparable(sx, sy)
 	}
 	pe.mutX, pe.mutY = draw.NewMove(pe.SmoothX), draw.NewMove(pe.SmoothY)
-	pe.jump = newJumpTable(pe.SmoothX, pe.SmoothY)
+	pe.jump = draw.NewJump(pe.SmoothX, pe.SmoothY)
 	if pe.Potential == PotentialSampled && pe.PSF != nil {
 		pe.alias = draw.NewAlias(pe.PSF)
 	}
@@ -369,79 +369,26 @@ func reflect(v float32, n int) float32 {
 	}
 }
 
-// jumpTable samples only the particles that move when most do not (small
-// eps: each axis stays with probability 1 - eps^2): the gap to the next
-// moving particle is geometric with parameter p = 1 - kx(0) ky(0), and the
-// moving particle's (dx, dy) is drawn from the product kernel conditioned on
-// (dx, dy) != (0, 0). The law of every particle's move is unchanged.
-type jumpTable struct {
-	on     bool
-	logq   float64  // log(1 - p)
-	cum    []uint64 // CDF over the non-zero moves, 32-bit fixed point
-	dx, dy []float32
-}
-
-// jumpMaxP: above this move probability the per-particle draw is cheaper.
-const jumpMaxP = 0.25
-
-func newJumpTable(kx, ky []float64) jumpTable {
-	if kx == nil {
-		kx = []float64{1}
-	}
-	if ky == nil {
-		ky = []float64{1}
-	}
-	rx, ry := (len(kx)-1)/2, (len(ky)-1)/2
-	p := 1 - kx[rx]*ky[ry]
-	if !(p > 0) || p > jumpMaxP {
-		return jumpTable{}
-	}
-	j := jumpTable{on: true, logq: math.Log1p(-p)}
-	var acc float64
-	for ty, vy := range ky {
-		for tx, vx := range kx {
-			if tx == rx && ty == ry {
-				continue
-			}
-			acc += vx * vy / p
-			j.cum = append(j.cum, uint64(math.Round(acc*(1<<32))))
-			j.dx = append(j.dx, float32(tx-rx))
-			j.dy = append(j.dy, float32(ty-ry))
-		}
-	}
-	j.cum[len(j.cum)-1] = 1 << 32
-	return j
-}
-
-// gap draws the number of particles that stay before the next one moves.
-func (j *jumpTable) gap(r *rand.PCG) int {
-	g := math.Log(1-resample.Uniform(r)) / j.logq
-	if g > 1<<40 {
-		return 1 << 40
-	}
-	return int(g)
-}
-
 // mutate moves every particle by integer displacements drawn from the
 // smoothing kernel per axis, reflected at the tile border.
 func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 	x, y := pw.x, pw.y[:len(pw.x)]
-	if j := &pe.jump; j.on {
+	if j := &pe.jump; j.On {
 		fw, fh := float32(width), float32(height)
-		for i := j.gap(&pw.rng); i < len(x); i += 1 + j.gap(&pw.rng) {
+		for i := j.Gap(&pw.rng); i < len(x); i += 1 + j.Gap(&pw.rng) {
 			u := uint64(uint32(pw.rng.Uint64()))
 			t := 0
-			for u >= j.cum[t] {
+			for u >= j.Cum[t] {
 				t++
 			}
-			if dx := j.dx[t]; dx != 0 {
+			if dx := j.DX[t]; dx != 0 {
 				v := x[i] + dx
 				if v < 0 || v >= fw {
 					v = reflect(v, width)
 				}
 				x[i] = v
 			}
-			if dy := j.dy[t]; dy != 0 {
+			if dy := j.DY[t]; dy != 0 {
 				v := y[i] + dy
 				if v < 0 || v >= fh {
 					v = reflect(v, height)

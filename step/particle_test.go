@@ -607,7 +607,7 @@ func TestParticleBlendedSE(t *testing.T) {
 
 // Source: as TestMutationVariance, for the whole cloud's move (the
 // jump-sampling path used at small eps and the per-particle path above
-// jumpMaxP): per axis, mean displacement 0 and variance eps^2, no
+// draw.JumpMaxP): per axis, mean displacement 0 and variance eps^2, no
 // covariance between the axes (the product kernel), within 4 standard
 // errors (sd of the sample variance <= sqrt(E d^4 / n); of the mean and
 // covariance <= sqrt(E d^2 / n)).

@@ -2,8 +2,10 @@ package draw
 
 import (
 	"math"
+	"math/rand/v2"
 
 	"limpid/psf"
+	"limpid/step/resample"
 )
 
 // Move samples an integer displacement from a 1-D kernel by inversion
@@ -94,4 +96,60 @@ func (a *Alias) Draw(u uint64) int {
 		return k
 	}
 	return int(a.alias[k])
+}
+
+// Jump samples only the particles that move when most do not (small
+// eps: each axis stays with probability 1 - eps^2): the gap to the next
+// moving particle is geometric with parameter p = 1 - kx(0) ky(0), and the
+// moving particle's (dx, dy) is drawn from the product kernel conditioned on
+// (dx, dy) != (0, 0). The law of every particle's move is unchanged.
+type Jump struct {
+	On     bool     // the table is in use (p <= JumpMaxP)
+	logq   float64  // log(1 - p)
+	Cum    []uint64 // CDF over the non-zero moves, 32-bit fixed point
+	DX, DY []float32
+}
+
+// JumpMaxP: above this move probability the per-particle draw is cheaper.
+const JumpMaxP = 0.25
+
+// NewJump is the table of the product of the 1-D kernels kx and ky (nil:
+// no move on that axis); On is false when a move is more likely than
+// JumpMaxP.
+func NewJump(kx, ky []float64) Jump {
+	if kx == nil {
+		kx = []float64{1}
+	}
+	if ky == nil {
+		ky = []float64{1}
+	}
+	rx, ry := (len(kx)-1)/2, (len(ky)-1)/2
+	p := 1 - kx[rx]*ky[ry]
+	if !(p > 0) || p > JumpMaxP {
+		return Jump{}
+	}
+	j := Jump{On: true, logq: math.Log1p(-p)}
+	var acc float64
+	for ty, vy := range ky {
+		for tx, vx := range kx {
+			if tx == rx && ty == ry {
+				continue
+			}
+			acc += vx * vy / p
+			j.Cum = append(j.Cum, uint64(math.Round(acc*(1<<32))))
+			j.DX = append(j.DX, float32(tx-rx))
+			j.DY = append(j.DY, float32(ty-ry))
+		}
+	}
+	j.Cum[len(j.Cum)-1] = 1 << 32
+	return j
+}
+
+// Gap draws the number of particles that stay before the next one moves.
+func (j *Jump) Gap(r *rand.PCG) int {
+	g := math.Log(1-resample.Uniform(r)) / j.logq
+	if g > 1<<40 {
+		return 1 << 40
+	}
+	return int(g)
 }
