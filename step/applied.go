@@ -43,16 +43,21 @@ func applied(s Solver, b int, smoothAuto, stopAuto bool, nm *noise.Model) *setti
 	case *keptTile:
 		a = settings.Band{Smooth: s.smooth, Iterations: s.res.Iterations, Stop: settings.StopFixed}
 	}
-	from := func(auto bool) string {
-		switch {
-		case !auto:
-			return settings.Given
-		case nm == nil || nm.A+nm.B <= 0:
-			return settings.Fallback
+	// A band whose noise model is unusable got the fixed fallback solver
+	// (regulariser.fixed) whatever stop was asked, and the given bandwidth.
+	fallback := nm != nil && nm.A+nm.B <= 0
+	a.SmoothFrom, a.IterationsFrom = settings.Given, settings.Given
+	if smoothAuto {
+		a.SmoothFrom = settings.Auto
+		if fallback {
+			a.SmoothFrom = settings.Fallback
 		}
-		return settings.Auto
 	}
-	a.SmoothFrom, a.IterationsFrom = from(smoothAuto), from(stopAuto)
+	if fallback {
+		a.IterationsFrom = settings.Fallback
+	} else if stopAuto {
+		a.IterationsFrom = settings.Auto
+	}
 	return &a
 }
 

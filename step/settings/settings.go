@@ -21,9 +21,12 @@ const (
 
 // How a value was set.
 const (
-	Given    = "given"    // as the job asked
-	Auto     = "auto"     // chosen by the risk estimate
-	Fallback = "fallback" // the choice was asked but the band has no noise model: the given value
+	Given = "given" // as the job asked
+	Auto  = "auto"  // chosen by the risk estimate
+	// Fallback: the choice or a noise-based stop was asked but the band
+	// has no noise model: the given bandwidth, the change stop at the
+	// default tolerance, at most the default count.
+	Fallback = "fallback"
 )
 
 // Band is what one band's final pass ran with.
