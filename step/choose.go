@@ -22,6 +22,7 @@ const (
 	StopChange      Stop = "change"      // relative L1 change below Tolerance, or the cap
 	StopAuto        Stop = "auto"        // risk minimum (patience RiskPatience)
 	StopDiscrepancy Stop = "discrepancy" // Morozov with the estimated noise
+	StopFixed       Stop = "fixed"       // recorded only: the particle method runs exactly Iterations
 )
 
 // Choose is the scope of the automatic choice; the zero value means
@@ -586,7 +587,7 @@ func lowMedian(v []float64) float64 {
 // newGrid is a GridEMS with PSF operator H, smoothing bandwidth eps,
 // iteration cap iters and change tolerance tol.
 func newGrid(H *conv.Operator, eps float64, iters int, tol float64) *GridEMS {
-	g := &GridEMS{H: H, Iterations: iters, Tolerance: tol}
+	g := &GridEMS{H: H, Smooth: eps, Iterations: iters, Tolerance: tol}
 	if sk := conv.SmoothingKernel(eps); sk != nil {
 		g.S = conv.NewSeparable(sk, sk)
 	}
@@ -822,7 +823,7 @@ func (rg *regulariser) chosen(c *chooser) Solver {
 		ch := c.summarise(b)
 		rg.bs.byBand[b] = rg.solverFor(ch.Smooth, ch.Iterations)
 		if kt := c.kept[b]; kt != nil && cfg.Choose != ChoosePerTile {
-			kt.res = Result{Iterations: ch.Iterations}
+			kt.res, kt.smooth = Result{Iterations: ch.Iterations}, ch.Smooth
 			kt.x0, kt.y0 = -rg.plan.InSpan(rg.plan.Cols, 0).Start, -rg.plan.InSpan(rg.plan.Rows, 0).Start
 			rg.bs.byBand[b] = kt
 		}
@@ -869,6 +870,7 @@ type keptTile struct {
 	w, h   int
 	x0, y0 int
 	res    Result
+	smooth float64
 }
 
 func (kt *keptTile) Name() string { return "grid" }

@@ -218,6 +218,7 @@ func TestAutoFallbacks(t *testing.T) {
 			if c.check != nil {
 				c.check(t, ch, dst.Bands[0])
 			}
+			checkApplied(t, cfg, b) // applied_test.go
 		})
 	}
 }

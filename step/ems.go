@@ -82,8 +82,10 @@ func (ws *Workspace) reset(n int) {
 // The start is a flat image carrying the tile's flux above background.
 type GridEMS struct {
 	H *conv.Operator
-	// S is the smoothing operator; nil means identity (Richardson-Lucy).
-	S *conv.Operator
+	// S is the smoothing operator; nil means identity (Richardson-Lucy);
+	// Smooth is the bandwidth it was built from (for the record).
+	S      *conv.Operator
+	Smooth float64
 	// Iterations is the maximum number of iterations (>= 1).
 	Iterations int
 	// Tolerance stops early when the relative L1 change falls below it

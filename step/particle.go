@@ -11,6 +11,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/draw"
 	"limpid/step/mix"
 	"limpid/step/resample"
 )
@@ -141,6 +142,7 @@ type ParticleEMS struct {
 	// SmoothX, SmoothY are the 1-D smoothing kernels (odd length, from
 	// SmoothingKernel); nil means no move along that axis.
 	SmoothX, SmoothY []float64
+	Smooth           float64 // the bandwidth they come from (for the record)
 	Iterations       int
 	// PerPixel is K, the number of particles per valid pixel (>= 1).
 	PerPixel   int
@@ -170,97 +172,13 @@ type ParticleEMS struct {
 
 	once       sync.Once
 	s          *conv.Operator
-	mutX, mutY moveTable
-	jump       jumpTable
-	alias      aliasTable
+	mutX, mutY draw.Move
+	jump       draw.Jump
+	alias      draw.Alias
 }
 
 // Name implements Solver.
 func (pe *ParticleEMS) Name() string { return "particle" }
-
-// moveTable samples an integer displacement from a 1-D kernel by inversion
-// of its CDF in 32-bit fixed point.
-type moveTable struct {
-	cum []uint64 // cum[t] = round(2^32 * sum_{u <= t} k[u]); last = 2^32
-	r   int
-}
-
-func newMoveTable(k []float64) moveTable {
-	if len(k) <= 1 {
-		return moveTable{}
-	}
-	m := moveTable{cum: make([]uint64, len(k)), r: (len(k) - 1) / 2}
-	var acc float64
-	for i, v := range k {
-		acc += v
-		m.cum[i] = uint64(math.Round(acc * (1 << 32)))
-	}
-	m.cum[len(k)-1] = 1 << 32
-	return m
-}
-
-// move maps a 32-bit uniform to a displacement in [-r, r].
-func (m *moveTable) move(u uint32) float32 {
-	t := 0
-	for uint64(u) >= m.cum[t] {
-		t++
-	}
-	return float32(t - m.r)
-}
-
-// aliasTable is Walker's alias method (Walker, ACM TOMS 3:253, 1977; Vose's
-// construction, IEEE TSE 17:972, 1991) over the PSF taps.
-type aliasTable struct {
-	prob   []uint32
-	alias  []int32
-	dx, dy []int32
-}
-
-func newAliasTable(k *psf.Kernel) aliasTable {
-	n := len(k.Data)
-	a := aliasTable{prob: make([]uint32, n), alias: make([]int32, n), dx: make([]int32, n), dy: make([]int32, n)}
-	var sum float64
-	for _, v := range k.Data {
-		sum += v
-	}
-	p := make([]float64, n)
-	var small, large []int
-	for i, v := range k.Data {
-		p[i] = v / sum * float64(n)
-		a.dx[i] = int32(i%k.W - k.Rx())
-		a.dy[i] = int32(i/k.W - k.Ry())
-		if p[i] < 1 {
-			small = append(small, i)
-		} else {
-			large = append(large, i)
-		}
-	}
-	for len(small) > 0 && len(large) > 0 {
-		s, l := small[len(small)-1], large[len(large)-1]
-		small = small[:len(small)-1]
-		a.prob[s] = uint32(math.Min(p[s]*(1<<32), math.MaxUint32))
-		a.alias[s] = int32(l)
-		p[l] -= 1 - p[s]
-		if p[l] < 1 {
-			large = large[:len(large)-1]
-			small = append(small, l)
-		}
-	}
-	for _, i := range append(small, large...) {
-		a.prob[i] = math.MaxUint32
-		a.alias[i] = int32(i)
-	}
-	return a
-}
-
-// draw returns a tap index from 64 random bits.
-func (a *aliasTable) draw(u uint64) int {
-	k := int((u >> 32) * uint64(len(a.prob)) >> 32)
-	if uint32(u) < a.prob[k] {
-		return k
-	}
-	return int(a.alias[k])
-}
 
 func (pe *ParticleEMS) init() {
 	sx, sy := pe.SmoothX, pe.SmoothY
@@ -273,10 +191,10 @@ func (pe *ParticleEMS) init() {
 	if len(sx) > 1 || len(sy) > 1 {
 		pe.s = conv.NewSeparable(sx, sy)
 	}
-	pe.mutX, pe.mutY = newMoveTable(pe.SmoothX), newMoveTable(pe.SmoothY)
-	pe.jump = newJumpTable(pe.SmoothX, pe.SmoothY)
+	pe.mutX, pe.mutY = draw.NewMove(pe.SmoothX), draw.NewMove(pe.SmoothY)
+	pe.jump = draw.NewJump(pe.SmoothX, pe.SmoothY)
 	if pe.Potential == PotentialSampled && pe.PSF != nil {
-		pe.alias = newAliasTable(pe.PSF)
+		pe.alias = draw.NewAlias(pe.PSF)
 	}
 }
 
@@ -417,8 +335,8 @@ func (pe *ParticleEMS) reweightSampled(pw *particleWork, r, s []float32, width, 
 		si := s[cy*width+cx]
 		v := w[i] * alpha
 		if si > sensitivityFloor {
-			t := a.draw(pw.rng.Uint64())
-			yx, yy := cx+int(a.dx[t]), cy+int(a.dy[t])
+			t := a.Draw(pw.rng.Uint64())
+			yx, yy := cx+int(a.DX[t]), cy+int(a.DY[t])
 			if yx < 0 || yx >= width {
 				yx = raster.Mirror(yx, width)
 			}
@@ -451,79 +369,26 @@ func reflect(v float32, n int) float32 {
 	}
 }
 
-// jumpTable samples only the particles that move when most do not (small
-// eps: each axis stays with probability 1 - eps^2): the gap to the next
-// moving particle is geometric with parameter p = 1 - kx(0) ky(0), and the
-// moving particle's (dx, dy) is drawn from the product kernel conditioned on
-// (dx, dy) != (0, 0). The law of every particle's move is unchanged.
-type jumpTable struct {
-	on     bool
-	logq   float64  // log(1 - p)
-	cum    []uint64 // CDF over the non-zero moves, 32-bit fixed point
-	dx, dy []float32
-}
-
-// jumpMaxP: above this move probability the per-particle draw is cheaper.
-const jumpMaxP = 0.25
-
-func newJumpTable(kx, ky []float64) jumpTable {
-	if kx == nil {
-		kx = []float64{1}
-	}
-	if ky == nil {
-		ky = []float64{1}
-	}
-	rx, ry := (len(kx)-1)/2, (len(ky)-1)/2
-	p := 1 - kx[rx]*ky[ry]
-	if !(p > 0) || p > jumpMaxP {
-		return jumpTable{}
-	}
-	j := jumpTable{on: true, logq: math.Log1p(-p)}
-	var acc float64
-	for ty, vy := range ky {
-		for tx, vx := range kx {
-			if tx == rx && ty == ry {
-				continue
-			}
-			acc += vx * vy / p
-			j.cum = append(j.cum, uint64(math.Round(acc*(1<<32))))
-			j.dx = append(j.dx, float32(tx-rx))
-			j.dy = append(j.dy, float32(ty-ry))
-		}
-	}
-	j.cum[len(j.cum)-1] = 1 << 32
-	return j
-}
-
-// gap draws the number of particles that stay before the next one moves.
-func (j *jumpTable) gap(r *rand.PCG) int {
-	g := math.Log(1-resample.Uniform(r)) / j.logq
-	if g > 1<<40 {
-		return 1 << 40
-	}
-	return int(g)
-}
-
 // mutate moves every particle by integer displacements drawn from the
 // smoothing kernel per axis, reflected at the tile border.
 func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 	x, y := pw.x, pw.y[:len(pw.x)]
-	if j := &pe.jump; j.on {
+	if j := &pe.jump; j.On {
 		fw, fh := float32(width), float32(height)
-		for i := j.gap(&pw.rng); i < len(x); i += 1 + j.gap(&pw.rng) {
+		for i := j.Gap(&pw.rng); i < len(x); i += 1 + j.Gap(&pw.rng) {
 			u := uint64(uint32(pw.rng.Uint64()))
 			t := 0
-			for u >= j.cum[t] {
+			for u >= j.Cum[t] {
 				t++
 			}
-			if dx := j.dx[t]; dx != 0 {
+			if dx := j.DX[t]; dx != 0 {
 				v := x[i] + dx
 				if v < 0 || v >= fw {
 					v = reflect(v, width)
 				}
 				x[i] = v
 			}
-			if dy := j.dy[t]; dy != 0 {
+			if dy := j.DY[t]; dy != 0 {
 				v := y[i] + dy
 				if v < 0 || v >= fh {
 					v = reflect(v, height)
@@ -536,17 +401,17 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 	mx, my := &pe.mutX, &pe.mutY
 	fw, fh := float32(width), float32(height)
 	switch {
-	case mx.cum != nil && my.cum != nil:
+	case mx.On() && my.On():
 		for i := range x {
 			u := pw.rng.Uint64()
-			if dx := mx.move(uint32(u)); dx != 0 {
+			if dx := mx.Move(uint32(u)); dx != 0 {
 				v := x[i] + dx
 				if v < 0 || v >= fw {
 					v = reflect(v, width)
 				}
 				x[i] = v
 			}
-			if dy := my.move(uint32(u >> 32)); dy != 0 {
+			if dy := my.Move(uint32(u >> 32)); dy != 0 {
 				v := y[i] + dy
 				if v < 0 || v >= fh {
 					v = reflect(v, height)
@@ -554,9 +419,9 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 				y[i] = v
 			}
 		}
-	case mx.cum != nil:
+	case mx.On():
 		for i := range x {
-			if dx := mx.move(uint32(pw.rng.Uint64())); dx != 0 {
+			if dx := mx.Move(uint32(pw.rng.Uint64())); dx != 0 {
 				v := x[i] + dx
 				if v < 0 || v >= fw {
 					v = reflect(v, width)
@@ -564,9 +429,9 @@ func (pe *ParticleEMS) mutate(pw *particleWork, width, height int) {
 				x[i] = v
 			}
 		}
-	case my.cum != nil:
+	case my.On():
 		for i := range y {
-			if dy := my.move(uint32(pw.rng.Uint64())); dy != 0 {
+			if dy := my.Move(uint32(pw.rng.Uint64())); dy != 0 {
 				v := y[i] + dy
 				if v < 0 || v >= fh {
 					v = reflect(v, height)

@@ -116,7 +116,7 @@ func (cfg *Config) resolveParticle() error {
 func (cfg *Config) newParticleSolver() *ParticleEMS {
 	pc := cfg.Particle
 	k := conv.SmoothingKernel(cfg.Smooth)
-	return &ParticleEMS{H: conv.New(cfg.PSF), PSF: cfg.PSF, SmoothX: k, SmoothY: k, Iterations: cfg.Iterations,
+	return &ParticleEMS{H: conv.New(cfg.PSF), PSF: cfg.PSF, SmoothX: k, SmoothY: k, Smooth: cfg.Smooth, Iterations: cfg.Iterations,
 		PerPixel: pc.PerPixel, Potential: pc.Potential, Resampling: pc.Resampling, ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn,
 		Start: pc.Start, Batches: pc.Batches, Replicates: pc.Replicates, Seed: cfg.Seed}
 }

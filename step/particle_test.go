@@ -10,6 +10,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/draw"
 	"limpid/step/internal/steptest"
 	"limpid/step/resample"
 	"limpid/step/scene"
@@ -458,13 +459,13 @@ func TestParticleFluxEndToEnd(t *testing.T) {
 // normal deviate beyond 4 has probability 6e-5).
 func TestMutationVariance(t *testing.T) {
 	for _, eps := range []float64{0.2, 0.5, 0.9, 2} {
-		m := newMoveTable(conv.SmoothingKernel(eps))
+		m := draw.NewMove(conv.SmoothingKernel(eps))
 		var pcg rand.PCG
 		pcg.Seed(11, uint64(eps*100))
 		const n = 200000
 		var s, s2 float64
 		for i := 0; i < n; i++ {
-			d := float64(m.move(uint32(pcg.Uint64())))
+			d := float64(m.Move(uint32(pcg.Uint64())))
 			s += d
 			s2 += d * d
 		}
@@ -606,7 +607,7 @@ func TestParticleBlendedSE(t *testing.T) {
 
 // Source: as TestMutationVariance, for the whole cloud's move (the
 // jump-sampling path used at small eps and the per-particle path above
-// jumpMaxP): per axis, mean displacement 0 and variance eps^2, no
+// draw.JumpMaxP): per axis, mean displacement 0 and variance eps^2, no
 // covariance between the axes (the product kernel), within 4 standard
 // errors (sd of the sample variance <= sqrt(E d^4 / n); of the mean and
 // covariance <= sqrt(E d^2 / n)).

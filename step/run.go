@@ -15,6 +15,7 @@ import (
 	"limpid/raster"
 	"limpid/step/conv"
 	"limpid/step/noise"
+	"limpid/step/settings"
 )
 
 // Version is limpid's version, recorded in outputs and reports.
@@ -136,8 +137,10 @@ type BandReport struct {
 	// smoothing rule needed one.
 	Noise *noise.Model `json:"noise,omitempty"`
 	// Choice records the automatic smoothing/stop choice.
-	Choice *Choice      `json:"choice,omitempty"`
-	Tiles  []TileReport `json:"tiles"`
+	Choice *Choice `json:"choice,omitempty"`
+	// Applied is what the band's final pass ran with, read from its solver.
+	Applied *settings.Band `json:"applied,omitempty"`
+	Tiles   []TileReport   `json:"tiles"`
 }
 
 // Report is what a restoration did.
@@ -146,8 +149,9 @@ type Report struct {
 	Method      string       `json:"method"`
 	PSF         string       `json:"psf"`
 	PSFSize     [2]int       `json:"psf_size"`
+	PSFUsed     psf.Record   `json:"psf_used"`
 	ConvPath    string       `json:"convolution"`
-	Smooth      float64      `json:"smooth"`
+	Smooth      *float64     `json:"smooth,omitempty"` // the given bandwidth; nil when chosen (see Bands[].Applied)
 	SmoothRule  string       `json:"smooth_rule"`
 	Stop        Stop         `json:"stop"`
 	Choose      Choose       `json:"choose,omitempty"`
@@ -430,6 +434,9 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 		r.solver = s
 	}
+	for i := range rep.Bands {
+		rep.Bands[i].Applied = applied(r.solver, i, cfg.SmoothAuto, cfg.Stop == StopAuto, rep.Bands[i].Noise)
+	}
 	if err := r.run(ctx); err != nil {
 		return nil, err
 	}
@@ -444,7 +451,7 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 // newReport records the resolved job (bands are added by Restore).
 func newReport(cfg *Config, plan Plan, solver Solver) *Report {
 	rep := &Report{Version: Version, Method: solver.Name(), PSF: cfg.PSFSpec, PSFSize: [2]int{cfg.PSF.W, cfg.PSF.H},
-		ConvPath: conv.New(cfg.PSF).Kind(), Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
+		ConvPath: conv.New(cfg.PSF).Kind(), PSFUsed: psf.Describe(cfg.PSFSpec, cfg.PSF), SmoothRule: "given", Stop: cfg.RecordedStop(), Iterations: cfg.Iterations, Tolerance: cfg.Tolerance,
 		Tile: cfg.Tile, Overlap: plan.Overlap, Blend: plan.Blend, Workers: cfg.Workers, Seed: cfg.Seed,
 		Width: plan.W, Height: plan.H}
 	if cfg.HasSaturated {
@@ -459,6 +466,9 @@ func newReport(cfg *Config, plan Plan, solver Solver) *Report {
 	}
 	if cfg.SmoothAuto {
 		rep.SmoothRule = fmt.Sprintf("auto: risk estimate over %v", AutoSmooths)
+	} else {
+		s := cfg.Smooth
+		rep.Smooth = &s
 	}
 	return rep
 }

@@ -126,14 +126,14 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 		{"input", j.in}, {"output", j.out + " (" + string(j.format) + ")"},
 		{"scene", fmt.Sprintf("%d x %d pixels, %d bands restored", rep.Width, rep.Height, len(rep.Bands))},
 		{"method", "EMS (" + rep.Method + "), convolution " + rep.ConvPath},
-		{"PSF", fmt.Sprintf("%s (%d x %d kernel)", rep.PSF, rep.PSFSize[0], rep.PSFSize[1])},
-		{"smoothing", fmt.Sprintf("%g (%s)", rep.Smooth, rep.SmoothRule)},
-		{"stop", fmt.Sprintf("%s, at most %d iterations, tolerance %g", rep.Stop, rep.Iterations, rep.Tolerance)},
+	}
+	p.Rows = append(p.Rows, recordRows(rep)...) // records.go
+	p.Rows = append(p.Rows, [][2]string{
 		{"tiles", fmt.Sprintf("%d px, overlap %d, blend %d, %d workers", rep.Tile, rep.Overlap, rep.Blend, rep.Workers)},
 		{"seed", fmt.Sprint(rep.Seed)},
 		{"wall time", fmt.Sprintf("%.1f s", rep.WallSeconds)},
 		{"limpid", rep.Version},
-	}
+	}...)
 	if j.uncPath != "" {
 		p.Rows = append(p.Rows, [2]string{"uncertainty", j.uncPath})
 	}
@@ -142,9 +142,7 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 		if b.Noise != nil {
 			hb.Noise = fmt.Sprintf("var = %.4g DN + %.4g (%s)", b.Noise.A, b.Noise.B, b.Noise.Source)
 		}
-		if b.Choice != nil {
-			hb.Choice = fmt.Sprintf("smooth %g, %d iterations", b.Choice.Smooth, b.Choice.Iterations)
-		}
+		hb.Choice = bandSettingsText(b) // records.go
 		lo, hi := math.MaxInt, 0
 		for _, t := range b.Tiles {
 			lo, hi = min(lo, t.Iterations), max(hi, t.Iterations)

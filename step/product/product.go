@@ -6,8 +6,10 @@ import (
 	"math"
 	"strconv"
 
+	"limpid/psf"
 	"limpid/raster"
 	"limpid/step"
+	"limpid/step/settings"
 )
 
 // Label is the LIMPID_PRODUCT item of a restored raster.
@@ -85,13 +87,29 @@ type Record struct {
 	Bands [][]Item
 }
 
-// Metadata is the processing metadata of a restored raster.
+// Metadata is the processing metadata of a restored raster, built from the
+// step's report alone: LIMPID_PARAMETERS holds the job's parameters with,
+// under "bands", what each band's final pass ran with (step.BandReport's
+// Applied) and under "psf_used" the kernel (psf.Record); each band's items
+// repeat its settings (LIMPID_SMOOTH, LIMPID_STOP, LIMPID_BAND_PARAMETERS).
+// "smooth" is present only when it was given (one value for every band).
 func Metadata(rep *step.Report) Record {
 	var scene []Item
 	var bands [][]Item
 	pm := map[string]any{
-		"smooth": rep.Smooth, "smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
+		"smooth_rule": rep.SmoothRule, "stop": rep.Stop, "choose": rep.Choose, "iterations": rep.Iterations, "tolerance": rep.Tolerance,
 		"tile": rep.Tile, "overlap": rep.Overlap, "blend": rep.Blend, "seed": rep.Seed, "saturated": rep.Saturated,
+	}
+	if rep.Smooth != nil {
+		pm["smooth"] = *rep.Smooth
+	}
+	var applied []*settings.Band
+	for _, b := range rep.Bands {
+		applied = append(applied, b.Applied)
+	}
+	pm["bands"] = applied
+	if rep.PSFUsed.SHA256 != "" {
+		pm["psf_used"] = rep.PSFUsed
 	}
 	if rep.Particle != nil {
 		pm["particle"] = ParticleParams(rep.Particle)
@@ -102,13 +120,19 @@ func Metadata(rep *step.Report) Record {
 		{"LIMPID_VERSION", rep.Version},
 		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
 		{"LIMPID_PSF", rep.PSF},
-		{"LIMPID_PARAMETERS", string(params)},
 	}
+	scene = append(scene, psfItems(rep.PSFUsed)...)
+	scene = append(scene, Item{"LIMPID_PARAMETERS", string(params)})
 	for _, b := range rep.Bands {
 		items := []Item{
 			{"LIMPID_SOURCE_BAND", strconv.Itoa(b.SourceBand)},
 			{"LIMPID_BACKGROUND", strconv.FormatFloat(b.Background, 'g', -1, 64)},
 			{"LIMPID_ITERATIONS_MAX", strconv.Itoa(b.MaxIterations)},
+		}
+		if a := b.Applied; a != nil {
+			js, _ := json.Marshal(a)
+			items = append(items, Item{"LIMPID_SMOOTH", strconv.FormatFloat(a.Smooth, 'g', -1, 64)},
+				Item{"LIMPID_STOP", a.StopText()}, Item{"LIMPID_BAND_PARAMETERS", string(js)})
 		}
 		if b.Choice != nil {
 			items = append(items, Item{"LIMPID_SMOOTH_CHOSEN", strconv.FormatFloat(b.Choice.Smooth, 'g', -1, 64)},
@@ -133,14 +157,28 @@ func UncertaintyMetadata(rep *step.Report) Record {
 		{"LIMPID_VERSION", rep.Version},
 		{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
 		{"LIMPID_PSF", rep.PSF},
+	}
+	scene = append(scene, psfItems(rep.PSFUsed)...)
+	scene = append(scene, []Item{
 		{"LIMPID_PARAMETERS", string(params)},
 		{"LIMPID_SE_BLEND", step.SEBlendRule},
 		{"LIMPID_SE_METHOD", rep.Particle.SEMethod},
-	}
+	}...)
 	for _, b := range rep.Particle.Bands {
 		bands = append(bands, []Item{{"LIMPID_MEAN_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanSE)}})
 	}
 	return Record{Scene: scene, Bands: bands}
+}
+
+// psfItems are the kernel's items: LIMPID_PSF_USED (the psf.Record as
+// JSON) and LIMPID_PSF_SHA256 (the weights' hash, psf.WeightsSHA256); none
+// for a report without a record (a stream written before records were).
+func psfItems(r psf.Record) []Item {
+	if r.SHA256 == "" {
+		return nil
+	}
+	js, _ := json.Marshal(r)
+	return []Item{{"LIMPID_PSF_USED", string(js)}, {"LIMPID_PSF_SHA256", r.SHA256}}
 }
 
 // ParticleParams are the particle method's parameters as the metadata and

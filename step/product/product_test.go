@@ -1,11 +1,15 @@
 package product
 
 import (
+	"encoding/json"
 	"math"
+	"strings"
 	"testing"
 
+	"limpid/psf"
 	"limpid/raster"
 	"limpid/step"
+	"limpid/step/settings"
 )
 
 // Source: the output contract documented in the README ("Flags of restore":
@@ -56,5 +60,42 @@ func TestMetadataLabelsTheProduct(t *testing.T) {
 	}
 	if len(rec.Bands) != 1 || rec.Bands[0][0] != (Item{"LIMPID_SOURCE_BAND", "3"}) || rec.Bands[0][1] != (Item{"LIMPID_BACKGROUND", "2.5"}) {
 		t.Errorf("band items %v", rec.Bands)
+	}
+}
+
+// Records state what was done (issue 16; the README's metadata contract):
+// a chosen bandwidth is not stated for the scene, each band states its own;
+// a given one is stated once; the PSF's hash has its own item.
+func TestMetadataStatesAppliedSettings(t *testing.T) {
+	given := 0.2
+	for _, c := range []struct {
+		smooth *float64
+		want   bool
+	}{{nil, false}, {&given, true}} {
+		rep := &step.Report{Smooth: c.smooth, PSFUsed: psf.Record{Spec: "gaussian:sigma=1", Width: 9, Height: 9, SHA256: "ab"}, Bands: []step.BandReport{
+			{SourceBand: 1, Applied: &settings.Band{Smooth: 0.5, SmoothFrom: "auto", Stop: "fixed", Iterations: 12, IterationsFrom: "auto"}},
+			{SourceBand: 2, Applied: &settings.Band{Smooth: 0.3, SmoothFrom: "auto", Stop: "fixed", Iterations: 7, IterationsFrom: "auto"}},
+		}}
+		rec := Metadata(rep)
+		scene := map[string]string{}
+		for _, it := range rec.Scene {
+			scene[it.Key] = it.Value
+		}
+		var pm map[string]any
+		if err := json.Unmarshal([]byte(scene["LIMPID_PARAMETERS"]), &pm); err != nil {
+			t.Fatal(err)
+		}
+		if _, has := pm["smooth"]; has != c.want || len(pm["bands"].([]any)) != 2 || scene["LIMPID_PSF_SHA256"] != "ab" || scene["LIMPID_PSF_USED"] == "" {
+			t.Errorf("smooth %v: LIMPID_PARAMETERS %v, scene items %v", c.smooth, pm, scene)
+		}
+		for i, want := range []string{"0.5", "0.3"} {
+			band := map[string]string{}
+			for _, it := range rec.Bands[i] {
+				band[it.Key] = it.Value
+			}
+			if band["LIMPID_SMOOTH"] != want || !strings.HasPrefix(band["LIMPID_STOP"], "fixed ") || band["LIMPID_BAND_PARAMETERS"] == "" {
+				t.Errorf("band %d items %v", i+1, band)
+			}
+		}
 	}
 }

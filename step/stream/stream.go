@@ -8,8 +8,10 @@ import (
 	"math"
 
 	"limpid/arrowio"
+	"limpid/psf"
 	"limpid/raster"
 	"limpid/step"
+	"limpid/step/settings"
 )
 
 // TileSource yields tiles in stream order (arrowio.Reader, SceneTiler).
@@ -73,6 +75,9 @@ type streamParams struct {
 	Blend      int         `json:"blend"`
 	Seed       uint64      `json:"seed"`
 	Saturated  *float64    `json:"saturated"`
+	// Applied is what every band's pass ran with; PSFUsed the kernel.
+	Applied *settings.Band `json:"applied,omitempty"`
+	PSFUsed *psf.Record    `json:"psf_used,omitempty"`
 }
 
 // RestoredHeader is the header of the stream RestoreTiles makes from in with
@@ -84,8 +89,9 @@ func RestoredHeader(in *arrowio.Header, cfg step.Config, backgrounds []float64) 
 	for i := range out.Bands {
 		out.Bands[i].Background = backgrounds[i]
 	}
-	p := streamParams{Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.Stop, Iterations: cfg.Iterations, Tolerance: cfg.Tolerance, Tile: in.Tile,
-		Overlap: in.Overlap, Blend: in.Overlap / 2, Seed: cfg.Seed}
+	used := psf.Describe(cfg.PSFSpec, cfg.PSF)
+	p := streamParams{Smooth: cfg.Smooth, SmoothRule: "given", Stop: cfg.RecordedStop(), Iterations: cfg.Iterations, Tolerance: cfg.Tolerance, Tile: in.Tile,
+		Overlap: in.Overlap, Blend: in.Overlap / 2, Seed: cfg.Seed, Applied: cfg.Applied(), PSFUsed: &used}
 	if cfg.HasSaturated {
 		s := cfg.Saturated
 		p.Saturated = &s
@@ -110,10 +116,17 @@ func ReportFromHeader(h *arrowio.Header) (*step.Report, error) {
 		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("metadata %s: %v", arrowio.KeyParameters, err)}
 	}
 	rep := &step.Report{Version: h.Restored.SoftwareVersion, Method: h.Restored.Method, PSF: h.Restored.PSF,
-		Smooth: p.Smooth, SmoothRule: p.SmoothRule, Stop: p.Stop, Choose: p.Choose, Iterations: p.Iterations, Tolerance: p.Tolerance, Tile: p.Tile, Overlap: p.Overlap,
+		Smooth: &p.Smooth, SmoothRule: p.SmoothRule, Stop: p.Stop, Choose: p.Choose, Iterations: p.Iterations, Tolerance: p.Tolerance, Tile: p.Tile, Overlap: p.Overlap,
 		Blend: p.Blend, Seed: p.Seed, Saturated: p.Saturated, Width: h.Width, Height: h.Height}
 	for i, b := range h.Bands {
 		rep.Bands = append(rep.Bands, step.BandReport{Band: i + 1, SourceBand: b.SourceBand, Background: b.Background, BackgroundRule: "recorded in the stream"})
+		if p.Applied != nil {
+			a := *p.Applied
+			rep.Bands[i].Applied = &a
+		}
+	}
+	if p.PSFUsed != nil {
+		rep.PSFUsed = *p.PSFUsed
 	}
 	return rep, nil
 }

@@ -3,6 +3,7 @@ package stream
 import (
 	"bytes"
 	"context"
+	"encoding/json"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -184,6 +185,11 @@ func TestStreamMatchesRestore(t *testing.T) {
 				t.Errorf("band %d: max iterations %d / %d tiles, step.Restore says %d / %d", i+1, grep.Bands[i].MaxIterations,
 					len(grep.Bands[i].Tiles), rep.Bands[i].MaxIterations, len(rep.Bands[i].Tiles))
 			}
+			a, _ := json.Marshal([]any{grep.Bands[i].Applied, grep.PSFUsed})
+			b, _ := json.Marshal([]any{rep.Bands[i].Applied, rep.PSFUsed})
+			if !bytes.Equal(a, b) {
+				t.Errorf("band %d: the stream records %s, step.Restore %s", i+1, a, b)
+			}
 		}
 	}
 	if !bytes.Equal(streams[0], streams[1]) {
@@ -290,4 +296,35 @@ func restoreMem(t testing.TB, src *raster.Mem, bands []int, cfg step.Config) (*r
 		t.Fatal(err)
 	}
 	return dst, rep
+}
+
+// A restored stream of the particle method records its fixed count (issue
+// 16: records state what was done; no outside source): stop "fixed", the
+// count and the burn-in, in the parameters the assembled raster's metadata
+// is made from.
+func TestRestoredHeaderRecordsParticle(t *testing.T) {
+	src, _, _, k := steptest.ValleyScene(t, 40, 40, 1.2)
+	cfg := step.Config{Method: step.MethodParticle, PSF: k, PSFSpec: "gaussian:sigma=1.2", Smooth: 0.3, Iterations: 8, Tile: 32, Overlap: 16}
+	if err := cfg.Resolve(); err != nil {
+		t.Fatal(err)
+	}
+	in, err := ObservedHeader(src.Meta(), []int{0}, "s", 32, 16)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h, err := RestoredHeader(in, cfg, []float64{0})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rep, err := ReportFromHeader(h)
+	if err != nil {
+		t.Fatal(err)
+	}
+	a := rep.Bands[0].Applied
+	if rep.Stop != step.StopFixed || a == nil || a.Stop != "fixed" || a.Iterations != 8 || a.BurnIn == nil || *a.BurnIn != 4 || a.Smooth != 0.3 {
+		t.Errorf("stop %q, applied %+v", rep.Stop, a)
+	}
+	if rep.PSFUsed.Model != "gaussian" || *rep.PSFUsed.SigmaX != 1.2 || rep.PSFUsed.Width != k.W {
+		t.Errorf("PSF record %+v", rep.PSFUsed)
+	}
 }
