@@ -668,9 +668,17 @@ type regulariser struct {
 
 func (rg *regulariser) usable(b int) bool { return rg.noise[b].A+rg.noise[b].B > 0 }
 
-// fixed gives band b the fixed fallback (no noise model).
+// fixed gives band b the fixed fallback (no noise model): the given
+// smoothing, and the method's own stop (the grid method by change, the
+// particle method its fixed iterations: it stays the particle method).
 func (rg *regulariser) fixed(b int) {
 	cfg := &rg.cfg
+	if rg.particle {
+		rg.bs.byBand[b] = rg.solverFor(cfg.Smooth, cfg.Iterations)
+		rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
+			Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, the particle method's --iterations", rg.noise[b].Source)}
+		return
+	}
 	rg.bs.byBand[b] = newGrid(rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
 	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
 		Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", rg.noise[b].Source, DefaultTolerance)}

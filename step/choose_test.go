@@ -319,3 +319,29 @@ func TestParticleAutoBandwidth(t *testing.T) {
 			pc.Smooth, pc.Iterations, part.Bands[0].MaxIterations, gc.Smooth, its)
 	}
 }
+
+// A band without a noise model (no valid pixel) falls back to the given
+// smoothing; with the particle method the fallback stays the particle
+// method with its own iteration count (it used to fall back to the grid
+// solver, so a particle run silently mixed methods). Checked against the
+// fallback rule of DEVELOPERS.md ("Fallbacks") and the particle method's
+// fixed iteration count: project rules, no outside source.
+func TestParticleFallbackStaysParticle(t *testing.T) {
+	const n, its = 40, 6
+	k, _ := psf.GaussianIso(1.0)
+	src := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "Float32", Bands: []raster.BandInfo{{NoData: -1, HasNoData: true}}})
+	for i := range src.Bands[0] {
+		src.Bands[0][i] = -1
+	}
+	dst := raster.NewMem(src.M)
+	rep, err := Restore(context.Background(), src, []int{0}, dst, Config{PSF: k, Workers: 2, Smooth: 0.3, SmoothAuto: true,
+		Stop: StopChange, Iterations: its, Method: MethodParticle, Particle: ParticleConfig{PerPixel: 4, ESSThreshold: 0.5, BurnIn: its / 2, Batches: 3}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ch := rep.Bands[0].Choice
+	if rep.Method != "particle" || ch == nil || !strings.HasPrefix(ch.Rule, "fallback: no noise model") ||
+		!strings.Contains(ch.Rule, "particle") || ch.Iterations != its || ch.Smooth != 0.3 {
+		t.Fatalf("method %q, choice %+v; want the particle method's fallback with eps 0.3 and %d iterations", rep.Method, ch, its)
+	}
+}
