@@ -259,7 +259,7 @@ func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, 
 		if err := ctx.Err(); err != nil {
 			return run, err
 		}
-		g.iterateJVP(ws, aw, p, f, fn, u, un)
+		g.iterateJVP(ws, aw, p, f, fn, u, un, false)
 		f, fn = fn, f
 		u, un = un, u
 		r := math.NaN()
@@ -325,13 +325,24 @@ func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []floa
 // iterateJVP advances (f, u) to (fn, un). The f update performs the same
 // float32 operations as iterate, so a plain GridEMS run of k iterations
 // reproduces the k-th iterate here bit for bit.
-func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, un []float32) {
+//
+// With wantRSS it returns the residual sum of squares of f over valid pixels
+// (for the discrepancy stop), else 0.
+func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, un []float32, wantRSS bool) (rss float64) {
 	w, h := p.W, p.H
 	n := w * h
 	b := p.Background
 	g.H.Apply(&ws.conv, ws.p, f, w, h)
 	g.H.Apply(&ws.conv, aw.hu, u, w, h)
 	pp, q, d, m, hu, dq, delta := ws.p[:n], ws.q[:n], p.D[:n], p.Mask[:n], aw.hu[:n], aw.dq[:n], aw.delta[:n]
+	if wantRSS {
+		for i := range pp {
+			if m[i] != 0 {
+				e := float64(d[i] - pp[i] - b)
+				rss += e * e
+			}
+		}
+	}
 	for i := range pp {
 		den := pp[i] + b
 		if den > 0 && m[i] != 0 {
@@ -362,4 +373,5 @@ func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, 
 		g.S.Apply(&ws.conv, fn, e, w, h)
 		g.S.Apply(&ws.conv, un, ue, w, h)
 	}
+	return rss
 }

@@ -130,7 +130,7 @@ func float32JVP(g *GridEMS, p *Problem, delta []float64, K int) ([]float32, []fl
 	}
 	g.H.Adjoint(&ws.conv, ws.s, p.Mask, w, h)
 	for it := 0; it < K; it++ {
-		g.iterateJVP(&ws, aw, p, f, fn, uu, un)
+		g.iterateJVP(&ws, aw, p, f, fn, uu, un, false)
 		f, fn, uu, un = fn, f, un, uu
 	}
 	u := make([]float64, n)

@@ -652,6 +652,7 @@ func (r *runner) bandNoise(ctx context.Context) ([]noise.Model, error) {
 		m := models[i]
 		r.rep.Bands[i].Noise = &m
 	}
+	r.noise = models
 	return models, nil
 }
 
@@ -727,7 +728,8 @@ func (rg *regulariser) newChooser() *chooser {
 		c.tiles = sampleTiles(rg.plan)
 		c.exhaustive = len(c.tiles) > 1
 	}
-	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle
+	// The kept iterate has no noise map: with one, the final pass runs.
+	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle && cfg.Uncertainty == nil
 	c.kept = make([]*keptTile, nb)
 	for _, e := range smooths {
 		c.grids = append(c.grids, newGrid(rg.H, e, ccfg.Iterations, 0))
