@@ -50,7 +50,21 @@ type Choice struct {
 	Candidates      []CandidateReport `json:"candidates"`
 	// TileChoices is the smoothed per-tile map (per-tile mode only).
 	TileChoices []TileChoice `json:"tile_choices,omitempty"`
+	// StopFrom says where the stop came from: the minimum of the summed
+	// risk curve (every tile's run covers it and RiskPatience beyond), or
+	// the valid-pixel-weighted median of the tiles' best iterations.
+	StopFrom string `json:"stop_from,omitempty"`
+	// CapBound is true when a tile's risk still fell at the iteration
+	// limit for the chosen bandwidth: the stop is the limit's, not the
+	// risk's.
+	CapBound bool `json:"cap_bound,omitempty"`
 }
+
+// Where a choice's stop came from (Choice.StopFrom).
+const (
+	StopFromSummed = "summed risk curve"
+	StopFromMedian = "weighted median of the tiles' best iterations"
+)
 
 // CandidateReport summarises one bandwidth over the tiles used.
 type CandidateReport struct {
@@ -59,11 +73,14 @@ type CandidateReport struct {
 	// R is defined up to its own constant ||Q x||^2, the same for every
 	// candidate, so sums compare across candidates).
 	Risk float64 `json:"risk"`
-	// BestIterations is the valid-pixel-weighted median of the tiles'
-	// risk-minimising iteration (each tile runs to its own stop, so the
-	// summed curve is not known far enough to take its minimum: a
-	// departure from summing the curves, which the bandwidth choice does).
-	BestIterations int `json:"best_iterations"`
+	// BestIterations is the minimum of the summed risk curve where every
+	// tile's run covers it and RiskPatience iterations beyond (each tile
+	// runs to its own stop), else the valid-pixel-weighted median of the
+	// tiles' risk-minimising iterations; StopFrom says which.
+	BestIterations int    `json:"best_iterations"`
+	StopFrom       string `json:"stop_from"`
+	// CapBound: a tile's risk still fell at the iteration limit.
+	CapBound bool `json:"cap_bound,omitempty"`
 	// Curve is the summed risk at the iterations every tile evaluated:
 	// pairs [k, R_k].
 	Curve [][2]float64 `json:"curve"`
@@ -360,7 +377,7 @@ func (c *chooser) solveActive(ctx context.Context, ws *Workspace, k TileKey, rp 
 	if done {
 		return nil
 	}
-	run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.cfg.Iterations, c.cfg.Stop == StopAuto, false, math.Inf(1))
+	run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.limit(), c.cfg.Stop == StopAuto, false, math.Inf(1))
 	if err != nil {
 		return err
 	}
@@ -383,7 +400,7 @@ func (c *chooser) solveAll(ctx context.Context, ws *Workspace, k TileKey, cp *Pr
 	beat := math.Inf(1)
 	var kept []float32
 	for i, g := range c.grids {
-		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, beat)
+		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.limit(), auto, c.keep, beat)
 		if err != nil {
 			return err
 		}
@@ -435,6 +452,17 @@ func (c *chooser) crop(aw *autoWork, p *Problem) *Problem {
 	return &Problem{D: aw.cropD, Mask: aw.cropM, W: cw, H: chh, Background: p.Background, Key: k}
 }
 
+// limit is the runs' iteration limit: the cap, or with the automatic stop
+// and a default cap the hard limit (a run ends RiskPatience iterations
+// after its last significant risk improvement, so the extension only costs
+// where the risk still falls).
+func (c *chooser) limit() int {
+	if c.cfg.Stop == StopAuto && c.cfg.IterationLimit > c.cfg.Iterations {
+		return c.cfg.IterationLimit
+	}
+	return c.cfg.Iterations
+}
+
 // summarise turns one band's tile runs into its Choice.
 func (c *chooser) summarise(band int) Choice {
 	var keys []TileKey
@@ -447,6 +475,9 @@ func (c *chooser) summarise(band int) Choice {
 	ch := Choice{TilesUsed: len(keys)}
 	if c.cfg.Stop == StopAuto {
 		ch.Rule = fmt.Sprintf("risk minimum (stop %d iterations after it, cap %d)", RiskPatience, c.cfg.Iterations)
+		if lim := c.limit(); lim > c.cfg.Iterations {
+			ch.Rule = fmt.Sprintf("risk minimum (stop %d iterations after it, cap %d, extended up to %d while the risk falls)", RiskPatience, c.cfg.Iterations, lim)
+		}
 	} else {
 		ch.Rule = fmt.Sprintf("risk at the cap %d (the final pass stops by --stop %s)", c.cfg.Iterations, c.cfg.Stop)
 	}
@@ -488,7 +519,12 @@ func (c *chooser) summarise(band int) Choice {
 			ch.Candidates = append(ch.Candidates, cr)
 			continue
 		}
-		cr.BestIterations = int(weightedMedian(ks))
+		cr.BestIterations, cr.StopFrom = int(weightedMedian(ks)), StopFromMedian
+		allFull := true
+		for _, k := range keys {
+			allFull = allFull && len(c.runs[k][i].Risk) == c.limit()
+		}
+		bestSum, bestIt := math.Inf(1), 0
 		for it := 1; it <= minLen; it++ {
 			var sum float64
 			for _, k := range keys {
@@ -496,6 +532,21 @@ func (c *chooser) summarise(band int) Choice {
 			}
 			if !math.IsNaN(sum) && !math.IsInf(sum, 0) {
 				cr.Curve = append(cr.Curve, [2]float64{float64(it), sum})
+				if sum < bestSum {
+					bestSum, bestIt = sum, it
+				}
+			}
+		}
+		// The summed curve decides where every tile's run covers its
+		// minimum and RiskPatience iterations beyond (or ran to the limit):
+		// one stop for the band, the minimum of the band's total risk.
+		if bestIt > 0 && (bestIt+RiskPatience <= minLen || allFull) {
+			cr.BestIterations, cr.StopFrom = bestIt, StopFromSummed
+		}
+		for _, k := range keys {
+			run := c.runs[k][i]
+			if len(run.Risk) == c.limit() && run.BestK == c.limit() {
+				cr.CapBound = true
 			}
 		}
 		ch.Candidates = append(ch.Candidates, cr)
@@ -510,6 +561,10 @@ func (c *chooser) summarise(band int) Choice {
 	}
 	ch.Smooth = ch.Candidates[best].Smooth
 	ch.Iterations = max(1, ch.Candidates[best].BestIterations)
+	ch.StopFrom, ch.CapBound = ch.Candidates[best].StopFrom, ch.Candidates[best].CapBound
+	if ch.CapBound && c.cfg.Stop == StopAuto {
+		ch.Rule += fmt.Sprintf("; the risk still fell at the limit %d: the stop is bound by it", c.limit())
+	}
 	return ch
 }
 

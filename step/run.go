@@ -74,6 +74,11 @@ type Config struct {
 	// Stop is StopChange (the zero value), StopAuto or StopDiscrepancy;
 	// Iterations is the cap for all three.
 	Stop Stop
+	// IterationLimit, with StopAuto, lets the choice's runs whose risk still
+	// falls at Iterations go on up to it (Resolve sets AutoHardCap when
+	// Iterations was left to its default; 0 or less than Iterations: no
+	// extension).
+	IterationLimit int
 	// Choose is ChooseGlobal (the zero value) or ChoosePerTile.
 	Choose Choose
 	// Noise, when set, replaces the estimated per-band noise model.
@@ -299,6 +304,9 @@ func (cfg *Config) resolveSolver() error {
 	}
 	if cfg.Iterations == 0 {
 		cfg.Iterations = IterationCap(cfg.Stop)
+		if cfg.Stop == StopAuto && cfg.IterationLimit == 0 {
+			cfg.IterationLimit = AutoHardCap
+		}
 	}
 	if cfg.Iterations < 1 || cfg.Iterations > 100000 {
 		return fieldErrorf("Iterations", "{Iterations} %d must be between 1 and 100000", cfg.Iterations)
