@@ -18,7 +18,7 @@ const (
 
 // CombineRule describes Combine in words (limpid writes it to its JSON
 // summaries).
-const CombineRule = "per axis: median of the edges' sigmas after rejecting edges more than max(3 x 1.4826 x MAD, 10 % of the median) from the median; sigma = sqrt(sigma_x sigma_y) when both axes are measured, else the measured axis (assumed isotropic), else the point fit; mtf_nyquist, mtf50, fwhm and edge_angle_deg are medians over the used edges"
+const CombineRule = "per axis: median of the edges' sigmas after rejecting edges more than max(3 x 1.4826 x MAD, 10 % of the median) from the median; sigma = sqrt(sigma_x sigma_y) when both axes are measured, else the measured axis (assumed isotropic), else the point fit; mtf_nyquist, mtf_nyquist_floor, mtf50, fwhm and edge_angle_deg are medians over the used edges"
 
 // Estimate is one PSF estimate combined from several measurements. The
 // embedded Measured holds the restoration sigmas (pixels; nil when not
@@ -33,6 +33,9 @@ type Estimate struct {
 	// medians over the used edges (MTF50 over those where the e-SFR falls
 	// to 0.5).
 	MTFNyquist, MTF50, FWHM, EdgeAngleDeg *float64
+	// MTFNyquistFloor is the median of the used edges' noise floors at
+	// Nyquist (EdgeResult.MTFNyquistFloor).
+	MTFNyquistFloor *float64
 	// Used[i] reports whether edge i entered the estimate; Rejected[i] says
 	// why not ("" when used).
 	Used     []bool
@@ -74,12 +77,13 @@ func Combine(edges []*EdgeResult, point *PointResult) Estimate {
 		est.SigmaX, est.SigmaY, est.Sigma = ptr(point.SigmaX), ptr(point.SigmaY), ptr(point.Sigma)
 		est.SigmaFrom = "point target fit"
 	}
-	var nyq, m50, fw, ang []float64
+	var nyq, floor, m50, fw, ang []float64
 	for i, e := range edges {
 		if !est.Used[i] {
 			continue
 		}
 		nyq = append(nyq, e.MTFNyquist)
+		floor = append(floor, e.MTFNyquistFloor)
 		if !math.IsNaN(e.MTF50) {
 			m50 = append(m50, e.MTF50)
 		}
@@ -88,6 +92,7 @@ func Combine(edges []*EdgeResult, point *PointResult) Estimate {
 	}
 	if len(nyq) > 0 {
 		est.MTFNyquist, est.FWHM, est.EdgeAngleDeg = ptr(median(nyq)), ptr(median(fw)), ptr(median(ang))
+		est.MTFNyquistFloor = ptr(median(floor))
 	}
 	if len(m50) > 0 {
 		est.MTF50 = ptr(median(m50))

@@ -60,9 +60,15 @@ type EdgeResult struct {
 	Freq []float64 `json:"frequency"`
 	MTF  []float64 `json:"mtf"`
 	// ESFStep is the ESF bin width along the edge normal, pixels.
-	ESFStep    float64 `json:"esf_step"`
-	MTFNyquist float64 `json:"mtf_nyquist"`
-	MTF50      float64 `json:"mtf50"`
+	ESFStep float64 `json:"esf_step"`
+	// MTFNyquist is the e-SFR at Nyquist (0.5 cycles/pixel) with the noise
+	// floor removed (sfrPipeline.nyquist); MTFNyquistFloor is that floor,
+	// the e-SFR the window's noise alone gives there, and MTFNyquistRaw the
+	// e-SFR curve's own value (signal and noise).
+	MTFNyquist      float64 `json:"mtf_nyquist"`
+	MTFNyquistFloor float64 `json:"mtf_nyquist_floor"`
+	MTFNyquistRaw   float64 `json:"mtf_nyquist_raw"`
+	MTF50           float64 `json:"mtf50"`
 	// FWHM of the LSF along the normal, pixels (pixel aperture included).
 	FWHM float64 `json:"fwhm"`
 	// Sigma is the restoration sigma from the fit of
@@ -168,7 +174,7 @@ func edgeSFR(img []float64, w, h int) (*EdgeResult, error) {
 		return nil, err
 	}
 	res.Rows = rows
-	esf, err := binESF(img, w, a, b, y0, rows)
+	esf, counts, err := binESF(img, w, a, b, y0, rows)
 	if err != nil {
 		return nil, err
 	}
@@ -191,10 +197,11 @@ func edgeSFR(img []float64, w, h int) (*EdgeResult, error) {
 	wl := math.Min(float64(n), math.Max(HammingMinPixels*BinsPerPixel, HammingFWHM*fw))
 	sfr := sfrPipeline{n: n, c: c, wl: wl, binW: binW, cosA: cosA}
 	res.Freq, res.MTF = sfr.esfr(lsf)
-	res.MTFNyquist = interpAt(res.Freq, res.MTF, 0.5)
 	res.MTF50 = crossing(res.Freq, res.MTF, 0.5)
 	res.FWHM = fwhm(lsf) * res.ESFStep
 	res.Sigma, res.FitRMS, res.FitMax = fitSigma(res.Freq, res.MTF, sfr)
+	res.MTFNyquistRaw = interpAt(res.Freq, res.MTF, 0.5)
+	res.MTFNyquist, res.MTFNyquistFloor = sfr.nyquist(lsf, binVariances(counts, noise), res.Freq, res.MTF, res.Sigma)
 	res.Warnings = append(res.Warnings, contrastWarnings(lo, hi, res.SNR)...)
 	return res, nil
 }
@@ -314,8 +321,9 @@ func phaseCycleRows(w, h int, a, b, ang float64) (y0, rows int, err error) {
 // 1/BinsPerPixel pixel of horizontal distance to the edge line x = a + b y
 // (the supersampled ESF, centred on the edge's mean position) and keeps the
 // span of bins reached from both sides (an edge near a window side leaves
-// outer bins empty).
-func binESF(img []float64, w int, a, b float64, y0, rows int) ([]float64, error) {
+// outer bins empty); counts holds the number of pixels in each kept bin (0:
+// an empty bin, interpolated).
+func binESF(img []float64, w int, a, b float64, y0, rows int) (esf, counts []float64, err error) {
 	nb := BinsPerPixel * w
 	if nb%2 == 1 {
 		nb++
@@ -341,7 +349,7 @@ func binESF(img []float64, w int, a, b float64, y0, rows int) ([]float64, error)
 	for last >= 0 && cnt[last] == 0 {
 		last--
 	}
-	esf := make([]float64, 0, last-first+1)
+	esf = make([]float64, 0, last-first+1)
 	for k := first; k <= last; k++ {
 		if cnt[k] > 0 {
 			esf = append(esf, sum[k]/cnt[k])
@@ -351,9 +359,9 @@ func binESF(img []float64, w int, a, b float64, y0, rows int) ([]float64, error)
 	}
 	fillEmptyBins(esf)
 	if n := len(esf); n < 4*BinsPerPixel {
-		return nil, fmt.Errorf("%w: too few ESF bins (%d)", ErrMeasure, n)
+		return nil, nil, fmt.Errorf("%w: too few ESF bins (%d)", ErrMeasure, n)
 	}
-	return esf, nil
+	return esf, cnt[first : last+1], nil
 }
 
 // fillEmptyBins gives empty (NaN) bins, a few at unlucky slopes, the linear

@@ -192,3 +192,100 @@ func fitSigma(freq, mtf []float64, p sfrPipeline) (s, rmsRes, fmax float64) {
 	s = golden(cost, 0.05, 20)
 	return s, math.Sqrt(cost(s) / float64(len(idx))), fmax
 }
+
+// NyquistBand is the half-width (cycles/pixel) of the band around Nyquist
+// whose DFT samples fix the noise-corrected e-SFR at Nyquist: wide enough to
+// hold a few independent samples of a 16-pixel Hamming window (its DFT
+// resolution is 1/16 cycles/pixel), narrow enough that the fitted model's
+// shape carries the level to 0.5 (sfrPipeline.nyquist).
+const NyquistBand = 0.1
+
+// binVariances is the noise variance of each ESF bin: the pixel noise
+// variance over the bin's pixel count (the variance of a mean of
+// independent pixels); an empty, interpolated bin counts as one pixel.
+func binVariances(counts []float64, noise float64) []float64 {
+	v := make([]float64, len(counts))
+	for i, c := range counts {
+		v[i] = noise * noise / math.Max(c, 1)
+	}
+	return v
+}
+
+// floorPower is the expected squared e-SFR of the noise alone at DFT index
+// k (normalised like mtf: by the windowed LSF's sum dc and the derivative's
+// response). With ESF bin errors e_m independent of variance v_m, the LSF
+// error at bin i is (e_{i+1} - e_{i-1}) / 2, so the windowed DFT's error is
+// sum_m e_m c_m with c_m = (W_{m-1} z_{m-1} - W_{m+1} z_{m+1}) / 2 (W the
+// Hamming weights, z_i = exp(-2 pi j k (i - c) / n)) and its expected power
+// sum_m v_m |c_m|^2 (derived; the constant removed as background slope and
+// the copied end bins are left out: they fall outside the window).
+func (p sfrPipeline) floorPower(vars []float64, dc float64, k int) float64 {
+	wz := func(i int) complex128 {
+		if i < 0 || i >= p.n || math.Abs(float64(i)-p.c) >= p.wl/2 {
+			return 0
+		}
+		ph := 2 * math.Pi * float64(k) * (float64(i) - p.c) / float64(p.n)
+		return complex(hamming(float64(i), p.wl, p.c)*math.Cos(ph), -hamming(float64(i), p.wl, p.c)*math.Sin(ph))
+	}
+	var e float64
+	for m, v := range vars {
+		c := (wz(m-1) - wz(m+1)) / 2
+		e += v * (real(c)*real(c) + imag(c)*imag(c))
+	}
+	g := dc
+	if k > 0 {
+		x := 2 * math.Pi * float64(k) / float64(p.n)
+		g *= math.Sin(x) / x
+	}
+	return e / (g * g)
+}
+
+// nyquist is the e-SFR at Nyquist with the noise floor removed, and the
+// floor. The squared e-SFR of signal plus independent noise is, in
+// expectation, the signal's plus the floor's (floorPower), so the signal
+// power at each DFT sample within NyquistBand of 0.5 is mtf^2 - floor^2.
+// Those samples are few and noisy: their level is fitted by least squares
+// to the shape of the fitted model's e-SFR squared (modelLSF at sigma run
+// through the same pipeline), scaled to 1 at Nyquist; the corrected value
+// is the square root of that level (0 when the floor swallows it). A noise
+// floor subtraction of this kind is the usual correction of a power
+// spectrum for additive noise (Source: Bendat & Piersol, Random Data, 4th
+// ed., Wiley 2010, ch. 11, bias of auto-spectra with extraneous noise; from
+// memory, the chapter number not checked).
+func (p sfrPipeline) nyquist(lsf, vars, freq, mtf []float64, sigma float64) (corrected, floor float64) {
+	var dc float64
+	for i := range lsf {
+		if math.Abs(float64(i)-p.c) < p.wl/2 {
+			dc += lsf[i] * hamming(float64(i), p.wl, p.c)
+		}
+	}
+	var ks []int
+	for k := 1; k < len(freq); k++ {
+		if math.Abs(freq[k]-0.5) <= NyquistBand {
+			ks = append(ks, k)
+		}
+	}
+	floors := make([]float64, len(freq))
+	for k := 1; k < len(freq) && freq[k] <= 0.5+NyquistBand; k++ {
+		floors[k] = math.Sqrt(p.floorPower(vars, dc, k))
+	}
+	floor = interpAt(freq, floors, 0.5)
+	if len(ks) == 0 || dc <= 0 {
+		return interpAt(freq, mtf, 0.5), floor
+	}
+	model := make([]float64, p.n)
+	modelLSF(model, sigma, p.c, p.binW*p.cosA)
+	mm := make([]float64, len(freq))
+	p.mtf(model, mm, nil)
+	mN := interpAt(freq, mm, 0.5)
+	var num, den float64
+	for _, k := range ks {
+		g := mm[k] * mm[k] / (mN * mN)
+		num += g * (mtf[k]*mtf[k] - floors[k]*floors[k])
+		den += g * g
+	}
+	if den == 0 || num <= 0 {
+		return 0, floor
+	}
+	return math.Sqrt(num / den), floor
+}

@@ -35,9 +35,11 @@ import (
 // of variance v (Stein's lemma; the weighting idea is projected/generalised
 // SURE, Eldar, IEEE TSP 57(2):471-481, 2009; the Poisson-Gaussian variance
 // model follows Luisier, Blu & Unser, IEEE TIP 20(3):696-708, 2011). F, D,
-// U are the DCTs of f_k, d - b and u_k; c = NoiseInflation. Tiles with many
-// invalid pixels or asymmetric PSFs fall back to the prediction-domain
-// estimate over valid pixels:
+// U are the DCTs of f_k, d - b and u_k; c = NoiseInflation. Tiles with
+// invalid pixels use the same estimate on the masked prediction
+// (riskProblem.maskedRisk); PSFs that the DCT does not diagonalise
+// (asymmetric) fall back to the prediction-domain estimate over valid
+// pixels:
 //
 //	R_k = sum w (H f_k + b - d)^2 - sum w v + 2 c sum w v delta (H u_k).
 
@@ -56,12 +58,14 @@ const (
 	// significant risk improvement (one larger than riskPlateau times the
 	// total decrease so far).
 	RiskPatience = 20
-	// AutoCap is the default iteration cap with --stop auto.
+	// AutoCap is the default iteration cap with --stop auto. It is soft:
+	// a run whose risk still falls there goes on, up to AutoHardCap
+	// (textured scenes blurred by wide PSFs want more than 200; measured in
+	// DEVELOPERS.md, "Nodata collars and footprints").
 	AutoCap = 200
-	// riskMaskedFraction: above this share of invalid pixels the DCT
-	// diagonalisation no longer holds and the prediction-domain estimate is
-	// used.
-	riskMaskedFraction = 0.10
+	// AutoHardCap is the hard limit of the automatic stop's runs when the
+	// cap is left to its default.
+	AutoHardCap = 1000
 	// NoiseInflation multiplies the estimated variance where the risk
 	// estimate uses it: underestimating the noise is the dangerous side
 	// (it makes the risk favour noise amplification; prototype value,
@@ -98,9 +102,12 @@ func riskEvaluated(k, cap int) bool {
 	return k <= 10 || (k <= 30 && k%2 == 0) || k%5 == 0 || k == cap
 }
 
-// riskWeights holds the DCT-domain weights for one tile size.
+// riskWeights holds the DCT-domain weights for one tile size: Q^2, G and
+// K = 1 / (h^2 + lambda) (the masked form, see rp.risk), and the PSF's
+// radius.
 type riskWeights struct {
-	q2, g []float64
+	q2, g, k []float64
+	radius   int
 }
 
 func newRiskWeights(k *psf.Kernel, w, h int) (*riskWeights, bool) {
@@ -108,26 +115,27 @@ func newRiskWeights(k *psf.Kernel, w, h int) (*riskWeights, bool) {
 	if !ok {
 		return nil, false
 	}
-	rw := &riskWeights{q2: make([]float64, w*h), g: make([]float64, w*h)}
+	rw := &riskWeights{q2: make([]float64, w*h), g: make([]float64, w*h), k: make([]float64, w*h), radius: max(k.Rx(), k.Ry())}
 	for i, l := range lam {
 		den := l*l + riskLambda
 		rw.q2[i] = l * l / den
 		rw.g[i] = l / den
+		rw.k[i] = 1 / den
 	}
 	return rw, true
 }
 
 // autoWork is one worker's scratch for the risk-carrying EMS.
 type autoWork struct {
-	f, fn, u, un, hu, dq, dt, ue, delta, v, best []float32
-	cropD, cropM                                 []float32
-	gd, gv, F                                    []float64
-	dct                                          *conv.DCT2
+	f, fn, u, un, hu, dq, dt, ue, delta, v, best, wp, taper []float32
+	cropD, cropM                                            []float32
+	gd, gv, F                                               []float64
+	dct                                                     *conv.DCT2
 }
 
 func (a *autoWork) reset(w, h int) {
 	n := w * h
-	for _, b := range []*[]float32{&a.f, &a.fn, &a.u, &a.un, &a.hu, &a.dq, &a.dt, &a.ue, &a.delta, &a.v, &a.best} {
+	for _, b := range []*[]float32{&a.f, &a.fn, &a.u, &a.un, &a.hu, &a.dq, &a.dt, &a.ue, &a.delta, &a.v, &a.best, &a.wp, &a.taper} {
 		*b = grow(*b, n)
 	}
 	for _, b := range []*[]float64{&a.gd, &a.gv, &a.F} {
@@ -164,6 +172,9 @@ type riskProblem struct {
 	// infl is the noise inflation c (NoiseInflation; 1 in the
 	// unbiasedness test).
 	infl float64
+	// masked: the tile has invalid pixels, so the DCT-domain estimate
+	// runs on the masked prediction (rp.risk).
+	masked bool
 }
 
 // setupRisk prepares the probe (PCG from the tile key and seed), the
@@ -176,7 +187,6 @@ func setupRisk(aw *autoWork, p *Problem, nm *noise.Model, rw *riskWeights, seed 
 	rp := &riskProblem{p: p, infl: infl}
 	rp.nValid, rp.flux = Prepare(p)
 	stream := seed*mix.Golden ^ mix.ProbeStream(p.Key.Band, p.Key.Col, p.Key.Row)
-	var mean float64
 	for i := 0; i < n; i++ {
 		if p.Mask[i] == 0 {
 			aw.delta[i], aw.v[i] = 0, 0
@@ -189,39 +199,49 @@ func setupRisk(aw *autoWork, p *Problem, nm *noise.Model, rw *riskWeights, seed 
 		}
 		aw.v[i] = nm.Variance(p.D[i])
 		rp.vsum += float64(aw.v[i])
-		mean += float64(p.D[i] - p.Background)
 	}
 	if rp.nValid == 0 {
 		return rp
 	}
-	mean /= float64(rp.nValid)
-	invalid := float64(n-rp.nValid) / float64(n)
-	rp.dctOK = rw != nil && invalid <= riskMaskedFraction
+	rp.dctOK = rw != nil
 	if !rp.dctOK {
 		return rp
 	}
 	rp.weight = rw
-	// gd: invalid pixels are filled with the valid mean (an approximation
-	// that the masked-fraction limit keeps small).
+	rp.masked = rp.nValid < n
+	// Full tiles: gd = C^T G C (d - b), gv = c C^T G C (v delta). Masked
+	// tiles: the same with K in place of G and d - b zeroed on invalid
+	// pixels (v delta is zero there already).
+	wt := rw.g
+	if rp.masked {
+		wt = rw.k
+		riskTaper(aw.taper[:n], p.Mask[:n], w, h, riskTaperRadius(g0Radius(rw)), aw.ue[:n], aw.wp[:n])
+	}
 	tmp := aw.ue
 	for i := 0; i < n; i++ {
-		if p.Mask[i] == 0 {
-			tmp[i] = float32(mean)
-		} else {
+		switch {
+		case p.Mask[i] == 0:
+			tmp[i] = 0
+		case rp.masked:
+			tmp[i] = aw.taper[i] * (p.D[i] - p.Background)
+		default:
 			tmp[i] = p.D[i] - p.Background
 		}
 	}
 	aw.dct.Forward(aw.F, tmp)
 	for i := range aw.F {
-		aw.F[i] *= rw.g[i]
+		aw.F[i] *= wt[i]
 	}
 	aw.dct.Inverse(aw.gd, aw.F)
 	for i := 0; i < n; i++ {
 		tmp[i] = float32(infl) * aw.v[i] * aw.delta[i]
+		if rp.masked {
+			tmp[i] *= aw.taper[i]
+		}
 	}
 	aw.dct.Forward(aw.F, tmp)
 	for i := range aw.F {
-		aw.F[i] *= rw.g[i]
+		aw.F[i] *= wt[i]
 	}
 	aw.dct.Inverse(aw.gv, aw.F)
 	return rp
@@ -259,7 +279,7 @@ func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, 
 		if err := ctx.Err(); err != nil {
 			return run, err
 		}
-		g.iterateJVP(ws, aw, p, f, fn, u, un)
+		g.iterateJVP(ws, aw, p, f, fn, u, un, false)
 		f, fn = fn, f
 		u, un = un, u
 		r := math.NaN()
@@ -295,6 +315,9 @@ func runRisk(ctx context.Context, ws *Workspace, aw *autoWork, rp *riskProblem, 
 func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []float32) float64 {
 	p := rp.p
 	n := p.W * p.H
+	if rp.dctOK && rp.masked {
+		return rp.maskedRisk(ws, aw, g, f, u)
+	}
 	if rp.dctOK {
 		aw.dct.Forward(aw.F, f)
 		var t1, t2, t3 float64
@@ -322,16 +345,134 @@ func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []floa
 	return rss - rp.vsum + 2*rp.infl*div
 }
 
+// riskTaperRadius is the half-width of the masked risk's taper for a PSF
+// of radius r: twice the PSF's reach (measured on the nodata scenes of
+// DEVELOPERS.md, "Nodata collars and footprints").
+func riskTaperRadius(r int) int { return max(2, 2*r) }
+
+// g0Radius is the PSF radius the risk weights were made for.
+func g0Radius(rw *riskWeights) int { return rw.radius }
+
+// riskTaper writes into dst the masked risk's weight: 0 on invalid pixels,
+// rising smoothly with the distance d to the nearest invalid pixel to 1 at
+// r pixels, sin^2(pi/2 min(d/r, 1)) (a raised-cosine edge, as tapered data
+// windows in spectral estimation). A hard 0/1 weight would put a step into
+// the masked prediction, which K (a regularised inverse of H^T H)
+// amplifies: the error measure would then be dominated by the pixels along
+// the mask's edge, where more iterations always fit better. The distance
+// is the chamfer distance with weights 3 and 4 (3 per pixel; Borgefors,
+// CVGIP 34(3):344-371, 1986), two passes; the tile's sides are not mask
+// edges. dist (len w*h) is scratch.
+func riskTaper(dst, mask []float32, w, h, r int, dist, _ []float32) {
+	const far = float32(1 << 30)
+	for i := range dist[:w*h] {
+		if mask[i] == 0 {
+			dist[i] = 0
+		} else {
+			dist[i] = far
+		}
+	}
+	relax := func(i, j int, c float32) {
+		if v := dist[j] + c; v < dist[i] {
+			dist[i] = v
+		}
+	}
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			i := y*w + x
+			if x > 0 {
+				relax(i, i-1, 3)
+			}
+			if y > 0 {
+				relax(i, i-w, 3)
+				if x > 0 {
+					relax(i, i-w-1, 4)
+				}
+				if x < w-1 {
+					relax(i, i-w+1, 4)
+				}
+			}
+		}
+	}
+	for y := h - 1; y >= 0; y-- {
+		for x := w - 1; x >= 0; x-- {
+			i := y*w + x
+			if x < w-1 {
+				relax(i, i+1, 3)
+			}
+			if y < h-1 {
+				relax(i, i+w, 3)
+				if x < w-1 {
+					relax(i, i+w+1, 4)
+				}
+				if x > 0 {
+					relax(i, i+w-1, 4)
+				}
+			}
+		}
+	}
+	for i := range dst[:w*h] {
+		t := math.Min(1, float64(dist[i])/(3*float64(r)))
+		v := math.Sin(math.Pi / 2 * t)
+		dst[i] = float32(v * v)
+	}
+}
+
+// maskedRisk is the DCT-domain estimate on a tile with invalid pixels,
+// where no data may enter the risk: with W the validity mask and
+// K = (H^T H + lambda)^-1 (DCT-diagonal, 1 / (h^2 + lambda)), it estimates
+// the error ||K^(1/2) W H (f - x)||^2 - ||K^(1/2) W H x||^2 by
+//
+//	R = <P, K P> - 2 <P, K W (d - b)> + 2 c <W H u, K (v delta)>,  P = W H f
+//
+// (Stein's lemma on the valid pixels, as the full-tile form; the
+// generalised SURE weighting of Eldar, IEEE TSP 57(2), 2009). With W = I
+// it is the full-tile estimate exactly: H K H = Q^2 and K H = G in the DCT
+// basis. Invalid pixels enter neither the data term nor the error, so
+// there is no masked-fraction threshold; tiles whose PSF is not
+// DCT-diagonal use the prediction-domain estimate below.
+func (rp *riskProblem) maskedRisk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []float32) float64 {
+	p := rp.p
+	n := p.W * p.H
+	g.H.Apply(&ws.conv, aw.wp, f, p.W, p.H)
+	g.H.Apply(&ws.conv, aw.hu, u, p.W, p.H)
+	wp, hu, tp := aw.wp[:n], aw.hu[:n], aw.taper[:n]
+	var t2, t3 float64
+	for i := range wp {
+		wp[i] *= tp[i]
+		t2 += float64(wp[i]) * aw.gd[i]
+		t3 += float64(tp[i]) * float64(hu[i]) * aw.gv[i]
+	}
+	aw.dct.Forward(aw.F, wp)
+	var t1 float64
+	k := rp.weight.k
+	for i, x := range aw.F[:n] {
+		t1 += k[i] * x * x
+	}
+	return t1 - 2*t2 + 2*t3
+}
+
 // iterateJVP advances (f, u) to (fn, un). The f update performs the same
 // float32 operations as iterate, so a plain GridEMS run of k iterations
 // reproduces the k-th iterate here bit for bit.
-func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, un []float32) {
+//
+// With wantRSS it returns the residual sum of squares of f over valid pixels
+// (for the discrepancy stop), else 0.
+func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, un []float32, wantRSS bool) (rss float64) {
 	w, h := p.W, p.H
 	n := w * h
 	b := p.Background
 	g.H.Apply(&ws.conv, ws.p, f, w, h)
 	g.H.Apply(&ws.conv, aw.hu, u, w, h)
 	pp, q, d, m, hu, dq, delta := ws.p[:n], ws.q[:n], p.D[:n], p.Mask[:n], aw.hu[:n], aw.dq[:n], aw.delta[:n]
+	if wantRSS {
+		for i := range pp {
+			if m[i] != 0 {
+				e := float64(d[i] - pp[i] - b)
+				rss += e * e
+			}
+		}
+	}
 	for i := range pp {
 		den := pp[i] + b
 		if den > 0 && m[i] != 0 {
@@ -362,4 +503,5 @@ func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, 
 		g.S.Apply(&ws.conv, fn, e, w, h)
 		g.S.Apply(&ws.conv, un, ue, w, h)
 	}
+	return rss
 }

@@ -51,7 +51,21 @@ type Choice struct {
 	Candidates      []CandidateReport `json:"candidates"`
 	// TileChoices is the smoothed per-tile map (per-tile mode only).
 	TileChoices []TileChoice `json:"tile_choices,omitempty"`
+	// StopFrom says where the stop came from: the minimum of the summed
+	// risk curve (every tile's run covers it and RiskPatience beyond), or
+	// the valid-pixel-weighted median of the tiles' best iterations.
+	StopFrom string `json:"stop_from,omitempty"`
+	// CapBound is true when a tile's risk still fell at the iteration
+	// limit for the chosen bandwidth: the stop is the limit's, not the
+	// risk's.
+	CapBound bool `json:"cap_bound,omitempty"`
 }
+
+// Where a choice's stop came from (Choice.StopFrom).
+const (
+	StopFromSummed = "summed risk curve"
+	StopFromMedian = "weighted median of the tiles' best iterations"
+)
 
 // CandidateReport summarises one bandwidth over the tiles used.
 type CandidateReport struct {
@@ -60,11 +74,14 @@ type CandidateReport struct {
 	// R is defined up to its own constant ||Q x||^2, the same for every
 	// candidate, so sums compare across candidates).
 	Risk float64 `json:"risk"`
-	// BestIterations is the valid-pixel-weighted median of the tiles'
-	// risk-minimising iteration (each tile runs to its own stop, so the
-	// summed curve is not known far enough to take its minimum: a
-	// departure from summing the curves, which the bandwidth choice does).
-	BestIterations int `json:"best_iterations"`
+	// BestIterations is the minimum of the summed risk curve where every
+	// tile's run covers it and RiskPatience iterations beyond (each tile
+	// runs to its own stop), else the valid-pixel-weighted median of the
+	// tiles' risk-minimising iterations; StopFrom says which.
+	BestIterations int    `json:"best_iterations"`
+	StopFrom       string `json:"stop_from"`
+	// CapBound: a tile's risk still fell at the iteration limit.
+	CapBound bool `json:"cap_bound,omitempty"`
 	// Curve is the summed risk at the iterations every tile evaluated:
 	// pairs [k, R_k].
 	Curve [][2]float64 `json:"curve"`
@@ -361,7 +378,7 @@ func (c *chooser) solveActive(ctx context.Context, ws *Workspace, k TileKey, rp 
 	if done {
 		return nil
 	}
-	run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.cfg.Iterations, c.cfg.Stop == StopAuto, false, math.Inf(1))
+	run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.limit(), c.cfg.Stop == StopAuto, false, math.Inf(1))
 	if err != nil {
 		return err
 	}
@@ -384,7 +401,7 @@ func (c *chooser) solveAll(ctx context.Context, ws *Workspace, k TileKey, cp *Pr
 	beat := math.Inf(1)
 	var kept []float32
 	for i, g := range c.grids {
-		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.cfg.Iterations, auto, c.keep, beat)
+		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.limit(), auto, c.keep, beat)
 		if err != nil {
 			return err
 		}
@@ -436,6 +453,17 @@ func (c *chooser) crop(aw *autoWork, p *Problem) *Problem {
 	return &Problem{D: aw.cropD, Mask: aw.cropM, W: cw, H: chh, Background: p.Background, Key: k}
 }
 
+// limit is the runs' iteration limit: the cap, or with the automatic stop
+// and a default cap the hard limit (a run ends RiskPatience iterations
+// after its last significant risk improvement, so the extension only costs
+// where the risk still falls).
+func (c *chooser) limit() int {
+	if c.cfg.Stop == StopAuto && c.cfg.IterationLimit > c.cfg.Iterations {
+		return c.cfg.IterationLimit
+	}
+	return c.cfg.Iterations
+}
+
 // summarise turns one band's tile runs into its Choice.
 func (c *chooser) summarise(band int) Choice {
 	var keys []TileKey
@@ -448,6 +476,9 @@ func (c *chooser) summarise(band int) Choice {
 	ch := Choice{TilesUsed: len(keys)}
 	if c.cfg.Stop == StopAuto {
 		ch.Rule = fmt.Sprintf("risk minimum (stop %d iterations after it, cap %d)", RiskPatience, c.cfg.Iterations)
+		if lim := c.limit(); lim > c.cfg.Iterations {
+			ch.Rule = fmt.Sprintf("risk minimum (stop %d iterations after it, cap %d, extended up to %d while the risk falls)", RiskPatience, c.cfg.Iterations, lim)
+		}
 	} else {
 		ch.Rule = fmt.Sprintf("risk at the cap %d (the final pass stops by --stop %s)", c.cfg.Iterations, c.cfg.Stop)
 	}
@@ -489,7 +520,12 @@ func (c *chooser) summarise(band int) Choice {
 			ch.Candidates = append(ch.Candidates, cr)
 			continue
 		}
-		cr.BestIterations = int(weightedMedian(ks))
+		cr.BestIterations, cr.StopFrom = int(weightedMedian(ks)), StopFromMedian
+		allFull := true
+		for _, k := range keys {
+			allFull = allFull && len(c.runs[k][i].Risk) == c.limit()
+		}
+		bestSum, bestIt := math.Inf(1), 0
 		for it := 1; it <= minLen; it++ {
 			var sum float64
 			for _, k := range keys {
@@ -497,6 +533,21 @@ func (c *chooser) summarise(band int) Choice {
 			}
 			if !math.IsNaN(sum) && !math.IsInf(sum, 0) {
 				cr.Curve = append(cr.Curve, [2]float64{float64(it), sum})
+				if sum < bestSum {
+					bestSum, bestIt = sum, it
+				}
+			}
+		}
+		// The summed curve decides where every tile's run covers its
+		// minimum and RiskPatience iterations beyond (or ran to the limit):
+		// one stop for the band, the minimum of the band's total risk.
+		if bestIt > 0 && (bestIt+RiskPatience <= minLen || allFull) {
+			cr.BestIterations, cr.StopFrom = bestIt, StopFromSummed
+		}
+		for _, k := range keys {
+			run := c.runs[k][i]
+			if len(run.Risk) == c.limit() && run.BestK == c.limit() {
+				cr.CapBound = true
 			}
 		}
 		ch.Candidates = append(ch.Candidates, cr)
@@ -511,6 +562,10 @@ func (c *chooser) summarise(band int) Choice {
 	}
 	ch.Smooth = ch.Candidates[best].Smooth
 	ch.Iterations = max(1, ch.Candidates[best].BestIterations)
+	ch.StopFrom, ch.CapBound = ch.Candidates[best].StopFrom, ch.Candidates[best].CapBound
+	if ch.CapBound && c.cfg.Stop == StopAuto {
+		ch.Rule += fmt.Sprintf("; the risk still fell at the limit %d: the stop is bound by it", c.limit())
+	}
 	return ch
 }
 
@@ -653,6 +708,7 @@ func (r *runner) bandNoise(ctx context.Context) ([]noise.Model, error) {
 		m := models[i]
 		r.rep.Bands[i].Noise = &m
 	}
+	r.noise = models
 	return models, nil
 }
 
@@ -669,9 +725,17 @@ type regulariser struct {
 
 func (rg *regulariser) usable(b int) bool { return rg.noise[b].A+rg.noise[b].B > 0 }
 
-// fixed gives band b the fixed fallback (no noise model).
+// fixed gives band b the fixed fallback (no noise model): the given
+// smoothing, and the method's own stop (the grid method by change, the
+// particle method its fixed iterations: it stays the particle method).
 func (rg *regulariser) fixed(b int) {
 	cfg := &rg.cfg
+	if rg.particle {
+		rg.bs.byBand[b] = rg.solverFor(cfg.Smooth, cfg.Iterations)
+		rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
+			Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, the particle method's --iterations", rg.noise[b].Source)}
+		return
+	}
 	rg.bs.byBand[b] = newGrid(rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
 	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
 		Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", rg.noise[b].Source, DefaultTolerance)}
@@ -720,7 +784,8 @@ func (rg *regulariser) newChooser() *chooser {
 		c.tiles = sampleTiles(rg.plan)
 		c.exhaustive = len(c.tiles) > 1
 	}
-	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle
+	// The kept iterate has no noise map: with one, the final pass runs.
+	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle && cfg.Uncertainty == nil
 	c.kept = make([]*keptTile, nb)
 	for _, e := range smooths {
 		c.grids = append(c.grids, newGrid(rg.H, e, ccfg.Iterations, 0))

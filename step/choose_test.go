@@ -133,8 +133,10 @@ func fallbackCases() []fallbackCase {
 			}
 			return noisy(x, y)
 		}), Config{}, true, "estimated", "risk minimum", func(t *testing.T, ch *Choice, _ []float32) {
-			if ch.PredictionTiles == 0 || ch.TilesUsed != ch.PredictionTiles {
-				t.Errorf("%d of %d tiles on the prediction-domain estimate, want all (> 10 %% invalid)", ch.PredictionTiles, ch.TilesUsed)
+			// A symmetric PSF keeps the DCT-domain estimate on the masked
+			// prediction whatever the masked share (no threshold).
+			if ch.PredictionTiles != 0 || ch.TilesUsed != 1 {
+				t.Errorf("%d of %d tiles on the prediction-domain estimate, want none (masked DCT form)", ch.PredictionTiles, ch.TilesUsed)
 			}
 		}},
 		{"tiny scene", mk(12, noisy), Config{Tile: 16}, true, "immerkaer", "risk minimum", nil},
@@ -175,8 +177,8 @@ func fallbackCases() []fallbackCase {
 // bandwidth is a candidate (or the given one) and the stop is within the
 // cap, the scene's flux is kept, nodata stays NaN and every valid pixel is
 // finite. Checked against the fallback rules of the automatic choice as
-// DEVELOPERS.md documents them ("Fallbacks": tiles more than 10 % invalid
-// use the prediction-domain estimate; too few smooth pixels give a constant
+// DEVELOPERS.md documents them ("Fallbacks": masked tiles use the masked
+// DCT-domain estimate; too few smooth pixels give a constant
 // variance; a band without usable pixels gets the given bandwidth, 50
 // iterations and the change stop): project rules, no outside source. The
 // constant variance is Immerkaer's estimate (Source: Immerkaer, CVIU
@@ -318,5 +320,53 @@ func TestParticleAutoBandwidth(t *testing.T) {
 	if gc.Smooth == 0 || !inCandidates(pc.Smooth) || pc.Smooth != gc.Smooth || pc.Iterations != its || part.Bands[0].MaxIterations != its {
 		t.Errorf("particle: eps %g, %d iterations (tiles ran %d); want the grid's eps %g and its own %d iterations",
 			pc.Smooth, pc.Iterations, part.Bands[0].MaxIterations, gc.Smooth, its)
+	}
+}
+
+// A band without a noise model (no valid pixel) falls back to the given
+// smoothing; with the particle method the fallback stays the particle
+// method with its own iteration count (it used to fall back to the grid
+// solver, so a particle run silently mixed methods). Checked against the
+// fallback rule of DEVELOPERS.md ("Fallbacks") and the particle method's
+// fixed iteration count: project rules, no outside source.
+func TestParticleFallbackStaysParticle(t *testing.T) {
+	const n, its = 40, 6
+	k, _ := psf.GaussianIso(1.0)
+	src := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "Float32", Bands: []raster.BandInfo{{NoData: -1, HasNoData: true}}})
+	for i := range src.Bands[0] {
+		src.Bands[0][i] = -1
+	}
+	dst := raster.NewMem(src.M)
+	rep, err := Restore(context.Background(), src, []int{0}, dst, Config{PSF: k, Workers: 2, Smooth: 0.3, SmoothAuto: true,
+		Stop: StopChange, Iterations: its, Method: MethodParticle, Particle: ParticleConfig{PerPixel: 4, ESSThreshold: 0.5, BurnIn: its / 2, Batches: 3}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ch := rep.Bands[0].Choice
+	if rep.Method != "particle" || ch == nil || !strings.HasPrefix(ch.Rule, "fallback: no noise model") ||
+		!strings.Contains(ch.Rule, "particle") || ch.Iterations != its || ch.Smooth != 0.3 {
+		t.Fatalf("method %q, choice %+v; want the particle method's fallback with eps 0.3 and %d iterations", rep.Method, ch, its)
+	}
+}
+
+// The automatic stop's cap is soft: a run whose risk still falls at the cap
+// goes on up to IterationLimit, and the report says when a limit bound the
+// choice. The valley's fields blurred by a sigma-2 PSF want far more than 8
+// iterations. Project rule (DEVELOPERS.md, "Nodata collars and
+// footprints"), no outside source.
+func TestAutoStopPastTheCap(t *testing.T) {
+	const n, capK, limit = 64, 8, 120
+	src, _, _, k := steptest.ValleyScene(t, n, n, 2.0)
+	base := Config{PSF: k, Workers: 2, SmoothAuto: true, Stop: StopAuto, Iterations: capK}
+	_, bound := restoreMem(t, src, []int{0}, base)
+	ext := base
+	ext.IterationLimit = limit
+	_, extended := restoreMem(t, src, []int{0}, ext)
+	bc, ec := bound.Bands[0].Choice, extended.Bands[0].Choice
+	if !bc.CapBound || bc.Iterations != capK || !strings.Contains(bc.Rule, "bound by it") {
+		t.Errorf("cap %d without extension: choice %d iterations, cap_bound %v, rule %q", capK, bc.Iterations, bc.CapBound, bc.Rule)
+	}
+	if ec.Iterations <= capK || ec.Iterations > limit || ec.CapBound || !strings.Contains(ec.Rule, "extended up to") {
+		t.Errorf("with the limit %d: choice %d iterations (cap_bound %v), rule %q; want past the cap %d", limit, ec.Iterations, ec.CapBound, ec.Rule, capK)
 	}
 }

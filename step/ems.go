@@ -25,6 +25,10 @@ type Problem struct {
 	// Record asks the solver to keep the relative change of every
 	// iteration in Result.Changes (a few tiles per scene, for the report).
 	Record bool
+	// SENoise, with SE, asks deterministic solvers for the standard error
+	// the data noise (this variance model) causes: GridEMS writes it into
+	// SE (noisemap.go) and sets Result.HasSE.
+	SENoise *noise.Model
 }
 
 // TileKey names a tile: 0-based band index in the output, tile column, row.
@@ -127,6 +131,9 @@ func Prepare(p *Problem) (nValid int, flux float64) {
 
 // Solve implements Solver.
 func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
+	if p.SE != nil && p.SENoise != nil {
+		return g.solveNoiseMap(ctx, ws, p, dst)
+	}
 	n := p.W * p.H
 	ws.reset(n)
 	nValid, flux := Prepare(p)

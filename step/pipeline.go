@@ -7,6 +7,7 @@ import (
 	"sync"
 
 	"limpid/raster"
+	"limpid/step/noise"
 )
 
 // The one tile pipeline. Both routes, the raster route (Restore and its
@@ -72,13 +73,16 @@ type Solved struct {
 // SolveTile cuts tile key's Problem out of src (Plan.problem's rule: the
 // input window, mirrored at the scene's edges), solves it with solver in
 // wk's memory and returns the solution. record asks the solver for its
-// per-iteration history; withSE hands it a standard-error plane.
-func (p Plan) SolveTile(ctx context.Context, solver Solver, wk *TileWork, key TileKey, src Window, valid ValidFunc, bg float32, record, withSE bool) (Solved, error) {
+// per-iteration history; withSE hands it a standard-error plane, and
+// seNoise (nil: none) the noise model whose propagated error deterministic
+// solvers write there (Problem.SENoise).
+func (p Plan) SolveTile(ctx context.Context, solver Solver, wk *TileWork, key TileKey, src Window, valid ValidFunc, bg float32, record, withSE bool, seNoise *noise.Model) (Solved, error) {
 	prob := p.problem(wk, key, src, valid, bg)
 	prob.Record = record
 	if withSE {
 		wk.se = grow(wk.se, prob.W*prob.H)
 		prob.SE = wk.se
+		prob.SENoise = seNoise
 	}
 	res, err := solver.Solve(ctx, &wk.ws, prob, wk.f)
 	if err != nil {

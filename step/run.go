@@ -75,6 +75,11 @@ type Config struct {
 	// Stop is StopChange (the zero value), StopAuto or StopDiscrepancy;
 	// Iterations is the cap for all three.
 	Stop Stop
+	// IterationLimit, with StopAuto, lets the choice's runs whose risk still
+	// falls at Iterations go on up to it (Resolve sets AutoHardCap when
+	// Iterations was left to its default; 0 or less than Iterations: no
+	// extension).
+	IterationLimit int
 	// Choose is ChooseGlobal (the zero value) or ChoosePerTile.
 	Choose Choose
 	// Noise, when set, replaces the estimated per-band noise model.
@@ -133,9 +138,12 @@ type BandReport struct {
 	FluxAfter      float64 `json:"flux_after"`
 	ValidPixels    int64   `json:"valid_pixels"`
 	MaxIterations  int     `json:"max_iterations"`
-	// Noise is the noise model used (estimated or given), when the stop or
-	// smoothing rule needed one.
+	// Noise is the noise model used (estimated or given), when the stop,
+	// the smoothing rule or the noise error map needed one.
 	Noise *noise.Model `json:"noise,omitempty"`
+	// NoiseSE is the mean over valid pixels of the grid method's noise
+	// error map (DN; noisemap.go), when one was written.
+	NoiseSE float64 `json:"mean_noise_se,omitempty"`
 	// Choice records the automatic smoothing/stop choice.
 	Choice *Choice `json:"choice,omitempty"`
 	// Applied is what the band's final pass ran with, read from its solver.
@@ -276,9 +284,6 @@ func (cfg *Config) Resolve() error {
 		}
 		return cfg.resolveParticle()
 	}
-	if cfg.Uncertainty != nil {
-		return fieldErrorf("Uncertainty", "{Uncertainty}: the grid method has no Monte Carlo error (use {Method} particle)")
-	}
 	return nil
 }
 
@@ -303,6 +308,9 @@ func (cfg *Config) resolveSolver() error {
 	}
 	if cfg.Iterations == 0 {
 		cfg.Iterations = IterationCap(cfg.Stop)
+		if cfg.Stop == StopAuto && cfg.IterationLimit == 0 {
+			cfg.IterationLimit = AutoHardCap
+		}
 	}
 	if cfg.Iterations < 1 || cfg.Iterations > 100000 {
 		return fieldErrorf("Iterations", "{Iterations} %d must be between 1 and 100000", cfg.Iterations)
@@ -423,7 +431,7 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 	}
 	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver,
-		withSE: cfg.Method == MethodParticle}
+		withSE: cfg.Method == MethodParticle || cfg.Uncertainty != nil, dataSE: cfg.Method == MethodGrid && cfg.Uncertainty != nil}
 	if cfg.SmoothAuto || cfg.Stop != StopChange {
 		if cfg.SmoothAuto || cfg.Stop == StopAuto {
 			rep.Choose = cfg.Choose
@@ -433,6 +441,11 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 			return nil, err
 		}
 		r.solver = s
+	}
+	if r.dataSE && r.noise == nil {
+		if _, err := r.bandNoise(ctx); err != nil {
+			return nil, err
+		}
 	}
 	for i := range rep.Bands {
 		rep.Bands[i].Applied = applied(r.solver, i, cfg.SmoothAuto, cfg.Stop == StopAuto, rep.Bands[i].Noise)
@@ -547,9 +560,12 @@ type runner struct {
 	solver Solver
 
 	// withSE: the solver reports standard errors; seSum/seFlux hold the
-	// report's per-band sums (uncertainty.go).
-	withSE        bool
-	seSum, seFlux []float64
+	// report's per-band sums (uncertainty.go). dataSE: they are the grid
+	// method's noise error map (noisemap.go), propagated from noise, the
+	// bands' noise models.
+	withSE, dataSE bool
+	seSum, seFlux  []float64
+	noise          []noise.Model
 }
 
 // strip is a block of source rows of every band: the rows a tile row's
@@ -698,7 +714,11 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 	k := j.key
 	bg := float32(sc.rep.Bands[k.Band].Background)
 	src := Window{Pix: j.strip.rows[k.Band], Y: j.strip.y, W: p.W}
-	s, err := p.SolveTile(ctx, sc.solver, wk, k, src, sc.valid[k.Band], bg, sc.recorded(k), sc.withSE)
+	var nm *noise.Model
+	if sc.dataSE {
+		nm = &sc.noise[k.Band]
+	}
+	s, err := p.SolveTile(ctx, sc.solver, wk, k, src, sc.valid[k.Band], bg, sc.recorded(k), sc.withSE, nm)
 	if err != nil {
 		return &TileError{Band: k.Band, Col: k.Col, Row: k.Row, Err: err}
 	}
@@ -708,7 +728,7 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 	}
 	j.out, j.ox, j.oy = p.Weigh(j.out, wk, k, s.F, bg)
 	if sc.withSE {
-		j.seOut = weighSE(j.seOut, wk, s.Result, j.ox.Len(), j.oy.Len(), s.SE, j.ox, j.oy)
+		j.seOut = weighSE(j.seOut, wk, s.Result, j.ox.Len(), j.oy.Len(), s.SE, j.ox, j.oy, sc.dataSE)
 	}
 	return nil
 }

@@ -10,10 +10,17 @@ import "math"
 // blending ramp it dips below either tile's SE, as averaging two independent
 // estimates does.
 
-// weighSE returns w^2 se^2 over a tile's output window ox x oy (ow x oh),
-// grown into out, with se read from the window it covers and the weights
-// Plan.Weigh left in wk; zeros when the solver reported no standard error.
-func weighSE(out []float32, wk *TileWork, res Result, ow, oh int, se Window, ox, oy Span) []float32 {
+//
+// The noise error map (linear) is blended linearly instead: overlapping
+// tiles restore the same data, so their data-noise errors are nearly
+// equal (fully correlated), and the error of sum_t w_t f_t is then
+// sum_t w_t se_t.
+
+// weighSE returns w^2 se^2 (linear: w se) over a tile's output window ox x
+// oy (ow x oh), grown into out, with se read from the window it covers and
+// the weights Plan.Weigh left in wk; zeros when the solver reported no
+// standard error.
+func weighSE(out []float32, wk *TileWork, res Result, ow, oh int, se Window, ox, oy Span, linear bool) []float32 {
 	out = grow(out, ow*oh)
 	for y := 0; y < oh; y++ {
 		orow := out[y*ow : (y+1)*ow]
@@ -25,7 +32,11 @@ func weighSE(out []float32, wk *TileWork, res Result, ow, oh int, se Window, ox,
 		wy := wk.wy[y]
 		for x := range orow {
 			w := wy * wk.wx[x]
-			orow[x] = w * w * serow[x] * serow[x]
+			if linear {
+				orow[x] = w * serow[x]
+			} else {
+				orow[x] = w * w * serow[x] * serow[x]
+			}
 		}
 	}
 	return out
@@ -46,7 +57,10 @@ func (sc *scan) outputSE(n int, st *strip) [][]float32 {
 			for x, v := range srow {
 				i := y*W + x
 				if sc.valid[b](v) {
-					se := float32(math.Sqrt(float64(max(acc[i], 0))))
+					se := acc[i]
+					if !sc.dataSE {
+						se = float32(math.Sqrt(float64(max(acc[i], 0))))
+					}
 					out[i] = se
 					sc.seSum[b] += float64(se)
 					sc.seFlux[b] += float64(img[i]) - bg
@@ -61,6 +75,14 @@ func (sc *scan) outputSE(n int, st *strip) [][]float32 {
 
 // finishSE fills the report's per-band standard-error summary.
 func (r *runner) finishSE() {
+	if r.dataSE {
+		for b := range r.seSum {
+			if nv := r.rep.Bands[b].ValidPixels; nv > 0 {
+				r.rep.Bands[b].NoiseSE = r.seSum[b] / float64(nv)
+			}
+		}
+		return
+	}
 	if r.rep.Particle == nil {
 		return
 	}

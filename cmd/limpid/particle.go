@@ -26,7 +26,7 @@ func particleFlags() []cli.Flag {
 		&cli.StringFlag{Name: "start", Value: step.DefaultStart.String(), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
 		&cli.IntFlag{Name: "batches", Value: step.DefaultBatches, Usage: "particle method: batch means for the Monte Carlo standard error (2 - iterations after burn-in)"},
 		&cli.IntFlag{Name: "replicates", Value: 0, Usage: "particle method: independent clouds whose spread gives the standard error (must divide --particles-per-pixel; 1 = one cloud with batch means; 0 = auto: 4, 2 or 1)"},
-		&cli.StringFlag{Name: "uncertainty", Usage: "particle method: write the per-pixel Monte Carlo standard error (DN, float32, same grid and bands) to this GeoTIFF"},
+		&cli.StringFlag{Name: "uncertainty", Usage: "write a per-pixel error map (DN, float32, same grid and bands, NaN nodata) to this raster: with the grid method the standard deviation the data noise causes (the band's noise model propagated through the restoration); with the particle method the Monte Carlo standard error. Neither holds PSF or noise-model errors"},
 	}
 }
 
@@ -47,9 +47,6 @@ func parseParticle(c *cli.Context, cfg *step.Config, j *restoreJob) error {
 		return usagef("--ess-threshold %g must be between 0 and 1", v)
 	}
 	if cfg.Method != step.MethodParticle {
-		if j.uncPath != "" {
-			return usagef("--uncertainty %s: the grid method has no Monte Carlo error; use --method particle", j.uncPath)
-		}
 		return nil
 	}
 	pc := step.ParticleConfig{PerPixel: c.Int("particles-per-pixel"), ESSThreshold: c.Float64("ess-threshold"),

@@ -13,7 +13,7 @@ import (
 // Bad particle parameters exit 2 with one line naming the flag and leave
 // nothing at OUTPUT or at the --uncertainty path (the project's error
 // contract, README "Usage": K <= 0, eps < 0, burn-in >= iterations; the
-// grid method has no Monte Carlo error).
+// grid method writes its noise error map instead, TestGridNoiseMapRaster).
 func TestParticleBadParameters(t *testing.T) {
 	dir := t.TempDir()
 	obs := fixture("observed.tif")
@@ -36,7 +36,6 @@ func TestParticleBadParameters(t *testing.T) {
 		{"start", append(p, "--start", "zero"), "--start"},
 		{"batches", append(p, "--iterations", "20", "--burn-in", "15", "--replicates", "1", "--batches", "6"), "--batches"},
 		{"replicates", append(p, "--particles-per-pixel", "6", "--replicates", "4"), "--replicates 4 must divide --particles-per-pixel 6"},
-		{"uncertainty with grid", []string{"--psf", "gaussian:sigma=1", "--uncertainty", unc}, "grid method has no Monte Carlo error"},
 		{"stop auto", append(p, "--stop", "auto"), "the particle method runs a fixed number of iterations"},
 		{"stop discrepancy", append(p, "--stop", "discrepancy", "--smooth", "0.3"), "the particle method runs a fixed number of iterations"},
 		{"uncertainty stdout", append(p, "--uncertainty", "-"), "--uncertainty"},
@@ -164,6 +163,66 @@ func checkUncertaintyRaster(t *testing.T, out, u, rep string) {
 		const meanTol = 1e-6
 		if m := s / float64(nv); math.Abs(m-r.Restoration.Particle.Bands[bi].MeanSE) > meanTol*m || !(m > 0) {
 			t.Errorf("band %d: raster mean SE %g, report %g", bi+1, m, r.Restoration.Particle.Bands[bi].MeanSE)
+		}
+	}
+}
+
+// The grid method's --uncertainty is the noise error map (step's
+// TestNoiseMapMatchesMonteCarlo checks its values against a Monte Carlo):
+// here the product side. Source: GDAL's gdalinfo -json (gdal-bin 3.6) as
+// the outside reader: the map has the image's grid and CRS, Float32 bands
+// with NaN nodata, the noise-map label, and a mean equal to the report's
+// mean_noise_se per band (relative 1e-6: float32 values summed in
+// float64, as in checkUncertaintyRaster).
+func TestGridNoiseMapRaster(t *testing.T) {
+	const meanTol = 1e-6
+	dir := t.TempDir()
+	in := cropFixture(t, dir, 128)
+	out, u, rep := filepath.Join(dir, "o.tif"), filepath.Join(dir, "u.tif"), filepath.Join(dir, "r.json")
+	code, _, stderr := limpid(t, nil, "restore", "--psf", "gaussian:sigma=1.4", "--smooth", "0.3", "--stop", "change", "--iterations", "15",
+		"--tile", "64", "--bands", "3,1", "--uncertainty", u, "--report", rep, in, out)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	info, got := gdalinfo(t, out), gdalinfo(t, u)
+	for _, key := range []string{"geoTransform", "size", "coordinateSystem"} {
+		if mustJSON(info[key]) != mustJSON(got[key]) {
+			t.Errorf("%s: image %s, noise map %s", key, mustJSON(info[key]), mustJSON(got[key]))
+		}
+	}
+	if md := mustJSON(got["metadata"]); !strings.Contains(md, "noise standard error") {
+		t.Errorf("noise map metadata lacks its label: %s", md)
+	}
+	var r struct {
+		Restoration struct {
+			Method string `json:"method"`
+			Bands  []struct {
+				NoiseSE float64 `json:"mean_noise_se"`
+			} `json:"bands"`
+		} `json:"restoration"`
+	}
+	rb, _ := os.ReadFile(rep)
+	if err := json.Unmarshal(rb, &r); err != nil {
+		t.Fatal(err)
+	}
+	_, planes, err := readAll(u)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Restoration.Method != "grid" || len(r.Restoration.Bands) != 2 || len(planes) != 2 {
+		t.Fatalf("report: %s", rb)
+	}
+	for bi, pl := range planes {
+		var s float64
+		var nv int
+		for _, v := range pl {
+			if !math.IsNaN(float64(v)) {
+				s += float64(v)
+				nv++
+			}
+		}
+		if m := s / float64(nv); math.Abs(m-r.Restoration.Bands[bi].NoiseSE) > meanTol*m || !(m > 0) {
+			t.Errorf("band %d: map mean %g DN, report %g", bi+1, m, r.Restoration.Bands[bi].NoiseSE)
 		}
 	}
 }

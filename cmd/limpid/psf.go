@@ -149,7 +149,8 @@ func psfMeasureCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
 regions, 2-10 degrees off the pixel axes, crossing the middle of the window;
 the outer two thirds across the edge must be flat. Each edge gives the system
 e-SFR as ISO 12233 defines it (pixel aperture included: mtf_nyquist, mtf50,
-fwhm) and the restoration sigma with the aperture removed (sigma: the fit of
+fwhm; mtf_nyquist with the noise floor mtf_nyquist_floor removed) and the
+restoration sigma with the aperture removed (sigma: the fit of
 exp(-2 pi^2 s^2 f^2)|sinc f| to the e-SFR, run through the same binning,
 derivative and window as the measurement). Near-vertical edges give sigma_x,
 near-horizontal ones sigma_y.
@@ -201,6 +202,8 @@ type edgeSummary struct {
 	FitRMS      float64  `json:"fit_rms"`
 	FitMaxFreq  float64  `json:"fit_max_frequency"`
 	MTFNyquist  float64  `json:"mtf_nyquist"`
+	NyqFloor    float64  `json:"mtf_nyquist_floor"`
+	NyqRaw      float64  `json:"mtf_nyquist_raw"`
 	MTF50       *float64 `json:"mtf50"`
 	FWHM        float64  `json:"fwhm"`
 	RowsUsed    int      `json:"rows_used"`
@@ -230,6 +233,7 @@ type measureSummary struct {
 	SigmaY       *float64      `json:"sigma_y"`
 	SigmaFrom    string        `json:"sigma_from"`
 	MTFNyquist   *float64      `json:"mtf_nyquist"`
+	NyqFloor     *float64      `json:"mtf_nyquist_floor"`
 	MTF50        *float64      `json:"mtf50"`
 	FWHM         *float64      `json:"fwhm"`
 	EdgeAngleDeg *float64      `json:"edge_angle_deg"`
@@ -395,7 +399,7 @@ func measureScene(src raster.Reader, args measureArgs) (measureSummary, error) {
 		}
 	}
 	sum := measureSummary{Input: args.in, Band: args.band, Edges: edges,
-		Convention:  "mtf_nyquist, mtf50 and fwhm are the system e-SFR/LSF (ISO 12233, pixel aperture included); sigma, sigma_x and sigma_y are restoration sigmas in pixels (pixel aperture removed), for --psf gaussian:sx=SIGMA_X,sy=SIGMA_Y",
+		Convention:  "mtf_nyquist, mtf50 and fwhm are the system e-SFR/LSF (ISO 12233, pixel aperture included; mtf_nyquist with the noise floor mtf_nyquist_floor removed); sigma, sigma_x and sigma_y are restoration sigmas in pixels (pixel aperture removed), for --psf gaussian:sx=SIGMA_X,sy=SIGMA_Y",
 		CombineRule: psf.CombineRule}
 	if args.point != nil {
 		p, err := measurePointTarget(src, b, args.point, args.pointWindow)
@@ -512,7 +516,7 @@ func writeMeasureOutputs(args measureArgs, sum *measureSummary) error {
 
 func summarizeEdge(r *psf.EdgeResult, wnd [4]int, source string) edgeSummary {
 	e := edgeSummary{Window: wnd, Source: source, AngleDeg: r.AngleDeg, Sigma: r.Sigma, SigmaLSF: r.SigmaLSF, FitRMS: r.FitRMS,
-		FitMaxFreq: r.FitMax, MTFNyquist: r.MTFNyquist, FWHM: r.FWHM, RowsUsed: r.Rows, Contrast: math.Abs(r.High - r.Low),
+		FitMaxFreq: r.FitMax, MTFNyquist: r.MTFNyquist, NyqFloor: r.MTFNyquistFloor, NyqRaw: r.MTFNyquistRaw, FWHM: r.FWHM, RowsUsed: r.Rows, Contrast: math.Abs(r.High - r.Low),
 		SNR: r.SNR, Used: true, Warnings: r.Warnings, res: r}
 	if !math.IsNaN(r.MTF50) {
 		v := r.MTF50
@@ -543,6 +547,7 @@ func combine(s *measureSummary) {
 	}
 	s.Sigma, s.SigmaX, s.SigmaY, s.SigmaFrom = est.Sigma, est.SigmaX, est.SigmaY, est.SigmaFrom
 	s.MTFNyquist, s.MTF50, s.FWHM, s.EdgeAngleDeg = est.MTFNyquist, est.MTF50, est.FWHM, est.EdgeAngleDeg
+	s.NyqFloor = est.MTFNyquistFloor
 }
 
 func fmtPtr(v *float64, format string) string {

@@ -18,6 +18,10 @@ const Label = "restored (deconvolved) image; keep the original"
 // uncertaintyLabel is the LIMPID_PRODUCT item of a standard-error raster.
 const uncertaintyLabel = "Monte Carlo standard error (DN) of a restored (deconvolved) image"
 
+// noiseMapLabel is the LIMPID_PRODUCT item of the grid method's noise error
+// map.
+const noiseMapLabel = "noise standard error (DN) of a restored (deconvolved) image: the data noise propagated through the restoration; PSF and noise-model errors are not in it"
+
 // Meta is the output's description: the input's, restricted to bands
 // (0-based, output order), Float32 when float32 is set, with a copy of the
 // input's metadata.
@@ -151,6 +155,25 @@ func Metadata(rep *step.Report) Record {
 func UncertaintyMetadata(rep *step.Report) Record {
 	var scene []Item
 	var bands [][]Item
+	if rep.Particle == nil {
+		// The grid method's noise error map.
+		scene = []Item{
+			{"LIMPID_PRODUCT", noiseMapLabel},
+			{"LIMPID_VERSION", rep.Version},
+			{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
+			{"LIMPID_PSF", rep.PSF},
+			{"LIMPID_SE_BLEND", step.NoiseMapBlendRule},
+			{"LIMPID_SE_METHOD", step.NoiseMapRule},
+		}
+		for _, b := range rep.Bands {
+			items := []Item{{"LIMPID_MEAN_NOISE_STANDARD_ERROR", fmt.Sprintf("%.6g", b.NoiseSE)}}
+			if b.Noise != nil {
+				items = append(items, Item{"LIMPID_NOISE_MODEL", fmt.Sprintf("var = %.6g * DN + %.6g (%s)", b.Noise.A, b.Noise.B, b.Noise.Source)})
+			}
+			bands = append(bands, items)
+		}
+		return Record{Scene: scene, Bands: bands}
+	}
 	params, _ := json.Marshal(ParticleParams(rep.Particle))
 	scene = []Item{
 		{"LIMPID_PRODUCT", uncertaintyLabel},

@@ -377,7 +377,7 @@ func (st *streamRun) finish(t *arrowio.Tile, failed bool) error {
 // reports one.
 func restoreTile(ctx context.Context, solver step.Solver, p step.Plan, wk *step.TileWork, t *arrowio.Tile, valid step.ValidFunc, bg float32) error {
 	key := step.TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}
-	s, err := p.SolveTile(ctx, solver, wk, key, step.Window{Pix: t.Pix, X: t.X, Y: t.Y, W: t.W}, valid, bg, false, true)
+	s, err := p.SolveTile(ctx, solver, wk, key, step.Window{Pix: t.Pix, X: t.X, Y: t.Y, W: t.W}, valid, bg, false, true, nil)
 	if err != nil {
 		return err
 	}
