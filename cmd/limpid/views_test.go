@@ -7,7 +7,9 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"math"
 	"regexp"
+	"sort"
 	"strings"
 	"testing"
 
@@ -58,9 +60,19 @@ func TestRestoreQuicklook(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		const crop, gap, head = 256, 8, 18
-		if b := img.Bounds(); b.Dx() != c.panels*crop+(c.panels-1)*gap || b.Dy() != crop+head {
-			t.Fatalf("%s: quicklook %v", c.name, b)
+		const crop, gap = 256, 8
+		head := img.Bounds().Dy() - crop
+		// A header for the title, the composite's bands, the stretch and the
+		// panel titles: four lines of 13 px text at least.
+		if b := img.Bounds(); b.Dx() != c.panels*crop+(c.panels-1)*gap || head < 4*13 {
+			t.Fatalf("%s: quicklook %v (header %d px)", c.name, b, head)
+		}
+		if c.panels == 3 {
+			if !hasGreyRamp(img, 2*(crop+gap), crop, head) {
+				t.Errorf("%s: no black-to-white bar above the error panel", c.name)
+			}
+		} else {
+			checkMidGrey(t, img, head)
 		}
 		for k := 0; k < c.panels; k++ {
 			// The bar's white rows start one row below its frame's top.
@@ -78,6 +90,127 @@ func TestRestoreQuicklook(t *testing.T) {
 		code, _, errs := limpid(t, nil, a...)
 		if code != 2 || strings.Count(strings.TrimSpace(errs), "\n") != 0 {
 			t.Errorf("%v: exit %d, %q", a, code, errs)
+		}
+	}
+}
+
+// hasGreyRamp reports whether some header row above the panel at x0 (w
+// pixels wide) holds a grey ramp from black to white, left to right (the
+// error panel's key).
+func hasGreyRamp(img image.Image, x0, w, head int) bool {
+	for y := 0; y < head; y++ {
+		prev, ok := -1, true
+		first, last := -1, -1
+		for x := x0 + 4; x < x0+w-4 && ok; x++ {
+			r, g, b, _ := img.At(x, y).RGBA()
+			if r != g || g != b || int(r>>8) < prev {
+				ok = false
+			}
+			prev = int(r >> 8)
+			if first < 0 {
+				first = prev
+			}
+			last = prev
+		}
+		if ok && first <= 5 && last >= 250 {
+			return true
+		}
+	}
+	return false
+}
+
+// checkMidGrey: in the observed panel of the fixture's quicklook, the
+// median valid pixel of each channel is well above black and the luma of
+// the median pixel is a mid grey. The fixture's tarp and point targets
+// (about 3.5 % of its pixels near 3400 DN, its fields 170-950 DN) put a
+// plain 2-98 % stretch's white on the tarp: its luma was 23 of 255 (red
+// 15, green 29, blue 10) before the outlier rule.
+// Source: common practice, no source (a linear 2-98 % stretch should show
+// the scene's bulk mid-range); luma weights 0.299, 0.587, 0.114 from ITU-R
+// BT.601.
+func checkMidGrey(t *testing.T, img image.Image, head int) {
+	t.Helper()
+	_, planes, err := readAll(fixture("observed.tif"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	const n = 256 // the fixture is the whole crop
+	var ch [3][]float64
+	for i := 0; i < n*n; i++ {
+		if planes[0][i] == 0 { // nodata 0 in every band
+			continue
+		}
+		r, g, b, _ := img.At(i%n, head+i/n).RGBA()
+		ch[0], ch[1], ch[2] = append(ch[0], float64(r>>8)), append(ch[1], float64(g>>8)), append(ch[2], float64(b>>8))
+	}
+	var med [3]float64
+	for c := range ch {
+		sort.Float64s(ch[c])
+		med[c] = ch[c][len(ch[c])/2]
+		// Not near black: at least a fifth of full scale.
+		// common practice, no source
+		if med[c] < 0.2*255 {
+			t.Errorf("channel %d: the median valid pixel shows as %.0f of 255 (near black)", c, med[c])
+		}
+	}
+	// Mid grey: the luma within the middle half of the scale.
+	// common practice, no source
+	if y := 0.299*med[0] + 0.587*med[1] + 0.114*med[2]; y < 0.25*255 || y > 0.75*255 {
+		t.Errorf("luma of the median pixel %.0f of 255, want a mid grey (64-191)", y)
+	}
+}
+
+// TestQuicklookStretchSetsOutliersAside: a scene whose bulk spans 200-800 DN
+// with 5 % of its pixels in a bright cluster at 3400 DN (a tarp) gets a
+// stretch whose white lies in the bulk; without the cluster, the stretch is
+// the plain 2-98 % one. Source: common practice, no source (2-98 %
+// percentile stretch); Hampel's outlier identifier (JASA 69(346):383, 1974)
+// for setting the cluster aside.
+func TestQuicklookStretchSetsOutliersAside(t *testing.T) {
+	const n = 100 * 100
+	mk := func(bright int) *qlScene {
+		p := make([]float32, n)
+		for i := range p {
+			p[i] = float32(200 + 600*(i%1000)/999) // uniform 200-800
+			if i%100 < bright {
+				p[i] = 3400
+			}
+		}
+		valid := make([]bool, n)
+		for i := range valid {
+			valid[i] = true
+		}
+		return &qlScene{cw: 100, ch: 100, obs: [][]float32{p}, res: [][]float32{p}, valid: valid}
+	}
+	lo, hi, out := mk(5).stretch()
+	if hi[0] > 800 || lo[0] < 200 || out[0] < 0.049 || out[0] > 0.051 {
+		t.Errorf("with a 5 %% bright cluster: stretch %.0f-%.0f, %.3f set aside; want within 200-800, 0.05", lo[0], hi[0], out[0])
+	}
+	// Nearest-rank percentiles of 200 + 600 k/999: 2 % -> 212, 98 % -> 788.
+	lo, hi, out = mk(0).stretch()
+	if math.Abs(lo[0]-212) > 1 || math.Abs(hi[0]-788) > 1 || out[0] != 0 {
+		t.Errorf("without outliers: stretch %.1f-%.1f, %.3f set aside; want 212-788, 0", lo[0], hi[0], out[0])
+	}
+}
+
+// TestQuicklookHeader: the header names the scene, the PSF, the method,
+// the bands of the colour composite by number and name, and the stretch in
+// DN.
+func TestQuicklookHeader(t *testing.T) {
+	s, err := cropScene(fixture("observed.tif"), []int{0, 1, 2, 3}, fixture("observed.tif"), "", qlInfo{Scene: "observed.tif", PSF: "PSF gaussian:sigma=1.4", Method: "EMS grid"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	lo, hi, out := s.stretch()
+	text := strings.Join(s.header(lo, hi, out), "\n")
+	for _, want := range []string{"observed.tif", "PSF gaussian:sigma=1.4", "EMS grid", "R, G, B = band 3 (red), band 2 (green), band 1 (blue)", "linear stretch (DN)", "R\u00a0"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("header lacks %q:\n%s", want, text)
+		}
+	}
+	for _, l := range wrapText(text, 40) {
+		if len(l) > 40 && strings.Contains(l, " ") {
+			t.Errorf("wrapped line longer than 40: %q", l)
 		}
 	}
 }
