@@ -377,8 +377,13 @@ func TestHTMLReportSurvivesAnUndrawableFigure(t *testing.T) {
 	if strings.Contains(html, `id="convergence"`) == strings.Contains(html, `id="convergence-note"`) {
 		t.Error("the convergence section must hold either the figure or the note, not both or neither")
 	}
-	if strings.Contains(html, `id="convergence-note"`) && !strings.Contains(errs, "limpid: warning: --report-html: the convergence figure is left out") {
-		t.Errorf("a left-out figure needs a warning line, stderr: %s", errs)
+	if strings.Contains(html, "could not be drawn") != strings.Contains(errs, "limpid: warning: --report-html: the convergence figure is left out") {
+		t.Errorf("a figure that could not be drawn needs a warning line (and only then), stderr: %s", errs)
+	}
+	// One tile and fixed smoothing: nothing worth a plot, so no empty
+	// figure: the note says why, and it is not a warning.
+	if !strings.Contains(html, "One tile per band") || !strings.Contains(html, "No risk curves") {
+		t.Errorf("a one-tile run with fixed smoothing should say why there is no convergence figure")
 	}
 	if _, err := os.Stat(out); err != nil {
 		t.Errorf("the product is missing: %v", err)
