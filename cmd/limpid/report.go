@@ -45,14 +45,14 @@ type htmlBand struct {
 }
 
 type htmlPage struct {
-	Title                          string
-	Rows                           [][2]string
-	PSFPlot, Quicklook, ConvPlot   template.URL
-	Bands                          []htmlBand
-	MetricWindow                   string
-	Caution                        string
-	Finished                       string
-	HasUncertainty                 bool
+	Title                        string
+	Rows                         [][2]string
+	PSFPlot, Quicklook, ConvPlot template.URL
+	Bands                        []htmlBand
+	MetricWindow                 string
+	Caution                      string
+	Finished                     string
+	HasUncertainty               bool
 	// ConvCaption describes the convergence figure as drawn.
 	ConvCaption string
 	// PSFNote and ConvNote replace a figure that could not be drawn.
