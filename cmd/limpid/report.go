@@ -7,6 +7,7 @@ import (
 	"html/template"
 	"image/color"
 	"math"
+	"strconv"
 	"strings"
 	"time"
 
@@ -539,6 +540,9 @@ func tilesPlot(rep *step.Report, names []string) (*plot.Plot, string, error) {
 		return nil, "", err
 	}
 	if band >= 0 {
+		if pt.X.Label.Text == "tile (plan order)" {
+			return pt, fmt.Sprintf("each tile's final relative L1 change in plan order, %s, one point per tile; every tile ran %d iterations (log axis)%s.", names[band], rep.Bands[band].Tiles[0].Iterations, particle), nil
+		}
 		return pt, fmt.Sprintf("each tile's iteration count against its final relative L1 change, %s, one point per tile (log axis)%s.", names[band], particle), nil
 	}
 	pt, err = iterationsPlot(rep, names)
@@ -583,10 +587,26 @@ func addFinalChanges(pt *plot.Plot, rep *step.Report, names []string) (int, erro
 	for i, b := range rep.Bands {
 		var xy plotter.XYs
 		lo, hi := math.Inf(1), math.Inf(-1)
-		for _, t := range b.Tiles {
+		same := true
+		for k, t := range b.Tiles {
+			same = same && t.Iterations == b.Tiles[0].Iterations
 			if t.Change > 0 && !math.IsInf(t.Change, 0) {
-				xy = append(xy, plotter.XY{X: float64(t.Iterations), Y: t.Change})
+				xy = append(xy, plotter.XY{X: float64(k), Y: t.Change})
 				lo, hi = math.Min(lo, t.Change), math.Max(hi, t.Change)
+			}
+		}
+		// Against the iterations, unless every tile ran the same count
+		// (fixed stops, the particle method): then in plan order.
+		if same {
+			pt.Title.Text = fmt.Sprintf("tiles: final change (each ran %d iterations)", b.Tiles[0].Iterations)
+			pt.X.Label.Text = "tile (plan order)"
+		} else {
+			k := 0
+			for _, t := range b.Tiles {
+				if t.Change > 0 && !math.IsInf(t.Change, 0) {
+					xy[k].X = float64(t.Iterations)
+					k++
+				}
 			}
 		}
 		if len(xy) == 0 {
@@ -664,7 +684,7 @@ func riskPlot(rep *step.Report, names []string) (*plot.Plot, string, error) {
 	pr.Y.Scale = plot.LogScale{}
 	pr.Y.Tick.Marker = plot.LogTicks{Prec: -1}
 	pr.Y.Label.Text = "risk - min risk (summed over tiles)"
-	drawn := false
+	drawn, marked := false, false
 	chosenEnd := 0.0
 	for i, c := range ch.Candidates {
 		var xy plotter.XYs
@@ -689,6 +709,7 @@ func riskPlot(rep *step.Report, names []string) (*plot.Plot, string, error) {
 					m.Shape, m.Color, m.Radius = draw.CircleGlyph{}, plotutil.Color(i), vg.Points(4)
 					pr.Add(m)
 					pr.Legend.Add(fmt.Sprintf("its risk minimum, %d iterations", c.BestIterations), m)
+					marked = true
 				}
 			}
 		}
@@ -709,12 +730,31 @@ func riskPlot(rep *step.Report, names []string) (*plot.Plot, string, error) {
 		return nil, "", err
 	}
 	pr.X.Min, pr.X.Max = 0, math.Max(xmax, it)*1.05
-	text := fmt.Sprintf("%s's risk estimate per iteration, summed over the %d tile(s) used, per candidate bandwidth (log axis of risk - min risk); the thick curve is the chosen smoothing %g, the circle its risk minimum, the dashed vertical line the iterations used (%d).",
-		names[0], ch.TilesUsed, ch.Smooth, ch.Iterations)
+	pr.X.Tick.Marker = plainTicks{}
+	circle := ""
+	if marked {
+		circle = " the circle its risk minimum,"
+	}
+	text := fmt.Sprintf("%s's risk estimate per iteration, summed over the %d tile(s) used, per candidate bandwidth (log axis of risk - min risk); the thick curve is the chosen smoothing %g,%s the dashed vertical line the iterations used (%d).",
+		names[0], ch.TilesUsed, ch.Smooth, circle, ch.Iterations)
 	if rep.Method == string(step.MethodParticle) {
 		text += " The curves are the grid EMS risk estimate that chose the bandwidth; the particle method runs the fixed --iterations count."
 	} else if it > chosenEnd {
 		text += fmt.Sprintf(" The iterations used lie beyond the summed curve (it ends at %d): each tile stops at its own risk minimum plus a margin, so the curve summed over the iterations every tile evaluated ends earlier; the choice is the valid-pixel-weighted median of the tiles' own minima.", int(chosenEnd))
 	}
 	return pr, text, nil
+}
+
+// plainTicks are gonum's default ticks labelled in the shortest form
+// ("30", not "30.00").
+type plainTicks struct{}
+
+func (plainTicks) Ticks(lo, hi float64) []plot.Tick {
+	t := plot.DefaultTicks{}.Ticks(lo, hi)
+	for i := range t {
+		if t[i].Label != "" {
+			t[i].Label = strconv.FormatFloat(t[i].Value, 'g', -1, 64)
+		}
+	}
+	return t
 }
