@@ -488,14 +488,21 @@ func cropScene(obsPath string, obsBands []int, resPath, uncPath string, info qlI
 // bandLabel names band n (1-based) for a reader: "band 3 (red)" from its
 // description, else its colour interpretation, else "band 3".
 func bandLabel(n int, b raster.BandInfo) string {
-	name := strings.TrimSpace(b.Description)
-	if name == "" && b.ColorInterp != "" && !strings.EqualFold(b.ColorInterp, "Undefined") {
-		name = strings.ToLower(b.ColorInterp)
-	}
+	name := bandName(b)
 	if name == "" {
 		return fmt.Sprintf("band %d", n)
 	}
 	return fmt.Sprintf("band %d (%s)", n, name)
+}
+
+// bandName is a band's description, else its colour interpretation in
+// lower case, else "".
+func bandName(b raster.BandInfo) string {
+	name := strings.TrimSpace(b.Description)
+	if name == "" && b.ColorInterp != "" && !strings.EqualFold(b.ColorInterp, "Undefined") {
+		name = strings.ToLower(b.ColorInterp)
+	}
+	return name
 }
 
 // readBandsWindow reads the cw x ch window at (x0, y0) of the given 0-based bands.

@@ -121,13 +121,13 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 	if err != nil {
 		return nil, nil, err
 	}
-	// Band names for the table and the plots: "band 3 (red)" from the input
-	// band's description or colour interpretation.
+	// Band names for the table and the plots: the input band's description
+	// or colour interpretation ("red"), else "band 3" (output numbering).
 	names := make([]string, len(rep.Bands))
 	for i, b := range rep.Bands {
 		names[i] = fmt.Sprintf("band %d", b.Band)
-		if i < len(infos) {
-			names[i] = bandLabel(b.Band, infos[i])
+		if i < len(infos) && bandName(infos[i]) != "" {
+			names[i] = bandName(infos[i])
 		}
 	}
 	// The caution constant is wrapped for terminals; the page reflows it.
