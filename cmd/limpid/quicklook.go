@@ -199,9 +199,9 @@ func (s *qlScene) header(lo, hi, out []float64) []string {
 		st = append(st, fmt.Sprintf("%s\u00a0%.4g-%.4g", ch[c], lo[c], hi[c]))
 		maxOut = math.Max(maxOut, out[c])
 	}
-	stretch := "linear stretch (DN), shared by observed and restored: " + strings.Join(st, ", ") + " (2-98 % of the valid pixels"
+	stretch := "linear stretch (DN), shared by observed and restored: " + strings.Join(st, ", ") + " (2-98\u00a0% of the valid pixels"
 	if maxOut > 0 {
-		stretch += fmt.Sprintf("; up to %.1f %% outliers beyond median +- %d robust sigma set aside", 100*maxOut, qlOutlierSigmas)
+		stretch += fmt.Sprintf("; up to %.1f\u00a0%% outliers beyond median +- %d robust sigma set aside", 100*maxOut, qlOutlierSigmas)
 	}
 	stretch += ")"
 	var pars []string
