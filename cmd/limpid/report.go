@@ -81,7 +81,7 @@ measurement such as <code>limpid psf measure</code> sees); the dotted grey line 
 coincide are drawn with distinct widths and dashes and named so in the legend.</p>{{else}}<p class="note" id="psf-note">{{.PSFNote}}</p>{{end}}
 <h2>Observed | restored{{if .HasUncertainty}} | Monte Carlo standard error{{end}}</h2>
 <p>Centre crop; the header names the bands of the composite and prints the stretch in DN. Observed and restored share one
-linear 2-98 % stretch per channel, taken after values beyond 6 robust standard deviations of the median (bright tarps,
+linear 2-98 % stretch per channel, taken after values beyond 10 robust standard deviations of the median (bright tarps,
 clouds, saturated targets) are set aside;{{if .HasUncertainty}} the standard error (DN) has its own 0-98 % grey scale, keyed by the bar above it;{{end}}
 scale bar in map units.</p>
 <img id="quicklook" alt="quicklook" src="{{.Quicklook}}">

@@ -456,3 +456,26 @@ func TestRiskPlotReachesTheIterationsUsed(t *testing.T) {
 		t.Errorf("convergence figure: %v", err)
 	}
 }
+
+// TestQuicklookStretchOnTheFixture: on the demo-like fixture, the stretch's
+// white sets the tarp aside (about 3.5 % of the pixels near 3400 DN) but
+// keeps the bright parcels: the red channel's 90th percentile of the valid
+// pixels is 886 DN and its 95th 944 DN (numpy.percentile under Debian's
+// python3-gdal, run on testdata/valley256/observed.tif band 3).
+// Source: common practice, no source (a quicklook's white shows the
+// brightest land cover, not calibration targets).
+func TestQuicklookStretchOnTheFixture(t *testing.T) {
+	s, err := cropScene(fixture("observed.tif"), []int{0, 1, 2, 3}, fixture("observed.tif"), "", qlInfo{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, hi, out := s.stretch()
+	if hi[0] < 886 || hi[0] > 2000 {
+		t.Errorf("red white point %.0f DN: want between the parcels (886) and the tarp (3400)", hi[0])
+	}
+	// The tarp and point targets, about 3.5 % (measured as above: 3.5 % of
+	// the red band's valid pixels exceed 2000 DN), are what is set aside.
+	if out[0] < 0.03 || out[0] > 0.04 {
+		t.Errorf("red: %.3f of the values set aside, want the tarp's 0.035", out[0])
+	}
+}
