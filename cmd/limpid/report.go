@@ -671,7 +671,7 @@ func riskPlot(rep *step.Report, names []string) (*plot.Plot, string, error) {
 	pr := plot.New()
 	pr.X.Label.Text = "iteration"
 	pr.Legend.Top = true
-	pr.Title.Text = fmt.Sprintf("%s: summed risk per candidate bandwidth", names[0])
+	pr.Title.Text = fmt.Sprintf("%s: risk summed over tiles, per candidate", names[0])
 	lo, hi, xmax := math.Inf(1), math.Inf(-1), 0.0
 	for _, c := range ch.Candidates {
 		for _, p := range c.Curve {
@@ -683,7 +683,9 @@ func riskPlot(rep *step.Report, names []string) (*plot.Plot, string, error) {
 	eps := 1e-4 * math.Max(hi-lo, 1e-300)
 	pr.Y.Scale = plot.LogScale{}
 	pr.Y.Tick.Marker = plot.LogTicks{Prec: -1}
-	pr.Y.Label.Text = "risk - min risk (summed over tiles)"
+	// Short: gonum shrinks the data area to fit an axis label longer than
+	// the axis.
+	pr.Y.Label.Text = "risk - min risk"
 	drawn, marked := false, false
 	chosenEnd := 0.0
 	for i, c := range ch.Candidates {
