@@ -64,7 +64,7 @@ var pageTmpl = template.Must(template.New("page").Parse(`<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>{{.Title}}</title>
 <style>
 body{font-family:sans-serif;max-width:1100px;margin:1em auto;color:#222}
-table{border-collapse:collapse;margin:0.5em 0}td,th{border:1px solid #bbb;padding:2px 6px;text-align:right}
+table{border-collapse:collapse;margin:0.5em 0;font-size:90%}td,th{border:1px solid #bbb;padding:2px 6px;text-align:right}
 th{background:#eee}td.l{text-align:left}img{max-width:100%;border:1px solid #ccc}
 .caution{border:2px solid #a33;padding:0.6em;background:#fff4f4}
 </style></head><body>
@@ -89,7 +89,7 @@ scale bar in map units.</p>
 <p>Noise, MTF50 (ISO 12233 slanted edges found in the observation, same windows in both),
 ringing (overshoot beyond the edge plateaus / step) measured on {{.MetricWindow}};
 flux over the whole band from the run. Definitions: README, "limpid assess".</p>
-<table><tr><th>band</th><th>input band</th><th>noise model: variance (DN&sup2;) of a signal (DN)</th><th>choice</th><th>tile iterations (min-max)</th>
+<table><tr><th>band</th><th>input band</th><th>noise model: variance (DN&sup2;), signal in DN</th><th>choice</th><th>tile iterations (min-max)</th>
 <th>noise obs (DN)</th><th>noise res (DN)</th><th>MTF50 obs (cycles/pixel)</th><th>MTF50 res (cycles/pixel)</th><th>sharpness gain (ratio)</th><th>edges (count)</th>
 <th>ringing obs (% of step)</th><th>ringing res (% of step)</th><th>flux change (%)</th><th>valid pixels (count)</th></tr>
 {{range .Bands}}<tr><td class="l">{{.Name}}</td><td>{{.Source}}</td><td class="l">{{.Noise}}</td><td class="l">{{.Choice}}</td><td>{{.Iterations}}</td>
