@@ -76,7 +76,7 @@ th{background:#eee}td.l{text-align:left}img{max-width:100%;border:1px solid #ccc
 {{if .PSFPlot}}<img id="psf" alt="PSF profiles and MTF" src="{{.PSFPlot}}">
 <p id="psf-caption">Left: the kernel's weights through its centre. Right: MTF against frequency in cycles/pixel: the kernel
 (the sampled PSF the restoration inverts, up to Nyquist), the model (the continuous transfer function the PSF
-specification names, when it names one) and the system, model times the pixel aperture |sinc f| (what a slanted-edge
+specification names, when it names one; not for kernel: or measured:) and the system, model (else kernel) times the pixel aperture |sinc f| (what a slanted-edge
 measurement such as <code>limpid psf measure</code> sees); the dotted grey line marks Nyquist, 0.5 cycles/pixel. Curves that
 coincide are drawn with distinct widths and dashes and named so in the legend.</p>{{else}}<p class="note" id="psf-note">{{.PSFNote}}</p>{{end}}
 <h2>Observed | restored{{if .HasUncertainty}} | Monte Carlo standard error{{end}}</h2>
@@ -342,7 +342,10 @@ const mtfCoincide = 0.005
 // at Nyquist, 0.5 cycles/pixel.
 func psfPlotPNG(k *psf.Kernel, spec string) ([]byte, error) {
 	pp := plot.New()
-	pp.Title.Text = "PSF " + spec + ": profiles through the centre"
+	// The spec without --psf auto's note in parentheses (the job table
+	// has it whole): a long title is clipped.
+	short, _, _ := strings.Cut(spec, " (")
+	pp.Title.Text = "PSF " + short + ": profiles through the centre"
 	pp.X.Label.Text = "offset (pixels)"
 	pp.Y.Label.Text = "weight (kernel sums to 1)"
 	pp.Legend.Top = true
@@ -396,11 +399,13 @@ func mtfPlot(k *psf.Kernel, spec string) (*plot.Plot, error) {
 			return nil, err
 		}
 	}
-	// The model, when the spec names a transfer function (not kernel:,
-	// measured: or auto); in-band parts are defined up to Nyquist only.
+	// The model, when the spec names a transfer function (not kernel: or
+	// measured:; --psf auto records the Gaussian it measured, then a note in
+	// parentheses); in-band parts are defined up to Nyquist only.
 	model, hasModel := func(fx, fy float64) float64 { return 0 }, false
 	hi := 1.0
-	if sys, err := psf.ParseTransfer(spec); err == nil {
+	modelSpec, _, _ := strings.Cut(spec, " (")
+	if sys, err := psf.ParseTransfer(modelSpec); err == nil {
 		model, hasModel = sys.At, true
 		if sys.InBand != nil {
 			hi = 0.5
@@ -429,7 +434,7 @@ func mtfPlot(k *psf.Kernel, spec string) (*plot.Plot, error) {
 				return nil, err
 			}
 			sysXY := sampled(hi, int(hi*n), func(f float64) float64 { return model(f*b2f(a.tag != "fy"), f*b2f(a.tag == "fy")) * aperture(f) })
-			sl := fmt.Sprintf("system %s = model x pixel aperture |sinc f| (%.2g at Nyquist)", a.tag, sysXY[n/2].Y)
+			sl := fmt.Sprintf("system %s = model x aperture |sinc f| (%.2g at Nyquist)", a.tag, sysXY[n/2].Y)
 			if err := curve(pm, sysXY, blue, 1.6, [][]float64{{1.5, 2.5}, {1.5, 2.5, 5, 2.5}}[i], sl); err != nil {
 				return nil, err
 			}
@@ -439,7 +444,7 @@ func mtfPlot(k *psf.Kernel, spec string) (*plot.Plot, error) {
 		for i, p := range kx {
 			sysXY[i] = plotter.XY{X: p.X, Y: p.Y * aperture(p.X)}
 		}
-		if err := curve(pm, sysXY, blue, 1.6, []float64{1.5, 2.5}, fmt.Sprintf("system fx = kernel x pixel aperture |sinc f| (%.2g at Nyquist; no model: the spec names no transfer function)", nyq(sysXY))); err != nil {
+		if err := curve(pm, sysXY, blue, 1.6, []float64{1.5, 2.5}, fmt.Sprintf("system fx = kernel x aperture |sinc f| (%.2g at Nyquist)", nyq(sysXY))); err != nil {
 			return nil, err
 		}
 	}
