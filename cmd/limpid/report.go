@@ -366,7 +366,7 @@ func psfPlotPNG(k *psf.Kernel, spec string) ([]byte, error) {
 	if err := curve(pp, py, plotutil.Color(1), 1.2, []float64{4, 3}, ylabel); err != nil {
 		return nil, err
 	}
-	pm, err := mtfPlot(k, spec)
+	pm, _, err := mtfPlot(k, spec)
 	if err != nil {
 		return nil, err
 	}
@@ -374,9 +374,13 @@ func psfPlotPNG(k *psf.Kernel, spec string) ([]byte, error) {
 	return plotPNG([]*plot.Plot{pp, pm}, 900, 360)
 }
 
-// mtfPlot is psfPlotPNG's right panel.
-func mtfPlot(k *psf.Kernel, spec string) (*plot.Plot, error) {
-	pm := plot.New()
+// mtfPlot is psfPlotPNG's right panel; legend lists its legend entries.
+func mtfPlot(k *psf.Kernel, spec string) (pm *plot.Plot, legend []string, err error) {
+	pm = plot.New()
+	add := func(xy plotter.XYs, col color.Color, width float64, dashes []float64, label string) error {
+		legend = append(legend, label)
+		return curve(pm, xy, col, width, dashes, label)
+	}
 	pm.Title.Text = "MTF: kernel, model, system"
 	pm.X.Label.Text = "frequency (cycles/pixel)"
 	pm.Y.Label.Text = "MTF"
@@ -388,15 +392,15 @@ func mtfPlot(k *psf.Kernel, spec string) (*plot.Plot, error) {
 	sameXY := maxGap(kx, ky) < mtfCoincide
 	nyq := func(xy plotter.XYs) float64 { return xy[len(xy)-1].Y }
 	if sameXY {
-		if err := curve(pm, kx, plotutil.Color(0), 3.5, nil, fmt.Sprintf("kernel, fx = fy (%.2g at Nyquist)", nyq(kx))); err != nil {
-			return nil, err
+		if err := add(kx, plotutil.Color(0), 3.5, nil, fmt.Sprintf("kernel, fx = fy (%.2g at Nyquist)", nyq(kx))); err != nil {
+			return nil, nil, err
 		}
 	} else {
-		if err := curve(pm, kx, plotutil.Color(0), 3.5, nil, fmt.Sprintf("kernel along fx (%.2g at Nyquist)", nyq(kx))); err != nil {
-			return nil, err
+		if err := add(kx, plotutil.Color(0), 3.5, nil, fmt.Sprintf("kernel along fx (%.2g at Nyquist)", nyq(kx))); err != nil {
+			return nil, nil, err
 		}
-		if err := curve(pm, ky, plotutil.Color(1), 3.5, nil, fmt.Sprintf("kernel along fy (%.2g at Nyquist)", nyq(ky))); err != nil {
-			return nil, err
+		if err := add(ky, plotutil.Color(1), 3.5, nil, fmt.Sprintf("kernel along fy (%.2g at Nyquist)", nyq(ky))); err != nil {
+			return nil, nil, err
 		}
 	}
 	// The model, when the spec names a transfer function (not kernel: or
@@ -430,13 +434,13 @@ func mtfPlot(k *psf.Kernel, spec string) (*plot.Plot, error) {
 			if maxGap(a.xy[:n/2+1], a.k) < mtfCoincide {
 				label += " (= kernel up to Nyquist)"
 			}
-			if err := curve(pm, a.xy, black, 1.2, [][]float64{{6, 3}, {6, 2, 1, 2}}[i], label); err != nil {
-				return nil, err
+			if err := add(a.xy, black, 1.2, [][]float64{{6, 3}, {6, 2, 1, 2}}[i], label); err != nil {
+				return nil, nil, err
 			}
 			sysXY := sampled(hi, int(hi*n), func(f float64) float64 { return model(f*b2f(a.tag != "fy"), f*b2f(a.tag == "fy")) * aperture(f) })
 			sl := fmt.Sprintf("system %s = model x aperture |sinc f| (%.2g at Nyquist)", a.tag, sysXY[n/2].Y)
-			if err := curve(pm, sysXY, blue, 1.6, [][]float64{{1.5, 2.5}, {1.5, 2.5, 5, 2.5}}[i], sl); err != nil {
-				return nil, err
+			if err := add(sysXY, blue, 1.6, [][]float64{{1.5, 2.5}, {1.5, 2.5, 5, 2.5}}[i], sl); err != nil {
+				return nil, nil, err
 			}
 		}
 	} else {
@@ -444,16 +448,16 @@ func mtfPlot(k *psf.Kernel, spec string) (*plot.Plot, error) {
 		for i, p := range kx {
 			sysXY[i] = plotter.XY{X: p.X, Y: p.Y * aperture(p.X)}
 		}
-		if err := curve(pm, sysXY, blue, 1.6, []float64{1.5, 2.5}, fmt.Sprintf("system fx = kernel x aperture |sinc f| (%.2g at Nyquist)", nyq(sysXY))); err != nil {
-			return nil, err
+		if err := add(sysXY, blue, 1.6, []float64{1.5, 2.5}, fmt.Sprintf("system fx = kernel x aperture |sinc f| (%.2g at Nyquist)", nyq(sysXY))); err != nil {
+			return nil, nil, err
 		}
 	}
 	grey := color.RGBA{120, 120, 120, 255}
-	if err := curve(pm, plotter.XYs{{X: 0.5, Y: 0}, {X: 0.5, Y: 1.05}}, grey, 1, []float64{2, 2}, "Nyquist, 0.5 cycles/pixel"); err != nil {
-		return nil, err
+	if err := add(plotter.XYs{{X: 0.5, Y: 0}, {X: 0.5, Y: 1.05}}, grey, 1, []float64{2, 2}, "Nyquist, 0.5 cycles/pixel"); err != nil {
+		return nil, nil, err
 	}
 	pm.Add(plotter.NewGrid())
-	return pm, nil
+	return pm, legend, nil
 }
 
 // b2f is 1 for true, 0 for false.

@@ -14,6 +14,7 @@ import (
 	"strings"
 	"testing"
 
+	"limpid/psf"
 	"limpid/raster/gdal"
 	"limpid/step"
 )
@@ -477,5 +478,51 @@ func TestQuicklookStretchOnTheFixture(t *testing.T) {
 	// the red band's valid pixels exceed 2000 DN), are what is set aside.
 	if out[0] < 0.03 || out[0] > 0.04 {
 		t.Errorf("red: %.3f of the values set aside, want the tarp's 0.035", out[0])
+	}
+}
+
+// TestMTFPlotCurves: for gaussian:sigma=1 the MTF panel draws the kernel,
+// the model, the system and Nyquist, names the kernel and model as one
+// curve along both axes only where they coincide, and quotes the values at
+// Nyquist:
+//   - model exp(-2 pi^2 sigma^2 f^2) at f = 0.5: exp(-pi^2/2) = 0.0072
+//     (the Gaussian's Fourier transform);
+//   - system = model x |sinc 0.5| = 0.0072 x 2/pi = 0.0046 (the square
+//     pixel aperture's MTF, |sin(pi f)/(pi f)|);
+//   - kernel: the sampled Gaussian's transfer is the sum of the model's
+//     aliases G(f - k) (Poisson summation), at Nyquist about 2 G(0.5) =
+//     0.014, twice the model's: so the legend must not merge them.
+//
+// Source: the Fourier transform of a Gaussian and the Poisson summation
+// formula (derived above); sinc pixel aperture MTF (Boreman, "Modulation
+// Transfer Function in Optical and Electro-Optical Systems", SPIE 2001,
+// from memory).
+func TestMTFPlotCurves(t *testing.T) {
+	k, err := psf.Parse("gaussian:sigma=1", psf.Env{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pm, legend, err := mtfPlot(k, "gaussian:sigma=1")
+	if err != nil {
+		t.Fatal(err)
+	}
+	text := strings.Join(legend, "\n")
+	for _, want := range []string{"kernel, fx = fy (0.014 at Nyquist)", "model fx = fy\n", "system fx = fy = model x aperture |sinc f| (0.0046 at Nyquist)", "Nyquist, 0.5 cycles/pixel"} {
+		if !strings.Contains(text+"\n", want) {
+			t.Errorf("legend lacks %q:\n%s", want, text)
+		}
+	}
+	if pm.X.Max < 0.5 {
+		t.Errorf("frequency axis ends at %g, before Nyquist", pm.X.Max)
+	}
+	// sigma 1.4: aliasing is negligible (2 G(0.5) = 1.3e-4), kernel and
+	// model coincide and the legend says so.
+	k, _ = psf.Parse("gaussian:sigma=1.4", psf.Env{})
+	if _, legend, _ = mtfPlot(k, "gaussian:sigma=1.4"); !strings.Contains(strings.Join(legend, "\n"), "model fx = fy (= kernel up to Nyquist)") {
+		t.Errorf("coinciding kernel and model not named as such: %q", legend)
+	}
+	// A kernel file: no model, the system from the kernel.
+	if _, legend, _ = mtfPlot(k, "kernel:k.txt"); !strings.Contains(strings.Join(legend, "\n"), "system fx = kernel x aperture |sinc f|") {
+		t.Errorf("kernel: spec: %q", legend)
 	}
 }
