@@ -208,7 +208,7 @@ func quicklook(path, obsPath, resPath string, nBands int) error {
 	for i := range bands {
 		bands[i] = i
 	}
-	s, err := cropScene(obsPath, bands, resPath, "")
+	s, err := cropScene(obsPath, bands, resPath, "", qlInfo{Scene: "demo: " + filepath.Base(obsPath), PSF: "PSF " + demoPSF, Method: "EMS grid"})
 	if err != nil {
 		return err
 	}

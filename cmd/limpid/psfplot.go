@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"image/color"
 	"io"
 	"math"
 
@@ -16,8 +17,8 @@ import (
 )
 
 // writePlot draws the measured edges as a PNG: left, each edge's e-SFR
-// with its fitted model exp(-2 pi^2 s^2 f^2)|sinc f| (dashed) up to 1
-// cycle/pixel; right, its ESF (normalised 0..1) and LSF (normalised to peak
+// with its fitted model exp(-2 pi^2 s^2 f^2)|sinc f| (dashed), both in the
+// legend, up to 1 cycle/pixel with a marker at Nyquist; right, its ESF (normalised 0..1) and LSF (normalised to peak
 // 1) against the distance to the edge.
 func writePlot(w io.Writer, edges []edgeSummary) error {
 	pm := plot.New()
@@ -52,7 +53,8 @@ func writePlot(w io.Writer, edges []edgeSummary) error {
 		}
 		lf.Color, lf.Dashes = col, []vg.Length{vg.Points(4), vg.Points(3)}
 		pm.Add(lm, lf)
-		pm.Legend.Add(fmt.Sprintf("edge %d: sigma %.2f px", i+1, e.Sigma), lm)
+		pm.Legend.Add(fmt.Sprintf("edge %d: measured e-SFR", i+1), lm)
+		pm.Legend.Add(fmt.Sprintf("edge %d: fitted model, Gaussian sigma %.2f px x |sinc f|", i+1, e.Sigma), lf)
 		lo, hi := math.Inf(1), math.Inf(-1)
 		for _, v := range r.ESF {
 			lo, hi = math.Min(lo, v), math.Max(hi, v)
@@ -80,6 +82,13 @@ func writePlot(w io.Writer, edges []edgeSummary) error {
 		ll.Color, ll.Dashes = col, []vg.Length{vg.Points(4), vg.Points(3)}
 		pe.Add(le, ll)
 	}
+	nyq, err := plotter.NewLine(plotter.XYs{{X: 0.5, Y: 0}, {X: 0.5, Y: 1.05}})
+	if err != nil {
+		return err
+	}
+	nyq.Color, nyq.Dashes = color.RGBA{120, 120, 120, 255}, []vg.Length{vg.Points(2), vg.Points(2)}
+	pm.Add(nyq)
+	pm.Legend.Add("Nyquist, 0.5 cycles/pixel", nyq)
 	pm.Add(plotter.NewGrid())
 	pe.Add(plotter.NewGrid())
 	img := vgimg.New(vg.Points(900), vg.Points(380))
@@ -88,6 +97,6 @@ func writePlot(w io.Writer, edges []edgeSummary) error {
 	cs := plot.Align([][]*plot.Plot{{pm, pe}}, tiles, dc)
 	pm.Draw(cs[0][0])
 	pe.Draw(cs[0][1])
-	_, err := vgimg.PngCanvas{Canvas: img}.WriteTo(w)
+	_, err = vgimg.PngCanvas{Canvas: img}.WriteTo(w)
 	return err
 }

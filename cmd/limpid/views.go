@@ -15,7 +15,7 @@ import (
 
 func viewFlags() []cli.Flag {
 	return []cli.Flag{
-		&cli.StringFlag{Name: "quicklook", Usage: "write a PNG: observed | restored (| Monte Carlo error) centre crops, shared 2-98 % stretch, scale bar in map units"},
+		&cli.StringFlag{Name: "quicklook", Usage: "write a PNG: observed | restored (| error map) centre crops, header (scene, bands, PSF, method, stretch), shared 2-98 % stretch with outliers set aside, scale bar in map units"},
 		&cli.StringFlag{Name: "report-html", Usage: "write one self-contained HTML page: job, PSF and MTF, quicklook, per-band metrics, convergence, caution"},
 	}
 }
@@ -59,7 +59,7 @@ func writeViews(j *restoreJob, inPath string, bands []int, rep *step.Report, std
 	if j.quicklookPath == "" && j.htmlPath == "" {
 		return nil
 	}
-	s, err := cropScene(inPath, bands, j.out, j.uncPath)
+	s, err := cropScene(inPath, bands, j.out, j.uncPath, qlInfo{Scene: sceneName(j.in), PSF: "PSF " + rep.PSF, Method: "EMS " + rep.Method})
 	if err != nil {
 		return err
 	}
@@ -85,4 +85,12 @@ func writeViews(j *restoreJob, inPath string, bands []int, rep *step.Report, std
 		}
 	}
 	return nil
+}
+
+// sceneName is the input's file name for titles ("standard input" for -).
+func sceneName(in string) string {
+	if in == "-" {
+		return "standard input"
+	}
+	return filepath.Base(in)
 }
