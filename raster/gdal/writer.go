@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"io/fs"
 	"math"
 	"os"
 	"path/filepath"
@@ -321,6 +322,13 @@ func (w *Writer) CommitContext(ctx context.Context) error {
 	if err := scratch.Commit(src, w.dest, w.dir); err != nil {
 		w.cleanup()
 		return fmt.Errorf("raster: moving the output to %s: %w", w.final, err)
+	}
+	// A side-car left by an earlier file at this path (GDAL's PAM file:
+	// statistics, histograms, metadata a reader computed) describes that
+	// file, not this one; GDAL would read it with the new file (GDAL raster
+	// data model, "PAM": https://gdal.org/user/raster_data_model.html).
+	if err := os.Remove(w.dest + ".aux.xml"); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return fmt.Errorf("raster: removing the stale side-car %s.aux.xml of the replaced output: %w", w.final, err)
 	}
 	return nil
 }
