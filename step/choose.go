@@ -10,6 +10,7 @@ import (
 
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/internal/level"
 	"limpid/step/noise"
 )
 
@@ -478,7 +479,7 @@ func (c *chooser) summarise(band int) Choice {
 		for _, k := range keys {
 			run := c.runs[k][i]
 			cr.Risk += run.BestR
-			ks = append(ks, weighted{float64(run.BestK), float64(c.valid[k])})
+			ks = append(ks, weighted{V: float64(run.BestK), W: float64(c.valid[k])})
 			minLen = min(minLen, len(run.Risk))
 		}
 		if math.IsInf(cr.Risk, 0) || math.IsNaN(cr.Risk) {
@@ -513,26 +514,10 @@ func (c *chooser) summarise(band int) Choice {
 	return ch
 }
 
-type weighted struct{ v, w float64 }
+type weighted = level.Weighted
 
-func weightedMedian(x []weighted) float64 {
-	if len(x) == 0 {
-		return math.NaN()
-	}
-	sort.Slice(x, func(i, j int) bool { return x[i].v < x[j].v })
-	var tot float64
-	for _, e := range x {
-		tot += e.w
-	}
-	var acc float64
-	for _, e := range x {
-		acc += e.w
-		if acc >= tot/2 {
-			return e.v
-		}
-	}
-	return x[len(x)-1].v
-}
+func weightedMedian(x []weighted) float64 { return level.WeightedMedian(x) }
+func lowMedian(v []float64) float64       { return level.LowMedian(v) }
 
 // tileMap returns the per-tile choices of a band, smoothed by a 3 x 3
 // median over the tile grid (bandwidth and log iterations separately), so
@@ -575,13 +560,6 @@ func (c *chooser) tileMap(band int, fallback Choice) map[[2]int]TileChoice {
 	return out
 }
 
-// lowMedian is the lower median (an element of the set, so a smoothed
-// bandwidth stays one of the candidates).
-func lowMedian(v []float64) float64 {
-	sort.Float64s(v)
-	return v[(len(v)-1)/2]
-}
-
 // newGrid builds a plain GridEMS for (eps, k).
 // newGrid is a GridEMS with PSF operator H, smoothing bandwidth eps,
 // iteration cap iters and change tolerance tol.
@@ -617,6 +595,9 @@ func (b *bandSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst [
 // bandwidth) or the choice passes over the sample tiles (choosePasses) and
 // the chosen solvers (chosen).
 func (r *runner) regularise(ctx context.Context) (Solver, error) {
+	if r.cfg.Decided != nil {
+		return r.replay()
+	}
 	models, err := r.bandNoise(ctx)
 	if err != nil {
 		return nil, err
@@ -674,23 +655,30 @@ func (rg *regulariser) fixed(b int) {
 	rg.bs.byBand[b] = newGrid(rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
 	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
 		Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", rg.noise[b].Source, DefaultTolerance)}
+	rg.decide(b, Decision{Rule: DecideFixed})
 }
 
 // discrepancy: the discrepancy stop with a fixed bandwidth.
 func (rg *regulariser) discrepancy() Solver {
-	cfg := &rg.cfg
 	for b := range rg.bs.byBand {
 		if !rg.usable(b) {
 			rg.fixed(b)
 			continue
 		}
-		g := newGrid(rg.H, cfg.Smooth, cfg.Iterations, 0)
-		g.Noise, g.Tau = &rg.noise[b], DiscrepancyTau
-		rg.bs.byBand[b] = g
-		rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
-			Rule: fmt.Sprintf("discrepancy: per tile, the first iterate with residual <= %.2f^2 x summed noise variance (cap %d; tiles report their iterations)", DiscrepancyTau, cfg.Iterations)}
+		rg.discrepancyBand(b)
 	}
 	return rg.bs
+}
+
+// discrepancyBand gives band b the discrepancy stop with the fixed bandwidth.
+func (rg *regulariser) discrepancyBand(b int) {
+	cfg := &rg.cfg
+	g := newGrid(rg.H, cfg.Smooth, cfg.Iterations, 0)
+	g.Noise, g.Tau = &rg.noise[b], DiscrepancyTau
+	rg.bs.byBand[b] = g
+	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
+		Rule: fmt.Sprintf("discrepancy: per tile, the first iterate with residual <= %.2f^2 x summed noise variance (cap %d; tiles report their iterations)", DiscrepancyTau, cfg.Iterations)}
+	rg.decide(b, Decision{Rule: DecideDiscrepancy})
 }
 
 // newChooser sets up the choice over the candidate bandwidths.
@@ -820,6 +808,7 @@ func (rg *regulariser) chosen(c *chooser) Solver {
 			continue
 		}
 		ch := c.summarise(b)
+		d := Decision{Rule: DecideChosen, Smooth: ch.Smooth, Iterations: ch.Iterations, Kept: c.kept[b] != nil && cfg.Choose != ChoosePerTile}
 		rg.bs.byBand[b] = rg.solverFor(ch.Smooth, ch.Iterations)
 		if kt := c.kept[b]; kt != nil && cfg.Choose != ChoosePerTile {
 			kt.res = Result{Iterations: ch.Iterations}
@@ -837,6 +826,8 @@ func (rg *regulariser) chosen(c *chooser) Solver {
 		}
 		chc := ch
 		rg.rep.Bands[b].Choice = &chc
+		d.Tiles = ch.TileChoices
+		rg.decide(b, d)
 	}
 	return rg.bs
 }
@@ -853,7 +844,7 @@ func (rg *regulariser) perTile(c *chooser, b int, ch *Choice) {
 			tc := m[[2]int{col, row}]
 			ch.TileChoices = append(ch.TileChoices, tc)
 			rg.bs.byTile[b][[2]int{col, row}] = rg.solverFor(tc.Smooth, tc.Iterations)
-			ks = append(ks, weighted{float64(tc.Iterations), 1})
+			ks = append(ks, weighted{V: float64(tc.Iterations), W: 1})
 			es = append(es, tc.Smooth)
 		}
 	}

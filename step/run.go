@@ -14,6 +14,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/internal/level"
 	"limpid/step/noise"
 )
 
@@ -85,6 +86,11 @@ type Config struct {
 	Stage func(what string)
 	// Particle holds the particle method's parameters (particle_config.go).
 	Particle ParticleConfig
+	// Decided, when set, replays an earlier run's decisions per band
+	// (Report.Decided): Restore decides nothing from the scene.
+	Decided []Decision
+	// Tiles, when set, makes Restore a shard (decided.go).
+	Tiles *TileSink
 	// Uncertainty, when set (particle method only), receives the blended
 	// per-pixel Monte Carlo standard error, same grid and bands as dst
 	// (NaN on invalid pixels). Restore writes it; the caller commits it.
@@ -165,6 +171,8 @@ type Report struct {
 	WallSeconds float64      `json:"wall_seconds"`
 	// Particle is set for the particle method.
 	Particle *ParticleReport `json:"particle,omitempty"`
+	// Decided is every band's decision (Config.Decided replays it).
+	Decided []Decision `json:"-"`
 }
 
 // TileError locates a failure (like encoding/csv's ParseError).
@@ -388,6 +396,10 @@ func (cfg *Config) NewSolver() Solver {
 // about Width x (Tile + 2 Overlap) x bands floats; output is identical for
 // any number of workers. dst receives NaN for invalid pixels.
 func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Writer, cfg Config) (*Report, error) {
+	return restore(ctx, src, bands, dst, cfg, false)
+}
+
+func restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Writer, cfg Config, decideOnly bool) (*Report, error) {
 	start := time.Now()
 	if err := cfg.Resolve(); err != nil {
 		return nil, err
@@ -408,8 +420,14 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		validity[i] = NewValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated)
 		rep.Bands = append(rep.Bands, BandReport{Band: i + 1, SourceBand: b + 1, Background: cfg.Background, BackgroundRule: "given"})
 	}
+	if cfg.Decided != nil && len(cfg.Decided) != len(bands) {
+		return nil, fmt.Errorf("%w: %d decided bands for %d bands", ErrConfig, len(cfg.Decided), len(bands))
+	}
 	if cfg.BackgroundAuto {
 		bg, err := AutoBackground(src, bands, validity)
+		if cfg.Decided != nil {
+			bg, err = decidedBackground(cfg.Decided), nil
+		}
 		if err != nil {
 			return nil, err
 		}
@@ -419,7 +437,10 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 	}
 	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver,
-		withSE: cfg.Method == MethodParticle}
+		withSE: cfg.Method == MethodParticle, sink: cfg.Tiles}
+	if cfg.Tiles != nil {
+		r.need = cfg.Tiles.Need
+	}
 	if cfg.SmoothAuto || cfg.Stop != StopChange {
 		if cfg.SmoothAuto || cfg.Stop == StopAuto {
 			rep.Choose = cfg.Choose
@@ -429,6 +450,9 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 			return nil, err
 		}
 		r.solver = s
+	}
+	if r.finishDecided(); decideOnly {
+		return rep, nil
 	}
 	if err := r.run(ctx); err != nil {
 		return nil, err
@@ -488,44 +512,18 @@ func NewValid(nodata float64, hasND bool, sat float64, hasSat bool) ValidFunc {
 	return func(v float32) bool { return raster.Valid(v, nodata, hasND, sat, hasSat) }
 }
 
-// AutoBackground samples every k-th row (at most ~2000 rows) and returns the
-// BackgroundPercentile of each band's valid pixels, floored at 0.
+// AutoBackground returns the BackgroundPercentile of each band's valid
+// pixels, floored at 0, from every k-th row (level.Background).
 func AutoBackground(src raster.Reader, bands []int, valid []ValidFunc) ([]float64, error) {
-	m := src.Meta()
-	step := max(1, m.Height/2000)
-	row := make([][]float32, len(bands))
-	for i := range row {
-		row[i] = make([]float32, m.Width)
-	}
-	samples := make([][]float32, len(bands))
-	for y := 0; y < m.Height; y += step {
-		if err := src.ReadRows(y, y+1, bands, row); err != nil {
-			return nil, err
-		}
-		for i := range bands {
-			for _, v := range row[i] {
-				if valid[i](v) {
-					samples[i] = append(samples[i], v)
-				}
-			}
-		}
-	}
-	out := make([]float64, len(bands))
-	for i, s := range samples {
-		if len(s) == 0 {
-			continue
-		}
-		sort.Slice(s, func(a, b int) bool { return s[a] < s[b] })
-		k := int(BackgroundPercentile / 100 * float64(len(s)-1))
-		out[i] = math.Max(0, float64(s[k]))
-	}
-	return out, nil
+	return level.Background(src, bands, func(i int, v float32) bool { return valid[i](v) }, BackgroundPercentile)
 }
 
 type runner struct {
 	// need, when set, makes the run a pass: only the tiles it names are
-	// read and solved, and nothing is blended or written.
+	// read and solved, and nothing is blended or written (but with sink,
+	// a shard: their weighted outputs go to sink).
 	need func(col, row int) bool
+	sink *TileSink
 
 	cfg    Config
 	plan   Plan
@@ -693,7 +691,7 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 		return &TileError{Band: k.Band, Col: k.Col, Row: k.Row, Err: err}
 	}
 	j.res = s.Result
-	if sc.need != nil {
+	if sc.need != nil && sc.sink == nil {
 		return nil
 	}
 	j.out, j.ox, j.oy = p.Weigh(j.out, wk, k, s.F, bg)
@@ -707,6 +705,9 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 // writes the finished rows and frees the row's strip.
 func (sc *scan) finish(j *rasterJob, failed bool) error {
 	var err error
+	if !failed && sc.sink != nil {
+		err = sc.put(j)
+	}
 	if !failed && sc.need == nil {
 		sc.blend.Add(j.key.Band, j.ox, j.oy, j.out)
 		if sc.withSE {
@@ -850,7 +851,7 @@ func (w *rowWriter) close() error {
 
 // recorded reports whether tile k keeps its change history.
 func (r *runner) recorded(k TileKey) bool {
-	if k.Band != 0 || r.need != nil {
+	if k.Band != 0 || (r.need != nil && r.sink == nil) {
 		return false
 	}
 	pick := func(i, n int) bool {
