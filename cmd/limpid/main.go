@@ -80,6 +80,8 @@ func run(ctx context.Context, args []string, stdin io.Reader, stdout, stderr io.
 			psfCommand(stdin, stdout, stderr),
 			simulateCommand(stdin, stdout, stderr),
 			assessCommand(stdout, stderr),
+			planCommand(stdin, stdout, stderr),
+			mergeCommand(stdout, stderr),
 		},
 	}
 	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.

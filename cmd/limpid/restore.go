@@ -88,7 +88,7 @@ Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings only):
 Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
 
 ` + caution,
-		Flags:  append(restoreFlags(), streamFlags()...),
+		Flags:  append(append(restoreFlags(), streamFlags()...), planFlags()...),
 		Action: func(c *cli.Context) error { return restoreAction(c, stdin, stdout, stderr) },
 	}
 }
@@ -328,6 +328,9 @@ func checkPaths(in, out string) error {
 }
 
 func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
+	if c.String("plan") != "" || c.String("shard") != "" {
+		return planRestoreAction(c, stdin, stdout, stderr) // plan.go
+	}
 	j, err := parseJob(c)
 	if err != nil {
 		return err
