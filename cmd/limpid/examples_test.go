@@ -11,7 +11,7 @@ import (
 )
 
 // helpExamples are the subcommands whose --help prints examples.
-var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}}
+var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}, {"plan"}, {"merge"}}
 
 // Every example that a subcommand's --help prints runs as written, in
 // order, on the fixtures: input names (scene.tif, in.tif, truth.tif,
@@ -46,7 +46,7 @@ func TestHelpExamplesRun(t *testing.T) {
 					return fixture("observed.tif")
 				case inputs[a]:
 					return crop
-				case regexp.MustCompile(`^[\w.-]+\.(tif|txt|json|arrows)$`).MatchString(a):
+				case regexp.MustCompile(`^[\w.-]+(\.(tif|txt|json|arrows)|/)$`).MatchString(a):
 					return filepath.Join(dir, a)
 				}
 				return a

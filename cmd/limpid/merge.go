@@ -27,8 +27,10 @@ refuses the merge (nothing is written). Memory: the blend strips of one tile
 row, as restore.
 
 Examples:
+   limpid plan --psf gaussian:sigma=0.7 scene.tif scene.plan.json
+   limpid restore --plan scene.plan.json --shard 0/1 scene.tif tiles/
    limpid merge tiles/ scene_restored.tif
-   limpid merge --format cog tiles/ scene_restored.tif
+   limpid merge --format cog tiles/ scene_restored_cog.tif
 `,
 		Flags: []cli.Flag{
 			&cli.StringFlag{Name: "format", Value: "gtiff", EnvVars: env("format"), Usage: "output container: gtiff or cog (as restore)"},

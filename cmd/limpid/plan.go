@@ -38,8 +38,9 @@ then limpid merge).
 Examples:
    limpid plan --psf gaussian:sigma=0.7 scene.tif scene.plan.json
    limpid restore --plan scene.plan.json scene.tif scene_restored.tif
-   limpid restore --plan scene.plan.json --shard 0/4 scene.tif tiles/
-   limpid merge tiles/ scene_restored.tif
+   limpid restore --plan scene.plan.json --shard 0/2 scene.tif tiles/   (on one machine)
+   limpid restore --plan scene.plan.json --shard 1/2 scene.tif tiles/   (on another; LIMPID_SHARD=1/2 works too)
+   limpid merge tiles/ scene_merged.tif   (the same bytes as scene_restored.tif)
 `,
 		Flags:  restoreFlags(),
 		Action: func(c *cli.Context) error { return planAction(c, stdin, stderr) },
