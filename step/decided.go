@@ -9,8 +9,7 @@ import (
 	"limpid/step/noise"
 )
 
-// Decision rules (Decision.Rule).
-const (
+const ( // Decision.Rule
 	DecideNone        = "none"        // fixed smoothing, change stop: nothing to decide
 	DecideFixed       = "fixed"       // no noise model: the given smoothing, change stop
 	DecideDiscrepancy = "discrepancy" // the discrepancy stop, fixed smoothing
@@ -49,6 +48,13 @@ type TileSink struct {
 // restored.
 func Decide(ctx context.Context, src raster.Reader, bands []int, cfg Config) (*Report, error) {
 	return restore(ctx, src, bands, nil, cfg, true)
+}
+
+// DecidedSolver is the final-pass solver of cfg.Decided on tiling p (for
+// tile streams, which restore tile by tile).
+func (cfg *Config) DecidedSolver(p Plan) (Solver, error) {
+	nb := len(cfg.Decided)
+	return (&runner{cfg: *cfg, plan: p, bands: make([]int, nb), rep: &Report{Bands: make([]BandReport, nb)}}).replay()
 }
 
 // decide records band b's decision (the regulariser's noise model and the
@@ -127,7 +133,6 @@ type keptReplay struct {
 }
 
 func (kr *keptReplay) Name() string { return "grid" }
-
 func (kr *keptReplay) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
 	if ws.auto == nil {
 		ws.auto = &autoWork{}

@@ -162,3 +162,42 @@ func TestPlanBadInput(t *testing.T) {
 		t.Errorf("DIR holds %d tile files after the refusals, want 10 (nothing lost)", len(left))
 	}
 }
+
+// A tile stream packed with the plan restores with the plan's automatic
+// choice: pack --plan | restore --input-format arrow --output-format arrow
+// | unpack gives the default raster route's bytes; a stream without a plan
+// and without --psf is refused in one line. Source: issue 15 (streams with
+// the automatic choice); the raster route is the reference.
+func TestPlanStreamIdentical(t *testing.T) {
+	dir := t.TempDir()
+	in, flags := planFixture(t, dir)
+	plain := filepath.Join(dir, "plain.tif")
+	planRun(t, append(append([]string{"restore"}, flags...), in, plain)...)
+	pj := filepath.Join(dir, "p.json")
+	planRun(t, append(append([]string{"plan"}, flags...), in, pj)...)
+	code, packed, stderr := limpid(t, nil, "tiles", "pack", "--plan", pj, in, "-")
+	if code != 0 {
+		t.Fatalf("pack --plan: exit %d: %s", code, stderr)
+	}
+	code, restored, stderr := limpid(t, []byte(packed), "restore", "--input-format", "arrow", "--output-format", "arrow", "--workers", "2", "-", "-")
+	if code != 0 {
+		t.Fatalf("restore of the stream: exit %d: %s", code, stderr)
+	}
+	out := filepath.Join(dir, "stream.tif")
+	if code, _, stderr := limpid(t, []byte(restored), "tiles", "unpack", "-", out); code != 0 {
+		t.Fatalf("unpack: exit %d: %s", code, stderr)
+	}
+	sameFile(t, plain, out, "pack --plan | restore | unpack")
+	code, bare, _ := limpid(t, nil, "tiles", "pack", "--tile", "32", in, "-")
+	if code != 0 {
+		t.Fatal("pack without a plan failed")
+	}
+	code, _, stderr = limpid(t, []byte(bare), "restore", "--input-format", "arrow", "-", filepath.Join(dir, "x.tif"))
+	if code != exitUsage || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, "--psf is required") {
+		t.Errorf("stream without a plan and --psf: exit %d, %q", code, stderr)
+	}
+	code, _, stderr = limpid(t, nil, "tiles", "pack", "--plan", pj, "--tile", "64", in, filepath.Join(dir, "y.arrows"))
+	if code != exitUsage || !strings.Contains(stderr, "tiles of 20") {
+		t.Errorf("pack --plan with another --tile: exit %d, %q", code, stderr)
+	}
+}

@@ -331,6 +331,9 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 	if c.String("plan") != "" || c.String("shard") != "" {
 		return planRestoreAction(c, stdin, stdout, stderr) // plan.go
 	}
+	if c.String("input-format") == "arrow" && !c.IsSet("psf") {
+		return runPlannedStream(c, stdin, stdout, stderr) // planstream.go: a stream that carries a plan
+	}
 	j, err := parseJob(c)
 	if err != nil {
 		return err
