@@ -159,7 +159,7 @@ func TestREADMEExamplesRun(t *testing.T) {
 				return fixture("observed.tif")
 			case a == "scene.tif" || a == "in.jp2":
 				return crop
-			case a == "curves" || regexp.MustCompile(`^[\w.-]+\.(tif|txt|json|arrows|png|html)$`).MatchString(a):
+			case a == "curves" || regexp.MustCompile(`^[\w.-]+(\.(tif|txt|json|arrows|png|html)|/)$`).MatchString(a):
 				return filepath.Join(dir, a)
 			}
 			return a
