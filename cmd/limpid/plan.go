@@ -107,6 +107,9 @@ func planAction(c *cli.Context, stdin io.Reader, stderr io.Writer) error {
 
 // readPlan reads a plan file; what names it in messages (--plan PATH).
 func readPlan(what, path string) (*plan.File, error) {
+	if st, err := os.Stat(path); err == nil && st.Size() > maxPlanBytes {
+		return nil, usagef("%s %s: %d bytes is more than a plan's %d MiB: not a plan from limpid plan", what, path, st.Size(), maxPlanBytes>>20)
+	}
 	b, err := os.ReadFile(path)
 	if err != nil {
 		return nil, usagef("%s %s: %v", what, path, errors.Unwrap(err))
@@ -119,14 +122,15 @@ func readPlan(what, path string) (*plan.File, error) {
 	if dec.More() {
 		return nil, usagef("%s %s: not a plan from limpid plan: text after the JSON value", what, path)
 	}
-	if p.Format != plan.Format || p.Version != plan.Version {
-		return nil, usagef("%s %s: format %q version %d; this limpid reads %q version %d (make the plan again)", what, path, p.Format, p.Version, plan.Format, plan.Version)
-	}
-	if p.Settings.PSF == nil || len(p.Bands) == 0 || len(p.Decided) != len(p.Bands) || p.Report == nil || len(p.Report.Bands) != len(p.Bands) {
-		return nil, usagef("%s %s: incomplete plan (PSF, bands, decisions or report missing)", what, path)
+	if err := p.Validate(); err != nil {
+		return nil, usagef("%s %s: %s", what, path, strings.TrimPrefix(err.Error(), plan.ErrPlan.Error()+": "))
 	}
 	return &p, nil
 }
+
+// maxPlanBytes bounds a plan file read whole (a plan of a 100000-pixel
+// square scene in tiles of 512 with per-tile choices is about 10 MiB).
+const maxPlanBytes = 256 << 20
 
 // decidedFlags are restore flags whose values a plan fixes.
 var decidedFlags = []string{"psf", "bands", "output-type", "saturated", "background", "smooth", "stop", "iterations",

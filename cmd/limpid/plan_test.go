@@ -2,6 +2,7 @@ package main
 
 import (
 	"bytes"
+	"encoding/json"
 	"os"
 	"path/filepath"
 	"strings"
@@ -199,5 +200,57 @@ func TestPlanStreamIdentical(t *testing.T) {
 	code, _, stderr = limpid(t, nil, "tiles", "pack", "--plan", pj, "--tile", "64", in, filepath.Join(dir, "y.arrows"))
 	if code != exitUsage || !strings.Contains(stderr, "tiles of 20") {
 		t.Errorf("pack --plan with another --tile: exit %d, %q", code, stderr)
+	}
+}
+
+// A plan edited by hand or cut short is refused with one line and exit 2,
+// never a panic. Source: project rule (user input never panics).
+func TestPlanDamaged(t *testing.T) {
+	dir := t.TempDir()
+	in, flags := planFixture(t, dir)
+	pj := filepath.Join(dir, "p.json")
+	planRun(t, append(append([]string{"plan"}, flags...), in, pj)...)
+	good, err := os.ReadFile(pj)
+	if err != nil {
+		t.Fatal(err)
+	}
+	edit := func(f func(m map[string]any)) []byte {
+		var m map[string]any
+		if err := json.Unmarshal(good, &m); err != nil {
+			t.Fatal(err)
+		}
+		f(m)
+		b, _ := json.Marshal(m)
+		return b
+	}
+	settings := func(m map[string]any) map[string]any { return m["settings"].(map[string]any) }
+	cases := map[string][]byte{
+		"cut short":        good[:len(good)/2],
+		"not an object":    []byte("[]"),
+		"even kernel":      edit(func(m map[string]any) { settings(m)["psf_kernel"].(map[string]any)["W"] = 4 }),
+		"no kernel":        edit(func(m map[string]any) { delete(settings(m), "psf_kernel") }),
+		"band too high":    edit(func(m map[string]any) { m["bands"] = []int{7, 8} }),
+		"no decisions":     edit(func(m map[string]any) { delete(m, "decided") }),
+		"unknown rule":     edit(func(m map[string]any) { m["decided"].([]any)[0].(map[string]any)["rule"] = "guess" }),
+		"tiles cut":        edit(func(m map[string]any) { m["tiles"] = m["tiles"].([]any)[:3] }),
+		"zero width":       edit(func(m map[string]any) { m["output"].(map[string]any)["width"] = 0 }),
+		"tiny tile":        edit(func(m map[string]any) { settings(m)["tile"] = 3 }),
+		"negative overlap": edit(func(m map[string]any) { settings(m)["overlap"] = -7 }),
+	}
+	for name, b := range cases {
+		p := filepath.Join(dir, "bad.json")
+		if err := os.WriteFile(p, b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		out := filepath.Join(dir, "out.tif")
+		for _, args := range [][]string{{"restore", "--plan", p, in, out}, {"restore", "--plan", p, "--shard", "0/2", in, filepath.Join(dir, "t")}, {"tiles", "pack", "--plan", p, in, filepath.Join(dir, "s.arrows")}} {
+			code, _, stderr := limpid(t, nil, args...)
+			if code != exitUsage || strings.Count(stderr, "\n") != 1 {
+				t.Errorf("%s: %s: exit %d, %q", name, args[0]+" "+args[1], code, stderr)
+			}
+			if _, err := os.Stat(out); err == nil {
+				t.Fatalf("%s: something was written at OUTPUT", name)
+			}
+		}
 	}
 }

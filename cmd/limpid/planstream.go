@@ -56,8 +56,8 @@ func streamPlan(in string, h *arrowio.Header) (*plan.File, error) {
 	if err := json.Unmarshal([]byte(h.Plan), &p); err != nil {
 		return nil, usagef("INPUT %s: metadata %s is not a plan: %v", in, arrowio.KeyPlan, err)
 	}
-	if p.Format != plan.Format || p.Version != plan.Version {
-		return nil, usagef("INPUT %s: metadata %s: plan format %q version %d; this limpid reads version %d (pack with a new plan)", in, arrowio.KeyPlan, p.Format, p.Version, plan.Version)
+	if err := p.Validate(); err != nil {
+		return nil, usagef("INPUT %s: metadata %s: %s", in, arrowio.KeyPlan, strings.TrimPrefix(err.Error(), plan.ErrPlan.Error()+": "))
 	}
 	if p.Output.Width != h.Width || p.Output.Height != h.Height || len(p.Bands) != len(h.Bands) || len(p.Decided) != len(p.Bands) ||
 		p.Settings.Tile != h.Tile || max(p.Settings.Overlap, 0) != h.Overlap || p.Settings.PSF == nil {

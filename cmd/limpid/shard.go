@@ -74,6 +74,9 @@ func foreignTiles(dir, hash string) ([]string, error) {
 // shardDir prepares DIR for plan p: created when missing (its parent must
 // exist), refused when it holds another plan; the plan is copied in.
 func shardDir(dir string, p *plan.File, hash string) error {
+	if dir == "-" {
+		return usagef("DIR -: restore --shard writes one file per tile into a directory, not to stdout")
+	}
 	if st, err := os.Stat(dir); err != nil {
 		if err := os.Mkdir(dir, 0o755); err != nil && !errors.Is(err, os.ErrExist) {
 			return usagef("DIR %s: cannot create: %v", dir, errors.Unwrap(err))

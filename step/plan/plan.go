@@ -190,11 +190,68 @@ func Describe(m raster.Meta) string {
 
 // Check refuses a plan made for another input or by another version.
 func (p *File) Check(m raster.Meta) error {
-	if p.Format != Format || p.Version != Version {
-		return fmt.Errorf("%w: format %q version %d; this limpid reads %q version %d (make the plan again)", ErrPlan, p.Format, p.Version, Format, Version)
+	if err := p.Validate(); err != nil {
+		return err
 	}
 	if fp := Fingerprint(m); fp != p.Input {
 		return fmt.Errorf("%w: made for another input (%s; this input: %s, size, georeferencing or bands differ)", ErrPlan, p.InputSize, Describe(m))
+	}
+	for _, b := range p.Bands {
+		if b >= len(m.Bands) {
+			return fmt.Errorf("%w: band %d does not exist (the input has %d)", ErrPlan, b+1, len(m.Bands))
+		}
+	}
+	return nil
+}
+
+// Validate refuses a plan of another version and one whose parts do not
+// fit together (a file edited by hand or cut short): the kernel, the
+// bands, the decisions, the report, the output and the tiles.
+func (p *File) Validate() error {
+	if p.Format != Format || p.Version != Version {
+		return fmt.Errorf("%w: format %q version %d; this limpid reads %q version %d (make the plan again)", ErrPlan, p.Format, p.Version, Format, Version)
+	}
+	bad := func(what string) error { return fmt.Errorf("%w: %s (make the plan again)", ErrPlan, what) }
+	k := p.Settings.PSF
+	if k == nil {
+		return bad("no PSF kernel")
+	}
+	if _, err := psf.NewKernel(k.W, k.H, k.Data); err != nil {
+		return bad(err.Error())
+	}
+	if (k.X != nil && len(k.X) != k.W) || (k.Y != nil && len(k.Y) != k.H) || (k.X == nil) != (k.Y == nil) {
+		return bad("the PSF kernel's factors do not match its size")
+	}
+	nb := len(p.Bands)
+	if nb == 0 || len(p.Decided) != nb || p.Report == nil || len(p.Report.Bands) != nb || len(p.Output.Bands) != nb {
+		return bad(fmt.Sprintf("%d bands with %d decisions, %d output bands", nb, len(p.Decided), len(p.Output.Bands)))
+	}
+	for _, b := range p.Bands {
+		if b < 0 {
+			return bad(fmt.Sprintf("band %d", b+1))
+		}
+	}
+	for i, d := range p.Decided {
+		switch d.Rule {
+		case step.DecideNone, step.DecideFixed, step.DecideDiscrepancy, step.DecideChosen:
+		default:
+			return bad(fmt.Sprintf("band %d: decision rule %q", i+1, d.Rule))
+		}
+	}
+	if p.Output.Width < 1 || p.Output.Height < 1 {
+		return bad(fmt.Sprintf("output size %dx%d", p.Output.Width, p.Output.Height))
+	}
+	tp, err := p.Tiling()
+	if err != nil {
+		return bad(err.Error())
+	}
+	if len(p.Tiles) != tp.NTiles() || len(p.FluxBefore) != nb || len(p.ValidPixels) != nb {
+		return bad(fmt.Sprintf("%d tiles listed, the tiling has %d", len(p.Tiles), tp.NTiles()))
+	}
+	for i, t := range p.Tiles {
+		if t.Col != i%len(tp.Cols) || t.Row != i/len(tp.Cols) || t.Valid < 0 {
+			return bad(fmt.Sprintf("tile entry %d is (%d,%d)", i, t.Col, t.Row))
+		}
 	}
 	return nil
 }
