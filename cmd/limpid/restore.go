@@ -82,7 +82,8 @@ By default the smoothing and the stop are chosen per band from the scene (noise
 model + risk estimate; see the report's "choice"); --smooth EPS --stop change
 gives the fixed behaviour.
 
-Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings only):
+Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings, or a plan
+packed with tiles pack --plan; README, "Scale out", also for --plan and --shard):
    limpid tiles pack scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 --smooth 0.2 --stop change - - | limpid tiles unpack - out.tif
 
 Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
