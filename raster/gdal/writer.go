@@ -52,6 +52,7 @@ type Writer struct {
 	lo, hi  float64
 	integer bool
 	closed  bool
+	co      []string // the GeoTIFF creation options (relayout.go)
 }
 
 var _ raster.Writer = (*Writer)(nil)
@@ -85,6 +86,7 @@ func Create(path string, meta raster.Meta, opts WriteOptions) (*Writer, error) {
 	if len(meta.Bands) > 1 {
 		co = append(co, "INTERLEAVE=BAND")
 	}
+	w.co = co
 	ds, err := godal.Create(godal.GTiff, w.tmp, len(meta.Bands), dt, meta.Width, meta.Height, godal.CreationOption(co...), quiet)
 	if err != nil {
 		os.Remove(w.tmp)
@@ -249,6 +251,12 @@ func (w *Writer) Commit() error {
 		}
 		os.Remove(w.tmp)
 		src = w.tmpCOG
+	} else {
+		var err error
+		if src, err = w.relayout(); err != nil { // relayout.go
+			w.cleanup()
+			return err
+		}
 	}
 	if w.opts.Stdout != nil {
 		f, err := os.Open(src)
