@@ -172,6 +172,9 @@ func planRestoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer
 	if in == "-" {
 		return usagef("INPUT -: restore --plan reads INPUT twice (the check, the run); give a file")
 	}
+	if c.String("uncertainty") != "" {
+		return usagef("--uncertainty %s: plans restore with the grid method, which has no Monte Carlo error", c.String("uncertainty"))
+	}
 	if c.String("input-format") != "raster" || c.String("output-format") != "raster" {
 		return usagef("--plan: raster input and output only (a tile stream carries its plan: tiles pack --plan)")
 	}
