@@ -30,7 +30,7 @@ func planCommand(stdin io.Reader, stdout, stderr io.Writer) *cli.Command {
 		Description: `Takes restore's flags. Runs the passes that need the whole scene (background,
 noise model, the automatic smoothing and stop per band) and writes PLAN.json:
 the settings, every band's decisions, the tiling and halo, the output type and
-nodata, the random-stream key (--seed) and a SHA-256 of the input's size,
+nodata, the random-stream key and a SHA-256 of the input's size,
 georeferencing and bands. Apply it with restore --plan (the whole scene, the
 default restore's bytes) or restore --plan --shard I/N (one shard's tiles,
 then limpid merge).
@@ -132,9 +132,22 @@ func readPlan(what, path string) (*plan.File, error) {
 // square scene in tiles of 512 with per-tile choices is about 10 MiB).
 const maxPlanBytes = 256 << 20
 
-// decidedFlags are restore flags whose values a plan fixes.
-var decidedFlags = []string{"psf", "bands", "output-type", "saturated", "background", "smooth", "stop", "iterations",
-	"tolerance", "choose", "noise", "method", "seed", "tile", "overlap"}
+// decidedFlags are restore flags whose values a plan fixes: the settings
+// of restoreFlags, not the run's own (workers, container, report, views)
+// nor the particle method's (never planned).
+func decidedFlags() []string {
+	run := map[string]bool{"workers": true, "format": true, "report": true}
+	for _, f := range append(particleFlags(), viewFlags()...) {
+		run[f.Names()[0]] = true
+	}
+	var out []string
+	for _, f := range restoreFlags() {
+		if n := f.Names()[0]; !run[n] {
+			out = append(out, n)
+		}
+	}
+	return out
+}
 
 // parseShard reads --shard I/N.
 func parseShard(s string) (i, n int, err error) {
@@ -183,7 +196,7 @@ func planRestoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer
 		return err
 	}
 	var ignored []string
-	for _, f := range decidedFlags {
+	for _, f := range decidedFlags() {
 		if c.IsSet(f) {
 			ignored = append(ignored, "--"+f)
 		}
