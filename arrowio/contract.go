@@ -61,6 +61,10 @@ const (
 	KeyDatasetMetadata = "limpid.dataset_metadata"
 	KeyTileSize        = "limpid.tile_size"
 	KeyOverlap         = "limpid.overlap"
+	// KeyPlan (optional) is a scene plan's JSON (limpid plan; tiles pack
+	// --plan): the restoration settings and decisions made on the whole
+	// scene. Restored streams keep it.
+	KeyPlan = "limpid.plan"
 	// Restored streams only.
 	KeySoftwareVersion = "limpid.software_version"
 	KeyMethod          = "limpid.method"
@@ -178,6 +182,8 @@ type Header struct {
 	Tile, Overlap int
 	// Restored is set for KindRestored streams.
 	Restored *Restoration
+	// Plan is the scene plan's JSON (KeyPlan), "" without one.
+	Plan string
 }
 
 // Tile is one row of a stream: one band of one tile, its pixel buffer (the
@@ -314,6 +320,9 @@ func encodeMetadata(h *Header) (arrow.Metadata, error) {
 		return arrow.Metadata{}, fmt.Errorf("arrowio: dataset metadata: %w", err)
 	}
 	kv[KeyDatasetMetadata] = string(mb)
+	if h.Plan != "" {
+		kv[KeyPlan] = h.Plan
+	}
 	if h.Kind == KindRestored {
 		kv[KeySoftwareVersion] = h.Restored.SoftwareVersion
 		kv[KeyMethod] = h.Restored.Method
@@ -402,6 +411,9 @@ func decodeMetadata(md arrow.Metadata) (*Header, error) {
 		if err := m.restoration(h, bands); err != nil {
 			return nil, err
 		}
+	}
+	if i := md.FindKey(KeyPlan); i >= 0 {
+		h.Plan = md.Values()[i]
 	}
 	if err := h.check(); err != nil {
 		return nil, err

@@ -20,7 +20,7 @@ func applied(s Solver, b int, smoothAuto, stopAuto bool, nm *noise.Model) *setti
 		for key, ts := range bs.byTile[b] {
 			a = *applied(ts, b, false, false, nil)
 			tiles = append(tiles, settings.Tile{Col: key[0], Row: key[1], Smooth: a.Smooth, Iterations: a.Iterations})
-			es, ks = append(es, a.Smooth), append(ks, weighted{float64(a.Iterations), 1})
+			es, ks = append(es, a.Smooth), append(ks, weighted{V: float64(a.Iterations), W: 1})
 		}
 		sort.Slice(tiles, func(i, j int) bool {
 			return tiles[i].Row < tiles[j].Row || tiles[i].Row == tiles[j].Row && tiles[i].Col < tiles[j].Col

@@ -6,6 +6,7 @@ import (
 
 	"limpid/psf"
 	"limpid/step/conv"
+	"limpid/step/internal/plane"
 	"limpid/step/mix"
 	"limpid/step/noise"
 )
@@ -58,13 +59,9 @@ const (
 	// significant risk improvement (one larger than riskPlateau times the
 	// total decrease so far).
 	RiskPatience = 20
-	// AutoCap is the default iteration cap with --stop auto. It is soft:
-	// a run whose risk still falls there goes on, up to AutoHardCap
-	// (textured scenes blurred by wide PSFs want more than 200; measured in
-	// DEVELOPERS.md, "Nodata collars and footprints").
-	AutoCap = 200
-	// AutoHardCap is the hard limit of the automatic stop's runs when the
-	// cap is left to its default.
+	// AutoCap is the default (soft) iteration cap with --stop auto: a run
+	// whose risk still falls there goes on up to AutoHardCap.
+	AutoCap     = 200
 	AutoHardCap = 1000
 	// NoiseInflation multiplies the estimated variance where the risk
 	// estimate uses it: underestimating the noise is the dangerous side
@@ -80,20 +77,6 @@ const (
 // prototype's grid, common practice, no source; 0.3 and 0.5 use the variance-matched 3-tap kernel, 0.7 a variance-matched
 // Gaussian, see conv.SmoothingKernel).
 var AutoSmooths = []float64{0, 0.3, 0.5, 0.7}
-
-// RiskMode is where a tile's risk was estimated.
-type RiskMode string
-
-// Risk modes.
-const (
-	// RiskDCT: the DCT-domain estimate (the PSF is diagonal there).
-	RiskDCT RiskMode = "dct"
-	// RiskPrediction: the prediction-domain estimate over valid pixels
-	// (heavily masked tiles).
-	RiskPrediction RiskMode = "prediction"
-	// RiskSkipped: the candidate was not run on the tile.
-	RiskSkipped RiskMode = "skipped"
-)
 
 // riskEvaluated says at which iterations the risk is computed: every one up
 // to 10, then every 2nd up to 30, then every 5th (the risk curve flattens
@@ -215,7 +198,7 @@ func setupRisk(aw *autoWork, p *Problem, nm *noise.Model, rw *riskWeights, seed 
 	wt := rw.g
 	if rp.masked {
 		wt = rw.k
-		riskTaper(aw.taper[:n], p.Mask[:n], w, h, riskTaperRadius(g0Radius(rw)), aw.ue[:n], aw.wp[:n])
+		plane.Taper(aw.taper[:n], p.Mask[:n], w, h, plane.TaperRadius(rw.radius), aw.ue[:n], aw.wp[:n])
 	}
 	tmp := aw.ue
 	for i := 0; i < n; i++ {
@@ -345,92 +328,16 @@ func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []floa
 	return rss - rp.vsum + 2*rp.infl*div
 }
 
-// riskTaperRadius is the half-width of the masked risk's taper for a PSF
-// of radius r: twice the PSF's reach (measured on the nodata scenes of
-// DEVELOPERS.md, "Nodata collars and footprints").
-func riskTaperRadius(r int) int { return max(2, 2*r) }
-
-// g0Radius is the PSF radius the risk weights were made for.
-func g0Radius(rw *riskWeights) int { return rw.radius }
-
-// riskTaper writes into dst the masked risk's weight: 0 on invalid pixels,
-// rising smoothly with the distance d to the nearest invalid pixel to 1 at
-// r pixels, sin^2(pi/2 min(d/r, 1)) (a raised-cosine edge, as tapered data
-// windows in spectral estimation). A hard 0/1 weight would put a step into
-// the masked prediction, which K (a regularised inverse of H^T H)
-// amplifies: the error measure would then be dominated by the pixels along
-// the mask's edge, where more iterations always fit better. The distance
-// is the chamfer distance with weights 3 and 4 (3 per pixel; Borgefors,
-// CVGIP 34(3):344-371, 1986), two passes; the tile's sides are not mask
-// edges. dist (len w*h) is scratch.
-func riskTaper(dst, mask []float32, w, h, r int, dist, _ []float32) {
-	const far = float32(1 << 30)
-	for i := range dist[:w*h] {
-		if mask[i] == 0 {
-			dist[i] = 0
-		} else {
-			dist[i] = far
-		}
-	}
-	relax := func(i, j int, c float32) {
-		if v := dist[j] + c; v < dist[i] {
-			dist[i] = v
-		}
-	}
-	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			i := y*w + x
-			if x > 0 {
-				relax(i, i-1, 3)
-			}
-			if y > 0 {
-				relax(i, i-w, 3)
-				if x > 0 {
-					relax(i, i-w-1, 4)
-				}
-				if x < w-1 {
-					relax(i, i-w+1, 4)
-				}
-			}
-		}
-	}
-	for y := h - 1; y >= 0; y-- {
-		for x := w - 1; x >= 0; x-- {
-			i := y*w + x
-			if x < w-1 {
-				relax(i, i+1, 3)
-			}
-			if y < h-1 {
-				relax(i, i+w, 3)
-				if x < w-1 {
-					relax(i, i+w+1, 4)
-				}
-				if x > 0 {
-					relax(i, i+w-1, 4)
-				}
-			}
-		}
-	}
-	for i := range dst[:w*h] {
-		t := math.Min(1, float64(dist[i])/(3*float64(r)))
-		v := math.Sin(math.Pi / 2 * t)
-		dst[i] = float32(v * v)
-	}
-}
-
-// maskedRisk is the DCT-domain estimate on a tile with invalid pixels,
-// where no data may enter the risk: with W the validity mask and
-// K = (H^T H + lambda)^-1 (DCT-diagonal, 1 / (h^2 + lambda)), it estimates
-// the error ||K^(1/2) W H (f - x)||^2 - ||K^(1/2) W H x||^2 by
+// maskedRisk is the DCT-domain estimate on a tile with invalid pixels: with
+// W the tapered mask (plane.Taper) and K = (H^T H + lambda)^-1 (diagonal in
+// the DCT, 1 / (h^2 + lambda)), it estimates ||K^(1/2) W H (f - x)||^2 -
+// ||K^(1/2) W H x||^2 by
 //
 //	R = <P, K P> - 2 <P, K W (d - b)> + 2 c <W H u, K (v delta)>,  P = W H f
 //
-// (Stein's lemma on the valid pixels, as the full-tile form; the
-// generalised SURE weighting of Eldar, IEEE TSP 57(2), 2009). With W = I
-// it is the full-tile estimate exactly: H K H = Q^2 and K H = G in the DCT
-// basis. Invalid pixels enter neither the data term nor the error, so
-// there is no masked-fraction threshold; tiles whose PSF is not
-// DCT-diagonal use the prediction-domain estimate below.
+// (Stein's lemma on the valid pixels; Eldar's generalised SURE weighting).
+// With W = I it is the full-tile estimate (H K H = Q^2, K H = G), so there
+// is no threshold on the invalid share; invalid pixels enter neither term.
 func (rp *riskProblem) maskedRisk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []float32) float64 {
 	p := rp.p
 	n := p.W * p.H

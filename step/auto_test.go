@@ -9,6 +9,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/internal/plane"
 	"limpid/step/noise"
 )
 
@@ -209,7 +210,7 @@ func TestJVPFiniteDifferences(t *testing.T) {
 // ||Q(f_k - x)||^2 - ||Q x||^2 on a full tile, and on a tile with invalid
 // pixels (a 3-pixel collar on two sides and scattered holes) the masked
 // form's ||K^(1/2) W H (f_k - x)||^2 - ||K^(1/2) W H x||^2, W the tapered
-// mask (riskProblem.maskedRisk, riskTaper). The mean difference over independent noise
+// mask (riskProblem.maskedRisk, plane.Taper). The mean difference over independent noise
 // draws (and probes) must be within 3.5 standard errors of zero (a
 // two-sided false-alarm rate of about 5e-4 per checked k). Power: without
 // the divergence term the same draws are 10 and 22 standard errors off at
@@ -256,7 +257,7 @@ func TestRiskUnbiasedGaussian(t *testing.T) {
 			X, WHx := make([]float64, n), make([]float32, n)
 			dct.Forward(X, x)
 			tp := make([]float32, n)
-			riskTaper(tp, mc.mask, w, h, riskTaperRadius(rw.radius), make([]float32, n), make([]float32, n))
+			plane.Taper(tp, mc.mask, w, h, plane.TaperRadius(rw.radius), make([]float32, n), make([]float32, n))
 			for i := range WHx {
 				WHx[i] = hx[i] * tp[i]
 			}

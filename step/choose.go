@@ -10,93 +10,9 @@ import (
 
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/internal/level"
 	"limpid/step/noise"
 )
-
-// Stop is the rule that ends a tile's iterations; the zero value means
-// StopChange.
-type Stop string
-
-// Stop rules.
-const (
-	StopChange      Stop = "change"      // relative L1 change below Tolerance, or the cap
-	StopAuto        Stop = "auto"        // risk minimum (patience RiskPatience)
-	StopDiscrepancy Stop = "discrepancy" // Morozov with the estimated noise
-	StopFixed       Stop = "fixed"       // recorded only: the particle method runs exactly Iterations
-)
-
-// Choose is the scope of the automatic choice; the zero value means
-// ChooseGlobal.
-type Choose string
-
-// Choice scopes.
-const (
-	ChooseGlobal  Choose = "global"
-	ChoosePerTile Choose = "per-tile"
-)
-
-// Choice records how a band's smoothing and stop were chosen.
-type Choice struct {
-	// Smooth and Iterations are the global choice (per-tile: the medians of
-	// the smoothed tile map).
-	Smooth     float64 `json:"smooth"`
-	Iterations int     `json:"iterations"`
-	Rule       string  `json:"rule"`
-	// TilesUsed is the number of tiles whose risk curves entered.
-	TilesUsed int `json:"tiles_used"`
-	// PredictionTiles counts the tiles that used the prediction-domain
-	// fallback (masked or asymmetric PSF); they enter the choice only when
-	// no tile could use the DCT estimate.
-	PredictionTiles int               `json:"prediction_domain_tiles"`
-	Candidates      []CandidateReport `json:"candidates"`
-	// TileChoices is the smoothed per-tile map (per-tile mode only).
-	TileChoices []TileChoice `json:"tile_choices,omitempty"`
-	// StopFrom says where the stop came from: the minimum of the summed
-	// risk curve (every tile's run covers it and RiskPatience beyond), or
-	// the valid-pixel-weighted median of the tiles' best iterations.
-	StopFrom string `json:"stop_from,omitempty"`
-	// CapBound is true when a tile's risk still fell at the iteration
-	// limit for the chosen bandwidth: the stop is the limit's, not the
-	// risk's.
-	CapBound bool `json:"cap_bound,omitempty"`
-}
-
-// Where a choice's stop came from (Choice.StopFrom).
-const (
-	StopFromSummed = "summed risk curve"
-	StopFromMedian = "weighted median of the tiles' best iterations"
-)
-
-// CandidateReport summarises one bandwidth over the tiles used.
-type CandidateReport struct {
-	Smooth float64 `json:"smooth"`
-	// Risk is the sum over tiles of each tile's minimum risk (each tile's
-	// R is defined up to its own constant ||Q x||^2, the same for every
-	// candidate, so sums compare across candidates).
-	Risk float64 `json:"risk"`
-	// BestIterations is the minimum of the summed risk curve where every
-	// tile's run covers it and RiskPatience iterations beyond (each tile
-	// runs to its own stop), else the valid-pixel-weighted median of the
-	// tiles' risk-minimising iterations; StopFrom says which.
-	BestIterations int    `json:"best_iterations"`
-	StopFrom       string `json:"stop_from"`
-	// CapBound: a tile's risk still fell at the iteration limit.
-	CapBound bool `json:"cap_bound,omitempty"`
-	// Curve is the summed risk at the iterations every tile evaluated:
-	// pairs [k, R_k].
-	Curve [][2]float64 `json:"curve"`
-	// Skipped is true when some tile did not run this bandwidth (its risk
-	// had already risen at a smaller one).
-	Skipped bool `json:"skipped,omitempty"`
-}
-
-// TileChoice is one tile's (smoothed) choice.
-type TileChoice struct {
-	Col        int     `json:"col"`
-	Row        int     `json:"row"`
-	Smooth     float64 `json:"smooth"`
-	Iterations int     `json:"iterations"`
-}
 
 // chooseMaxTiles bounds the tiles a global choice and the noise fit look
 // at: an even 4 x 4 grid of the tile plan (all tiles of smaller scenes).
@@ -453,10 +369,8 @@ func (c *chooser) crop(aw *autoWork, p *Problem) *Problem {
 	return &Problem{D: aw.cropD, Mask: aw.cropM, W: cw, H: chh, Background: p.Background, Key: k}
 }
 
-// limit is the runs' iteration limit: the cap, or with the automatic stop
-// and a default cap the hard limit (a run ends RiskPatience iterations
-// after its last significant risk improvement, so the extension only costs
-// where the risk still falls).
+// limit is the runs' iteration limit: the cap, or the soft cap's hard limit
+// (runs end by patience, so the extension costs only where the risk falls).
 func (c *chooser) limit() int {
 	if c.cfg.Stop == StopAuto && c.cfg.IterationLimit > c.cfg.Iterations {
 		return c.cfg.IterationLimit
@@ -510,7 +424,7 @@ func (c *chooser) summarise(band int) Choice {
 		for _, k := range keys {
 			run := c.runs[k][i]
 			cr.Risk += run.BestR
-			ks = append(ks, weighted{float64(run.BestK), float64(c.valid[k])})
+			ks = append(ks, weighted{V: float64(run.BestK), W: float64(c.valid[k])})
 			minLen = min(minLen, len(run.Risk))
 		}
 		if math.IsInf(cr.Risk, 0) || math.IsNaN(cr.Risk) {
@@ -569,26 +483,10 @@ func (c *chooser) summarise(band int) Choice {
 	return ch
 }
 
-type weighted struct{ v, w float64 }
+type weighted = level.Weighted
 
-func weightedMedian(x []weighted) float64 {
-	if len(x) == 0 {
-		return math.NaN()
-	}
-	sort.Slice(x, func(i, j int) bool { return x[i].v < x[j].v })
-	var tot float64
-	for _, e := range x {
-		tot += e.w
-	}
-	var acc float64
-	for _, e := range x {
-		acc += e.w
-		if acc >= tot/2 {
-			return e.v
-		}
-	}
-	return x[len(x)-1].v
-}
+func weightedMedian(x []weighted) float64 { return level.WeightedMedian(x) }
+func lowMedian(v []float64) float64       { return level.LowMedian(v) }
 
 // tileMap returns the per-tile choices of a band, smoothed by a 3 x 3
 // median over the tile grid (bandwidth and log iterations separately), so
@@ -631,13 +529,6 @@ func (c *chooser) tileMap(band int, fallback Choice) map[[2]int]TileChoice {
 	return out
 }
 
-// lowMedian is the lower median (an element of the set, so a smoothed
-// bandwidth stays one of the candidates).
-func lowMedian(v []float64) float64 {
-	sort.Float64s(v)
-	return v[(len(v)-1)/2]
-}
-
 // newGrid builds a plain GridEMS for (eps, k).
 // newGrid is a GridEMS with PSF operator H, smoothing bandwidth eps,
 // iteration cap iters and change tolerance tol.
@@ -673,6 +564,9 @@ func (b *bandSolver) Solve(ctx context.Context, ws *Workspace, p *Problem, dst [
 // bandwidth) or the choice passes over the sample tiles (choosePasses) and
 // the chosen solvers (chosen).
 func (r *runner) regularise(ctx context.Context) (Solver, error) {
+	if r.cfg.Decided != nil {
+		return r.replay()
+	}
 	models, err := r.bandNoise(ctx)
 	if err != nil {
 		return nil, err
@@ -739,23 +633,30 @@ func (rg *regulariser) fixed(b int) {
 	rg.bs.byBand[b] = newGrid(rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
 	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
 		Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", rg.noise[b].Source, DefaultTolerance)}
+	rg.decide(b, Decision{Rule: DecideFixed})
 }
 
 // discrepancy: the discrepancy stop with a fixed bandwidth.
 func (rg *regulariser) discrepancy() Solver {
-	cfg := &rg.cfg
 	for b := range rg.bs.byBand {
 		if !rg.usable(b) {
 			rg.fixed(b)
 			continue
 		}
-		g := newGrid(rg.H, cfg.Smooth, cfg.Iterations, 0)
-		g.Noise, g.Tau = &rg.noise[b], DiscrepancyTau
-		rg.bs.byBand[b] = g
-		rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
-			Rule: fmt.Sprintf("discrepancy: per tile, the first iterate with residual <= %.2f^2 x summed noise variance (cap %d; tiles report their iterations)", DiscrepancyTau, cfg.Iterations)}
+		rg.discrepancyBand(b)
 	}
 	return rg.bs
+}
+
+// discrepancyBand gives band b the discrepancy stop with the fixed bandwidth.
+func (rg *regulariser) discrepancyBand(b int) {
+	cfg := &rg.cfg
+	g := newGrid(rg.H, cfg.Smooth, cfg.Iterations, 0)
+	g.Noise, g.Tau = &rg.noise[b], DiscrepancyTau
+	rg.bs.byBand[b] = g
+	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
+		Rule: fmt.Sprintf("discrepancy: per tile, the first iterate with residual <= %.2f^2 x summed noise variance (cap %d; tiles report their iterations)", DiscrepancyTau, cfg.Iterations)}
+	rg.decide(b, Decision{Rule: DecideDiscrepancy})
 }
 
 // newChooser sets up the choice over the candidate bandwidths.
@@ -886,6 +787,7 @@ func (rg *regulariser) chosen(c *chooser) Solver {
 			continue
 		}
 		ch := c.summarise(b)
+		d := Decision{Rule: DecideChosen, Smooth: ch.Smooth, Iterations: ch.Iterations, Kept: c.kept[b] != nil && cfg.Choose != ChoosePerTile}
 		rg.bs.byBand[b] = rg.solverFor(ch.Smooth, ch.Iterations)
 		if kt := c.kept[b]; kt != nil && cfg.Choose != ChoosePerTile {
 			kt.res, kt.smooth = Result{Iterations: ch.Iterations}, ch.Smooth
@@ -903,6 +805,8 @@ func (rg *regulariser) chosen(c *chooser) Solver {
 		}
 		chc := ch
 		rg.rep.Bands[b].Choice = &chc
+		d.Tiles = ch.TileChoices
+		rg.decide(b, d)
 	}
 	return rg.bs
 }
@@ -919,7 +823,7 @@ func (rg *regulariser) perTile(c *chooser, b int, ch *Choice) {
 			tc := m[[2]int{col, row}]
 			ch.TileChoices = append(ch.TileChoices, tc)
 			rg.bs.byTile[b][[2]int{col, row}] = rg.solverFor(tc.Smooth, tc.Iterations)
-			ks = append(ks, weighted{float64(tc.Iterations), 1})
+			ks = append(ks, weighted{V: float64(tc.Iterations), W: 1})
 			es = append(es, tc.Smooth)
 		}
 	}

@@ -12,77 +12,32 @@ import (
 	"limpid/raster"
 	"limpid/step/conv"
 	"limpid/step/draw"
+	"limpid/step/internal/option"
 	"limpid/step/mix"
 	"limpid/step/resample"
 )
 
-// Potential selects how the particle method evaluates the EMS potential.
-type Potential int
-
-const (
-	// PotentialExact integrates G(x) = sum_y g(y|x) h(y)/h_n(y) on the pixel
-	// grid: G = (H^T r)/s with r = w d / h_n (Rao-Blackwellised).
-	PotentialExact Potential = iota
-	// PotentialSampled draws one Y from the PSF around each particle and
-	// weights it by r(Y)/s(X), an unbiased estimate of the same G (the
-	// published method's estimator, with h known on the grid).
-	PotentialSampled
+// The particle method's option types live in step/internal/option.
+type (
+	Potential = option.Potential
+	Start     = option.Start
 )
 
-func (p Potential) String() string {
-	if p == PotentialSampled {
-		return "sampled"
-	}
-	return "exact"
-}
-
-// ParsePotential maps "exact" / "sampled" to a Potential.
-func ParsePotential(s string) (Potential, error) {
-	switch s {
-	case "exact":
-		return PotentialExact, nil
-	case "sampled":
-		return PotentialSampled, nil
-	}
-	return 0, fmt.Errorf("%q: use exact or sampled", s)
-}
-
-// Start selects the particle method's initial cloud.
-type Start int
-
+// Potentials and starts (see option).
 const (
-	// StartFlat spreads PerPixel particles uniformly over every valid pixel.
-	StartFlat Start = iota
-	// StartObserved draws the particles from the observed image above
-	// background (systematic sampling over the valid pixels).
-	StartObserved
+	PotentialExact, PotentialSampled = option.PotentialExact, option.PotentialSampled
+	StartFlat, StartObserved         = option.StartFlat, option.StartObserved
 )
 
-func (s Start) String() string {
-	if s == StartObserved {
-		return "observed"
-	}
-	return "flat"
-}
-
-// ParseStart maps "flat" / "observed" to a Start.
-func ParseStart(s string) (Start, error) {
-	switch s {
-	case "flat":
-		return StartFlat, nil
-	case "observed":
-		return StartObserved, nil
-	}
-	return 0, fmt.Errorf("%q: use flat or observed", s)
-}
+// ParsePotential and ParseStart read the flags' words (see option).
+var (
+	ParsePotential = option.ParsePotential
+	ParseStart     = option.ParseStart
+)
 
 // ParticleTiming accumulates where a ParticleEMS spends its time (for the
-// benchmark's split); nil in production.
-type ParticleTiming struct {
-	Splat, Convolution, Reweight, Resample, Mutate, Estimate time.Duration
-	ParticleIterations                                       int64
-	Resamplings                                              int
-}
+// benchmark's split; option.Timing); nil in production.
+type ParticleTiming = option.Timing
 
 // ParticleEMS is the sequential Monte Carlo approximation of EMS: "A
 // particle method for solving Fredholm equations of the first kind" (Crucinio,
@@ -645,16 +600,16 @@ func (pr *particleRun) iterate(k int) error {
 	pe, pw, ws, tm := pr.pe, pr.pw, pr.ws, pr.clock.tm
 	w, h, n := pr.w, pr.h, pr.n
 	splatCells(pw.fhat, pw.x, pw.y, pw.w, w, float32(pr.mass/pr.wsum))
-	pr.clock.lap(&tm0(tm).Splat)
+	pr.clock.lap(&option.OrDiscard(tm).Splat)
 	if pe.RawEstimate && k > pe.BurnIn {
 		pr.accumulate(pw.fhat)
-		pr.clock.lap(&tm0(tm).Estimate)
+		pr.clock.lap(&option.OrDiscard(tm).Estimate)
 	}
 	pe.H.Apply(&ws.conv, ws.p, pw.fhat, w, h)
 	q := ws.q[:n]
 	dataRatio(q, ws.p[:n], pr.p.D[:n], pr.p.Mask[:n], pr.p.Background)
 	sum, sq := pr.reweight(q)
-	pr.clock.lap(&tm0(tm).Reweight)
+	pr.clock.lap(&option.OrDiscard(tm).Reweight)
 	if !(sum > 0) {
 		return fmt.Errorf("particle EMS: all weights vanished at iteration %d", k+1)
 	}
@@ -662,7 +617,7 @@ func (pr *particleRun) iterate(k int) error {
 	pr.wsum = sum
 	if !pe.RawEstimate && k >= pe.BurnIn {
 		pr.estimate()
-		pr.clock.lap(&tm0(tm).Estimate)
+		pr.clock.lap(&option.OrDiscard(tm).Estimate)
 	}
 	if sum*sum < pe.ESSThreshold*pr.fN*sq {
 		pe.resample(pw, sum)
@@ -670,10 +625,10 @@ func (pr *particleRun) iterate(k int) error {
 		if tm != nil {
 			tm.Resamplings++
 		}
-		pr.clock.lap(&tm0(tm).Resample)
+		pr.clock.lap(&option.OrDiscard(tm).Resample)
 	}
 	pe.mutate(pw, w, h)
-	pr.clock.lap(&tm0(tm).Mutate)
+	pr.clock.lap(&option.OrDiscard(tm).Mutate)
 	return nil
 }
 
@@ -683,7 +638,7 @@ func (pr *particleRun) reweight(q []float32) (sum, sq float64) {
 	pe, pw, ws := pr.pe, pr.pw, pr.ws
 	alpha := float32(pr.fN / pr.wsum)
 	if pe.Potential != PotentialExact {
-		pr.clock.lap(&tm0(pr.clock.tm).Convolution)
+		pr.clock.lap(&option.OrDiscard(pr.clock.tm).Convolution)
 		return pe.reweightSampled(pw, q, ws.s, pr.w, pr.h, alpha)
 	}
 	pe.H.Adjoint(&ws.conv, ws.t, q, pr.w, pr.h)
@@ -695,7 +650,7 @@ func (pr *particleRun) reweight(q []float32) (sum, sq float64) {
 			c[i] = 1
 		}
 	}
-	pr.clock.lap(&tm0(pr.clock.tm).Convolution)
+	pr.clock.lap(&option.OrDiscard(pr.clock.tm).Convolution)
 	return reweightExact(pw.x, pw.y, pw.w, pw.c, pr.w, alpha)
 }
 
@@ -745,11 +700,3 @@ func (pr *particleRun) finish(dst, se []float32) {
 }
 
 // tm0 lets lap take the address of a field of a possibly nil timing record.
-var discardTiming ParticleTiming
-
-func tm0(t *ParticleTiming) *ParticleTiming {
-	if t == nil {
-		return &discardTiming
-	}
-	return t
-}

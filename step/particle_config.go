@@ -2,9 +2,11 @@ package step
 
 import (
 	"fmt"
-	"limpid/step/conv"
-	"limpid/step/resample"
 	"math"
+
+	"limpid/step/conv"
+	"limpid/step/internal/records"
+	"limpid/step/resample"
 )
 
 // Defaults of the particle method (DEVELOPERS.md, "Particle EMS: cost and
@@ -121,31 +123,13 @@ func (cfg *Config) newParticleSolver() *ParticleEMS {
 		Start: pc.Start, Batches: pc.Batches, Replicates: pc.Replicates, Seed: cfg.Seed}
 }
 
-// ParticleReport records the particle method's parameters and, per band,
-// the mean reported Monte Carlo standard error.
-type ParticleReport struct {
-	PerPixel     int                  `json:"particles_per_pixel"`
-	Potential    string               `json:"potential"`
-	Resampling   string               `json:"resampling"`
-	ESSThreshold float64              `json:"ess_threshold"`
-	BurnIn       int                  `json:"burn_in"`
-	Start        string               `json:"start"`
-	Batches      int                  `json:"batches"`
-	Replicates   int                  `json:"replicates"`
-	SEMethod     string               `json:"standard_error_method"`
-	SEBlend      string               `json:"standard_error_blend"`
-	Bands        []ParticleBandReport `json:"bands"`
-}
-
-// ParticleBandReport is one band's Monte Carlo error summary over its valid
-// pixels.
-type ParticleBandReport struct {
-	Band int `json:"band"`
-	// MeanSE is the mean per-pixel standard error (DN); RelativeSE is
-	// sum(SE) / sum(restored - background).
-	MeanSE     float64 `json:"mean_standard_error"`
-	RelativeSE float64 `json:"relative_standard_error"`
-}
+// ParticleReport (the particle method's parameters and per band the mean
+// Monte Carlo standard error) and ParticleBandReport are defined in
+// step/internal/records.
+type (
+	ParticleReport     = records.Particle
+	ParticleBandReport = records.ParticleBand
+)
 
 // SEBlendRule documents how tile standard errors are combined.
 const SEBlendRule = "sqrt(sum_t w_t^2 se_t^2): blend weights w_t of the image, tiles' Monte Carlo errors independent"

@@ -2,20 +2,20 @@ package step
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"math"
 	"runtime"
 	"sort"
-	"strings"
 	"sync"
 	"time"
 
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
+	"limpid/step/internal/errs"
+	"limpid/step/internal/level"
+	"limpid/step/internal/records"
 	"limpid/step/noise"
-	"limpid/step/settings"
 )
 
 // Version is limpid's version, recorded in outputs and reports.
@@ -91,6 +91,11 @@ type Config struct {
 	Stage func(what string)
 	// Particle holds the particle method's parameters (particle_config.go).
 	Particle ParticleConfig
+	// Decided, when set, replays an earlier run's decisions per band
+	// (Report.Decided): Restore decides nothing from the scene.
+	Decided []Decision
+	// Tiles, when set, makes Restore a shard (decided.go).
+	Tiles *TileSink
 	// Uncertainty, when set (particle method only), receives the blended
 	// per-pixel Monte Carlo standard error, same grid and bands as dst
 	// (NaN on invalid pixels). Restore writes it; the caller commits it.
@@ -114,124 +119,42 @@ func DefaultOverlap(k *psf.Kernel, smooth float64, tile int) int {
 	return min(max(o, 16), tile)
 }
 
-// TileReport records one tile's solve.
-type TileReport struct {
-	Col        int     `json:"col"`
-	Row        int     `json:"row"`
-	Iterations int     `json:"iterations"`
-	Change     float64 `json:"final_relative_change"`
-	Flat       bool    `json:"flat,omitempty"`
-	// Changes is the relative change per iteration, kept for the tiles of
-	// the first band nearest the quarter points of the tile plan (all tiles
-	// of a plan with at most 2 per axis; runner.recorded), for the
-	// convergence plot.
-	Changes []float64 `json:"changes,omitempty"`
-}
+// The report types live in step/internal/records (no engine code).
+type (
+	Stop            = records.Stop
+	Choose          = records.Choose
+	Choice          = records.Choice
+	CandidateReport = records.CandidateReport
+	TileChoice      = records.TileChoice
+	TileReport      = records.TileReport
+	BandReport      = records.BandReport
+	Report          = records.Report
+	Decision        = records.Decision
+	RiskMode        = records.RiskMode
+)
 
-// BandReport records one output band.
-type BandReport struct {
-	Band           int     `json:"band"`
-	SourceBand     int     `json:"source_band"`
-	Background     float64 `json:"background"`
-	BackgroundRule string  `json:"background_rule"`
-	FluxBefore     float64 `json:"flux_before"`
-	FluxAfter      float64 `json:"flux_after"`
-	ValidPixels    int64   `json:"valid_pixels"`
-	MaxIterations  int     `json:"max_iterations"`
-	// Noise is the noise model used (estimated or given), when the stop,
-	// the smoothing rule or the noise error map needed one.
-	Noise *noise.Model `json:"noise,omitempty"`
-	// NoiseSE is the mean over valid pixels of the grid method's noise
-	// error map (DN; noisemap.go), when one was written.
-	NoiseSE float64 `json:"mean_noise_se,omitempty"`
-	// Choice records the automatic smoothing/stop choice.
-	Choice *Choice `json:"choice,omitempty"`
-	// Applied is what the band's final pass ran with, read from its solver.
-	Applied *settings.Band `json:"applied,omitempty"`
-	Tiles   []TileReport   `json:"tiles"`
-}
+// Stop rules, choice scopes, stop sources and risk modes (see records).
+const (
+	StopChange, StopAuto, StopDiscrepancy, StopFixed = records.StopChange, records.StopAuto, records.StopDiscrepancy, records.StopFixed
+	ChooseGlobal, ChoosePerTile                      = records.ChooseGlobal, records.ChoosePerTile
+	StopFromSummed, StopFromMedian                   = records.StopFromSummed, records.StopFromMedian
+	RiskDCT, RiskPrediction, RiskSkipped             = records.RiskDCT, records.RiskPrediction, records.RiskSkipped
+)
 
-// Report is what a restoration did.
-type Report struct {
-	Version     string       `json:"limpid_version"`
-	Method      string       `json:"method"`
-	PSF         string       `json:"psf"`
-	PSFSize     [2]int       `json:"psf_size"`
-	PSFUsed     psf.Record   `json:"psf_used"`
-	ConvPath    string       `json:"convolution"`
-	Smooth      *float64     `json:"smooth,omitempty"` // the given bandwidth; nil when chosen (see Bands[].Applied)
-	SmoothRule  string       `json:"smooth_rule"`
-	Stop        Stop         `json:"stop"`
-	Choose      Choose       `json:"choose,omitempty"`
-	Iterations  int          `json:"iterations"`
-	Tolerance   float64      `json:"tolerance"`
-	Tile        int          `json:"tile"`
-	Overlap     int          `json:"overlap"`
-	Blend       int          `json:"blend"`
-	Workers     int          `json:"workers"`
-	Seed        uint64       `json:"seed"`
-	Saturated   *float64     `json:"saturated,omitempty"`
-	Width       int          `json:"width"`
-	Height      int          `json:"height"`
-	Bands       []BandReport `json:"bands"`
-	WallSeconds float64      `json:"wall_seconds"`
-	// Particle is set for the particle method.
-	Particle *ParticleReport `json:"particle,omitempty"`
-}
-
-// TileError locates a failure (like encoding/csv's ParseError).
-type TileError struct {
-	Band, Col, Row int
-	Err            error
-}
-
-func (e *TileError) Error() string {
-	return fmt.Sprintf("band %d tile (%d,%d): %v", e.Band+1, e.Col, e.Row, e.Err)
-}
-
-func (e *TileError) Unwrap() error { return e.Err }
+// The engine's error types live in step/internal/errs.
+type (
+	TileError  = errs.TileError
+	FieldError = errs.FieldError
+)
 
 // ErrConfig is wrapped by configuration errors (exit code 2).
-var ErrConfig = errors.New("bad parameter")
-
-// FieldError is a configuration error about fields of Config. It wraps
-// ErrConfig. Its Text names fields in braces as Go selectors from Config
-// ("{Iterations}", "{Particle.BurnIn}"); Error prints them bare, and a front
-// end that shows them under other names (command-line flags) uses Format.
-type FieldError struct {
-	Field string // the field at fault
-	Text  string // the message, field names in braces
-}
-
-func fieldErrorf(field, format string, a ...any) error {
-	return &FieldError{Field: field, Text: fmt.Sprintf(format, a...)}
-}
+var ErrConfig = errs.ErrConfig
 
 // FieldErrorf is a FieldError about field with the formatted Text (field
 // names in braces), for the engine's sub-packages.
-func FieldErrorf(field, format string, a ...any) error { return fieldErrorf(field, format, a...) }
+var FieldErrorf = errs.FieldErrorf
 
-func (e *FieldError) Error() string { return e.Format(func(f string) string { return f }) }
-
-func (e *FieldError) Unwrap() error { return ErrConfig }
-
-// Format is the message with every braced field name replaced by name(field).
-func (e *FieldError) Format(name func(field string) string) string {
-	var b strings.Builder
-	b.WriteString(ErrConfig.Error() + ": ")
-	t := e.Text
-	for {
-		i := strings.IndexByte(t, '{')
-		j := strings.IndexByte(t[max(i, 0):], '}')
-		if i < 0 || j < 0 {
-			b.WriteString(t)
-			return b.String()
-		}
-		b.WriteString(t[:i])
-		b.WriteString(name(t[i+1 : i+j]))
-		t = t[i+j+1:]
-	}
-}
+var fieldErrorf = errs.FieldErrorf
 
 // NoOverlap as Config.Overlap asks for tiles without a halo.
 const NoOverlap = -1
@@ -400,6 +323,10 @@ func (cfg *Config) NewSolver() Solver {
 // about Width x (Tile + 2 Overlap) x bands floats; output is identical for
 // any number of workers. dst receives NaN for invalid pixels.
 func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Writer, cfg Config) (*Report, error) {
+	return restore(ctx, src, bands, dst, cfg, false)
+}
+
+func restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Writer, cfg Config, decideOnly bool) (*Report, error) {
 	start := time.Now()
 	if err := cfg.Resolve(); err != nil {
 		return nil, err
@@ -420,8 +347,14 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		validity[i] = NewValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated)
 		rep.Bands = append(rep.Bands, BandReport{Band: i + 1, SourceBand: b + 1, Background: cfg.Background, BackgroundRule: "given"})
 	}
+	if cfg.Decided != nil && len(cfg.Decided) != len(bands) {
+		return nil, fmt.Errorf("%w: %d decided bands for %d bands", ErrConfig, len(cfg.Decided), len(bands))
+	}
 	if cfg.BackgroundAuto {
 		bg, err := AutoBackground(src, bands, validity)
+		if cfg.Decided != nil {
+			bg, err = decidedBackground(cfg.Decided), nil
+		}
 		if err != nil {
 			return nil, err
 		}
@@ -431,7 +364,11 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 	}
 	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver,
-		withSE: cfg.Method == MethodParticle || cfg.Uncertainty != nil, dataSE: cfg.Method == MethodGrid && cfg.Uncertainty != nil}
+		withSE: cfg.Method == MethodParticle || cfg.Uncertainty != nil, dataSE: cfg.Method == MethodGrid && cfg.Uncertainty != nil,
+		sink: cfg.Tiles}
+	if cfg.Tiles != nil {
+		r.need = cfg.Tiles.Need
+	}
 	if cfg.SmoothAuto || cfg.Stop != StopChange {
 		if cfg.SmoothAuto || cfg.Stop == StopAuto {
 			rep.Choose = cfg.Choose
@@ -442,13 +379,16 @@ func Restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 		r.solver = s
 	}
-	if r.dataSE && r.noise == nil {
+	if r.dataSE && r.noise == nil && !decideOnly {
 		if _, err := r.bandNoise(ctx); err != nil {
 			return nil, err
 		}
 	}
 	for i := range rep.Bands {
 		rep.Bands[i].Applied = applied(r.solver, i, cfg.SmoothAuto, cfg.Stop == StopAuto, rep.Bands[i].Noise)
+	}
+	if r.finishDecided(); decideOnly {
+		return rep, nil
 	}
 	if err := r.run(ctx); err != nil {
 		return nil, err
@@ -511,44 +451,18 @@ func NewValid(nodata float64, hasND bool, sat float64, hasSat bool) ValidFunc {
 	return func(v float32) bool { return raster.Valid(v, nodata, hasND, sat, hasSat) }
 }
 
-// AutoBackground samples every k-th row (at most ~2000 rows) and returns the
-// BackgroundPercentile of each band's valid pixels, floored at 0.
+// AutoBackground returns the BackgroundPercentile of each band's valid
+// pixels, floored at 0, from every k-th row (level.Background).
 func AutoBackground(src raster.Reader, bands []int, valid []ValidFunc) ([]float64, error) {
-	m := src.Meta()
-	step := max(1, m.Height/2000)
-	row := make([][]float32, len(bands))
-	for i := range row {
-		row[i] = make([]float32, m.Width)
-	}
-	samples := make([][]float32, len(bands))
-	for y := 0; y < m.Height; y += step {
-		if err := src.ReadRows(y, y+1, bands, row); err != nil {
-			return nil, err
-		}
-		for i := range bands {
-			for _, v := range row[i] {
-				if valid[i](v) {
-					samples[i] = append(samples[i], v)
-				}
-			}
-		}
-	}
-	out := make([]float64, len(bands))
-	for i, s := range samples {
-		if len(s) == 0 {
-			continue
-		}
-		sort.Slice(s, func(a, b int) bool { return s[a] < s[b] })
-		k := int(BackgroundPercentile / 100 * float64(len(s)-1))
-		out[i] = math.Max(0, float64(s[k]))
-	}
-	return out, nil
+	return level.Background(src, bands, func(i int, v float32) bool { return valid[i](v) }, BackgroundPercentile)
 }
 
 type runner struct {
 	// need, when set, makes the run a pass: only the tiles it names are
-	// read and solved, and nothing is blended or written.
+	// read and solved, and nothing is blended or written (but with sink,
+	// a shard: their weighted outputs go to sink).
 	need func(col, row int) bool
+	sink *TileSink
 
 	cfg    Config
 	plan   Plan
@@ -723,7 +637,7 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 		return &TileError{Band: k.Band, Col: k.Col, Row: k.Row, Err: err}
 	}
 	j.res = s.Result
-	if sc.need != nil {
+	if sc.need != nil && sc.sink == nil {
 		return nil
 	}
 	j.out, j.ox, j.oy = p.Weigh(j.out, wk, k, s.F, bg)
@@ -737,6 +651,9 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 // writes the finished rows and frees the row's strip.
 func (sc *scan) finish(j *rasterJob, failed bool) error {
 	var err error
+	if !failed && sc.sink != nil {
+		err = sc.put(j)
+	}
 	if !failed && sc.need == nil {
 		sc.blend.Add(j.key.Band, j.ox, j.oy, j.out)
 		if sc.withSE {
@@ -880,7 +797,7 @@ func (w *rowWriter) close() error {
 
 // recorded reports whether tile k keeps its change history.
 func (r *runner) recorded(k TileKey) bool {
-	if k.Band != 0 || r.need != nil {
+	if k.Band != 0 || (r.need != nil && r.sink == nil) {
 		return false
 	}
 	pick := func(i, n int) bool {

@@ -8,13 +8,8 @@ import "math"
 // sqrt(sum_t w_t^2 se_t^2) (variance of a weighted sum of independent
 // estimates). Inside a tile core (w = 1) it is the tile's own SE; across a
 // blending ramp it dips below either tile's SE, as averaging two independent
-// estimates does.
-
-//
-// The noise error map (linear) is blended linearly instead: overlapping
-// tiles restore the same data, so their data-noise errors are nearly
-// equal (fully correlated), and the error of sum_t w_t f_t is then
-// sum_t w_t se_t.
+// estimates does. The noise error map blends linearly (sum w se): overlapping tiles
+// restore the same data, so their data-noise errors are fully correlated.
 
 // weighSE returns w^2 se^2 (linear: w se) over a tile's output window ox x
 // oy (ow x oh), grown into out, with se read from the window it covers and

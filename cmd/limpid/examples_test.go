@@ -11,7 +11,7 @@ import (
 )
 
 // helpExamples are the subcommands whose --help prints examples.
-var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}, {"assess"}, {"clean"}}
+var helpExamples = [][]string{{"psf", "build"}, {"psf", "measure"}, {"simulate"}, {"restore"}, {"tiles", "pack"}, {"assess"}, {"clean"}, {"plan"}, {"merge"}}
 
 // Every example that a subcommand's --help prints runs as written, in
 // order, on the fixtures: input names (scene.tif, in.tif, truth.tif,
@@ -49,7 +49,7 @@ func TestHelpExamplesRun(t *testing.T) {
 					return fixture("observed.tif")
 				case inputs[a]:
 					return crop
-				case regexp.MustCompile(`^[\w.-]+\.(tif|txt|json|arrows)$`).MatchString(a):
+				case regexp.MustCompile(`^[\w.-]+(\.(tif|txt|json|arrows)|/)$`).MatchString(a):
 					return filepath.Join(dir, a)
 				}
 				return a
@@ -162,7 +162,7 @@ func TestREADMEExamplesRun(t *testing.T) {
 				return fixture("observed.tif")
 			case a == "scene.tif" || a == "in.jp2":
 				return crop
-			case a == "curves" || regexp.MustCompile(`^[\w.-]+\.(tif|txt|json|arrows|png|html)$`).MatchString(a):
+			case a == "curves" || regexp.MustCompile(`^[\w.-]+(\.(tif|txt|json|arrows|png|html)|/)$`).MatchString(a):
 				return filepath.Join(dir, a)
 			}
 			return a

@@ -96,6 +96,8 @@ func newApp(stdin io.Reader, stdout, stderr io.Writer, argv []string) *cli.App {
 			simulateCommand(stdin, stdout, stderr),
 			assessCommand(stdout, stderr),
 			cleanCommand(stderr),
+			planCommand(stdin, stdout, stderr),
+			mergeCommand(stdout, stderr),
 		},
 	}
 	// psf measure --edge X0,Y0,X1,Y1 repeats: commas stay inside a value.

@@ -79,13 +79,14 @@ By default the smoothing and the stop are chosen per band from the scene (noise
 model + risk estimate; see the report's "choice"); --smooth EPS --stop change
 gives the fixed behaviour.
 
-Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings only):
+Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings, or a plan
+packed with tiles pack --plan; README, "Scale out", also for --plan and --shard):
    limpid tiles pack scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 --smooth 0.2 --stop change - - | limpid tiles unpack - out.tif
 
 Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
 
 ` + caution,
-		Flags:  append(restoreFlags(), streamFlags()...),
+		Flags:  append(append(restoreFlags(), streamFlags()...), planFlags()...),
 		Action: func(c *cli.Context) error { return restoreAction(c, stdin, stdout, stderr) },
 	}
 }
@@ -319,6 +320,9 @@ func checkPaths(in, out string) error {
 }
 
 func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error {
+	if c.String("plan") != "" || c.String("shard") != "" {
+		return planRestoreAction(c, stdin, stdout, stderr) // plan.go
+	}
 	// Every output path before any work (--psf auto measures INPUT in
 	// parseJob).
 	ins := append([]namedPath{{"INPUT", c.Args().Get(0)}}, psfInputs(c.String("psf"))...)
@@ -326,6 +330,9 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 		{"--quicklook", c.String("quicklook")}, {"--report-html", c.String("report-html")}}
 	if err := checkOutputs(stdout, stderr, ins, outs); err != nil {
 		return err
+	}
+	if c.String("input-format") == "arrow" && !c.IsSet("psf") {
+		return runPlannedStream(c, stdin, stdout, stderr) // planstream.go: a stream that carries a plan
 	}
 	j, err := parseJob(c)
 	if err != nil {

@@ -49,6 +49,7 @@ Examples:
 					&cli.StringFlag{Name: "bands", Usage: "1-based bands to pack, in stream order (default: all)"},
 					&cli.StringFlag{Name: "scene-id", Usage: "scene identifier written to every row (default: INPUT's base name without extension; stdin for -)"},
 					&cli.StringFlag{Name: "compress", Value: "none", Usage: "IPC buffer compression: none, zstd or lz4 (the JavaScript Arrow reader cannot decompress)"},
+					&cli.StringFlag{Name: "plan", Usage: "carry a scene plan (limpid plan) in the stream's metadata (limpid.plan): its tiling and bands, and restore --input-format arrow then needs no --psf and makes the plan's automatic choice"},
 				},
 				Action: func(c *cli.Context) error { return packAction(c, stdin, stdout) },
 			},
@@ -270,10 +271,17 @@ func packAction(c *cli.Context, stdin io.Reader, stdout io.Writer) error {
 	if err != nil {
 		return err
 	}
-	hdr, err := stream.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), in), c.Int("tile"), c.Int("overlap"))
+	tile, overlap, planJSON := c.Int("tile"), c.Int("overlap"), ""
+	if c.String("plan") != "" {
+		if bands, tile, overlap, planJSON, err = packPlan(c, meta); err != nil { // planstream.go
+			return err
+		}
+	}
+	hdr, err := stream.ObservedHeader(meta, bands, sceneID(c.String("scene-id"), in), tile, overlap)
 	if err != nil {
 		return err
 	}
+	hdr.Plan = planJSON
 	tiler, err := stream.NewSceneTiler(src, bands, hdr)
 	if err != nil {
 		return err

@@ -71,6 +71,7 @@ type Writer struct {
 	lo, hi  float64
 	integer bool
 	closed  bool
+	co      []string // the GeoTIFF creation options (relayout.go)
 }
 
 var _ raster.Writer = (*Writer)(nil)
@@ -119,6 +120,7 @@ func Create(path string, meta raster.Meta, opts WriteOptions) (*Writer, error) {
 	if len(meta.Bands) > 1 {
 		co = append(co, "INTERLEAVE=BAND")
 	}
+	w.co = co
 	ds, err := godal.Create(godal.GTiff, w.tmp, len(meta.Bands), dt, meta.Width, meta.Height, godal.CreationOption(co...), quiet)
 	if err != nil {
 		scratch.Remove(w.dir)
@@ -309,10 +311,16 @@ func (w *Writer) CommitContext(ctx context.Context) error {
 		os.Remove(w.tmp)
 		os.Chmod(w.tmpCOG, 0o644)
 		src = w.tmpCOG
-		if err := ctx.Err(); err != nil {
+	} else {
+		var err error
+		if src, err = w.relayout(); err != nil { // relayout.go
 			w.cleanup()
 			return err
 		}
+	}
+	if err := ctx.Err(); err != nil {
+		w.cleanup()
+		return err
 	}
 	if w.out != nil {
 		err := w.copyOut(ctx, src)

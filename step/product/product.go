@@ -18,6 +18,13 @@ const Label = "restored (deconvolved) image; keep the original"
 // uncertaintyLabel is the LIMPID_PRODUCT item of a standard-error raster.
 const uncertaintyLabel = "Monte Carlo standard error (DN) of a restored (deconvolved) image"
 
+// noiseMapRule and noiseMapBlendRule describe the grid method's noise error
+// map (step/noisemap.go) in its metadata.
+const (
+	noiseMapRule      = "data noise (the band's noise model) propagated through the linearised EMS recursion: one Rademacher probe scaled by the noise standard deviation, its squared derivative averaged over 7 x 7 valid pixels (Hutchinson 1989)"
+	noiseMapBlendRule = "tiles blended linearly (overlapping tiles restore the same data: their errors are fully correlated)"
+)
+
 // noiseMapLabel is the LIMPID_PRODUCT item of the grid method's noise error
 // map.
 const noiseMapLabel = "noise standard error (DN) of a restored (deconvolved) image: the data noise propagated through the restoration; PSF and noise-model errors are not in it"
@@ -162,8 +169,8 @@ func UncertaintyMetadata(rep *step.Report) Record {
 			{"LIMPID_VERSION", rep.Version},
 			{"LIMPID_METHOD", "EMS (" + rep.Method + ")"},
 			{"LIMPID_PSF", rep.PSF},
-			{"LIMPID_SE_BLEND", step.NoiseMapBlendRule},
-			{"LIMPID_SE_METHOD", step.NoiseMapRule},
+			{"LIMPID_SE_BLEND", noiseMapBlendRule},
+			{"LIMPID_SE_METHOD", noiseMapRule},
 		}
 		for _, b := range rep.Bands {
 			items := []Item{{"LIMPID_MEAN_NOISE_STANDARD_ERROR", fmt.Sprintf("%.6g", b.NoiseSE)}}

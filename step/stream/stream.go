@@ -11,6 +11,7 @@ import (
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step"
+	"limpid/step/plan"
 	"limpid/step/settings"
 )
 
@@ -110,6 +111,9 @@ func RestoredHeader(in *arrowio.Header, cfg step.Config, backgrounds []float64) 
 func ReportFromHeader(h *arrowio.Header) (*step.Report, error) {
 	if h.Restored == nil {
 		return nil, errors.New("not a restored stream")
+	}
+	if h.Plan != "" {
+		return planReport(h)
 	}
 	var p streamParams
 	if err := json.Unmarshal([]byte(h.Restored.Parameters), &p); err != nil {
@@ -286,7 +290,14 @@ func RestoreTiles(ctx context.Context, in *arrowio.Header, backgrounds []float64
 	if err != nil {
 		return fmt.Errorf("%w: %v", step.ErrConfig, err)
 	}
-	st := &streamRun{plan: plan, solver: cfg.NewSolver(), backgrounds: backgrounds, src: src, dst: dst, progress: cfg.Progress}
+	solver := cfg.NewSolver()
+	if cfg.Decided != nil {
+		// A scene plan's decisions (limpid plan): the raster route's solvers.
+		if solver, err = cfg.DecidedSolver(plan); err != nil {
+			return err
+		}
+	}
+	st := &streamRun{plan: plan, solver: solver, backgrounds: backgrounds, src: src, dst: dst, progress: cfg.Progress}
 	for _, b := range in.Bands {
 		st.valid = append(st.valid, step.NewValid(b.NoData, b.HasNoData, cfg.Saturated, cfg.HasSaturated))
 	}
@@ -559,4 +570,16 @@ func (a *Assembler) Finish() error {
 		}
 	}
 	return nil
+}
+
+// planReport is the report of a stream restored with a scene plan
+// (arrowio.KeyPlan): the plan's, as the raster route writes it.
+func planReport(h *arrowio.Header) (*step.Report, error) {
+	var p plan.File
+	if err := json.Unmarshal([]byte(h.Plan), &p); err != nil || p.Report == nil || len(p.Report.Bands) != len(h.Bands) {
+		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("metadata %s: not a plan for this stream's %d bands", arrowio.KeyPlan, len(h.Bands))}
+	}
+	rep := *p.Report
+	rep.Bands = append([]step.BandReport(nil), p.Report.Bands...)
+	return &rep, nil
 }

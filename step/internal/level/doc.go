@@ -1,0 +1,3 @@
+// Package level measures scene-wide levels from sampled rows: the
+// background percentile of Restore's --background auto.
+package level
