@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"os"
 	"io"
 	"math"
 
@@ -115,6 +116,15 @@ func openAssessInputs(obsPath, resPath, refPath string) ([]*assessInput, error) 
 		}
 		in.r, in.m = r, r.Meta()
 		ins = append(ins, in)
+		// Each band is held whole (with its SSIM planes) before any pixel
+		// is read: bound it like every whole-band reader.
+		lim, err := raster.LimitsFrom(os.Getenv)
+		if err == nil {
+			err = lim.CheckWhole(in.flag+" "+in.path, "each band (read one at a time)", in.m.Width, in.m.Height, 1)
+		}
+		if err != nil {
+			return fail(err)
+		}
 		if mo := ins[0].m; in.m.Width != mo.Width || in.m.Height != mo.Height || len(in.m.Bands) != len(mo.Bands) {
 			return fail(usagef("%s %s is %s; OBSERVED %s is %s: they must match", in.flag, in.path, gridText(in.m), obsPath, gridText(mo)))
 		}

@@ -78,6 +78,8 @@ func usageCases(t *testing.T, dir string) []usageCase {
 		"noise":        nil,
 		"psf build":    nil,
 		"assess":       nil,
+		"plan":         {"--psf", "gaussian:sigma=1.4"},
+		"merge":        nil,
 	}
 	operands := map[string][]string{
 		"restore":      {obs, filepath.Join(dir, "restored.tif")},
@@ -90,6 +92,8 @@ func usageCases(t *testing.T, dir string) []usageCase {
 		"psf build":    {"gaussian:sigma=1", filepath.Join(dir, "psf.txt")},
 		"assess":       {obs, obs},
 		"clean":        {},
+		"plan":         {obs, filepath.Join(dir, "scene.plan.json")},
+		"merge":        {filepath.Join(dir, "shards"), filepath.Join(dir, "merged.tif")},
 	}
 	cases := []usageCase{
 		{"no command", nil, nil, "no command given"},
