@@ -3,8 +3,9 @@
 # --no-install-recommends, Go modules, the pinned npm packages of
 # testdata/node) and is safe to run again:
 #   make build / make demo   gcc libgdal-dev pkg-config (the cgo build), Go modules
-#   make test / test-long    + gdal-bin python3-gdal chromium (the tests'
-#                            cross-checks), nodejs npm when `node` is absent,
+#   make test / test-long    + gdal-bin python3-gdal python3-skimage chromium
+#                            slurm-wlm munge parallel (the tests' cross-checks
+#                            and engines), nodejs npm when `node` is absent,
 #                            npm ci in testdata/node
 #   make deps-ref            python3-skimage, only to regenerate the committed
 #                            reference vectors (testdata/ref/*.py)
@@ -14,10 +15,13 @@ GO ?= go
 # else brings a C compiler (libc6-dev only recommends one).
 BUILD_PKGS := gcc libgdal-dev pkg-config
 # What the tests run: gdalinfo and gdal_translate (gdal-bin), the COG
-# validator under /usr/bin/python3 (python3-gdal), the headless browser of
-# the HTML report test (chromium; no driver is used).
-TEST_PKGS := gdal-bin python3-gdal chromium
-# Only the generators of testdata/ref run scikit-image (and scipy, numpy).
+# validator under /usr/bin/python3 (python3-gdal), scikit-image for the
+# side-by-side assess check (python3-skimage), the headless browser of the
+# HTML report test (chromium; no driver is used), and the scale-out test's
+# single-node Slurm and GNU parallel (slurm-wlm munge parallel; the test
+# starts and stops its own daemons).
+TEST_PKGS := gdal-bin python3-gdal python3-skimage chromium slurm-wlm munge parallel
+# The generators of testdata/ref run scikit-image (and scipy, numpy).
 REF_PKGS := python3-skimage
 SUDO := $(shell [ "$$(id -u)" = 0 ] || echo sudo)
 APT_INSTALL := DEBIAN_FRONTEND=noninteractive $(SUDO) apt-get install -y -q --no-install-recommends
