@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 	"runtime"
+	"slices"
 	"sort"
 	"strings"
 	"time"
@@ -489,7 +490,10 @@ func NewValid(nodata float64, hasND bool, sat float64, hasSat bool) ValidFunc {
 }
 
 // AutoBackground samples every k-th row (at most ~2000 rows) and returns the
-// BackgroundPercentile of each band's valid pixels, floored at 0.
+// BackgroundPercentile of each band's valid pixels, floored at 0. Of the
+// samples it keeps only the smallest ones that can hold the percentile (that
+// share of all sampled pixels, in a max-heap), which gives the same value as
+// sorting them all.
 func AutoBackground(src raster.Reader, bands []int, valid []ValidFunc) ([]float64, error) {
 	m := src.Meta()
 	step := max(1, m.Height/2000)
@@ -497,7 +501,11 @@ func AutoBackground(src raster.Reader, bands []int, valid []ValidFunc) ([]float6
 	for i := range row {
 		row[i] = make([]float32, m.Width)
 	}
-	samples := make([][]float32, len(bands))
+	// The rank taken below grows with the count of valid samples, which is
+	// at most every sampled pixel.
+	rank := func(n int) int { return int(BackgroundPercentile / 100 * float64(n-1)) }
+	keep := rank((m.Height+step-1)/step*m.Width) + 1
+	low := make([]lowest, len(bands))
 	for y := 0; y < m.Height; y += step {
 		if err := src.ReadRows(y, y+1, bands, row); err != nil {
 			return nil, err
@@ -505,21 +513,53 @@ func AutoBackground(src raster.Reader, bands []int, valid []ValidFunc) ([]float6
 		for i := range bands {
 			for _, v := range row[i] {
 				if valid[i](v) {
-					samples[i] = append(samples[i], v)
+					low[i].add(v, keep)
 				}
 			}
 		}
 	}
 	out := make([]float64, len(bands))
-	for i, s := range samples {
-		if len(s) == 0 {
+	for i, l := range low {
+		if l.n == 0 {
 			continue
 		}
-		sort.Slice(s, func(a, b int) bool { return s[a] < s[b] })
-		k := int(BackgroundPercentile / 100 * float64(len(s)-1))
-		out[i] = math.Max(0, float64(s[k]))
+		slices.Sort(l.v)
+		out[i] = math.Max(0, float64(l.v[rank(l.n)]))
 	}
 	return out, nil
+}
+
+// lowest keeps the smallest of the values added (at most keep, a max-heap)
+// and counts them all.
+type lowest struct {
+	v []float32
+	n int
+}
+
+func (l *lowest) add(x float32, keep int) {
+	l.n++
+	h := l.v
+	switch {
+	case len(h) < keep:
+		h = append(h, x)
+		for i := len(h) - 1; i > 0 && h[(i-1)/2] < h[i]; i = (i - 1) / 2 {
+			h[i], h[(i-1)/2] = h[(i-1)/2], h[i]
+		}
+	case x < h[0]:
+		h[0] = x
+		for i := 0; ; {
+			c := 2*i + 1
+			if c+1 < len(h) && h[c+1] > h[c] {
+				c++
+			}
+			if c >= len(h) || h[c] <= h[i] {
+				break
+			}
+			h[i], h[c] = h[c], h[i]
+			i = c
+		}
+	}
+	l.v = h
 }
 
 type runner struct {
