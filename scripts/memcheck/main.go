@@ -146,7 +146,7 @@ func main() {
 			failed = true
 		}
 		fmt.Printf("| %s | %s | %s%s | %.0f |\n", r.name, r.desc, strings.Join(cells, ", "), status, wall)
-		cleanup(*dir, in, run[i+1:])
+		cleanup(r, run[i+1:])
 	}
 	if failed {
 		if *limit > 0 {
@@ -164,20 +164,20 @@ func procName(args []string) string {
 	return args[0]
 }
 
-// cleanup removes every output but the scene, the binary and the files a
-// later route needs.
-func cleanup(dir, in string, later []route) {
-	keep := map[string]bool{in: true, filepath.Join(dir, "limpid"): true}
-	for _, r := range later {
-		if r.needs != "" {
-			keep[r.needs] = true
+// cleanup removes the outputs of route r (each command's last argument
+// when it is a file) unless a later route needs them. Nothing else in the
+// directory is touched (another run may share it).
+func cleanup(r route, later []route) {
+	keep := map[string]bool{}
+	for _, l := range later {
+		if l.needs != "" {
+			keep[l.needs] = true
 		}
 	}
-	ents, _ := os.ReadDir(dir)
-	for _, e := range ents {
-		p := filepath.Join(dir, e.Name())
-		if !keep[p] {
-			os.Remove(p)
+	for _, c := range r.cmds {
+		out := c[len(c)-1]
+		if out != "-" && !keep[out] {
+			os.Remove(out)
 		}
 	}
 }
