@@ -165,8 +165,8 @@ func procName(args []string) string {
 }
 
 // cleanup removes the outputs of route r (each command's last argument
-// when it is a file) unless a later route needs them. Nothing else in the
-// directory is touched (another run may share it).
+// when it is a file) and the file it read, unless a later route needs them.
+// Nothing else in the directory is touched (another run may share it).
 func cleanup(r route, later []route) {
 	keep := map[string]bool{}
 	for _, l := range later {
@@ -179,6 +179,9 @@ func cleanup(r route, later []route) {
 		if out != "-" && !keep[out] {
 			os.Remove(out)
 		}
+	}
+	if r.needs != "" && !keep[r.needs] {
+		os.Remove(r.needs) // the last route that reads it
 	}
 }
 
