@@ -144,11 +144,11 @@ func (kr *keptReplay) Solve(ctx context.Context, ws *Workspace, p *Problem, dst 
 // NaN, so the merged sum is NaN there, as the single run writes).
 func (sc *scan) put(j *rasterJob) error {
 	W := sc.plan.W
-	src := j.strip.rows[j.key.Band]
+	src := j.strip.Rows[j.key.Band]
 	valid := sc.valid[j.key.Band]
 	ow := j.ox.Len()
 	for y := 0; y < j.oy.Len(); y++ {
-		srow := src[(j.oy.Start+y-j.strip.y)*W+j.ox.Start:]
+		srow := src[(j.oy.Start+y-j.strip.Y)*W+j.ox.Start:]
 		orow := j.out[y*ow : (y+1)*ow]
 		for x := range orow {
 			if !valid(srow[x]) {

@@ -6,7 +6,6 @@ import (
 	"math"
 	"runtime"
 	"sort"
-	"sync"
 	"time"
 
 	"limpid/psf"
@@ -16,6 +15,7 @@ import (
 	"limpid/step/internal/level"
 	"limpid/step/internal/records"
 	"limpid/step/noise"
+	"limpid/step/rowio"
 )
 
 // Version is limpid's version, recorded in outputs and reports.
@@ -482,18 +482,11 @@ type runner struct {
 	noise          []noise.Model
 }
 
-// strip is a block of source rows of every band: the rows a tile row's
-// input windows touch.
-type strip struct {
-	y    int
-	rows [][]float32 // per band, W x height
-}
-
 // rasterJob is one tile of the raster route and its weighted output window.
 type rasterJob struct {
 	key   TileKey
-	strip *strip
-	last  bool // the last tile of its tile row that the run produces
+	strip *rowio.Strip // the rows its tile row's input windows touch
+	last  bool         // the last tile of its tile row that the run produces
 	out   []float32
 	seOut []float32 // w^2 se^2 when the solver reports standard errors
 	ox    Span
@@ -503,48 +496,55 @@ type rasterJob struct {
 
 // scan is one run of the raster route over the scene (runner.run): it reads
 // strips of source rows, feeds their tiles through runOrdered and blends
-// and writes the finished rows.
+// and writes the finished rows. Its memory does not grow with the scene's
+// height: two strips (one read ahead while the other is solved), the
+// blender's strips, one set of output rows being written, and a ring of job
+// slots sized by the workers.
 type scan struct {
 	*runner
-	strips  chan *strip // free strips: one is read while the other is solved
-	jobs    []rasterJob // two tile rows of job slots, reused
-	blend   *Blender    // weighted outputs
-	blendSE *Blender    // weighted standard errors (withSE)
-	out     *rowWriter  // finished rows, written on their own goroutine
-	row     int         // producer position: tile row, band, column
+	ahead   *rowio.Ahead  // source strips, read on their own goroutine
+	jobs    []rasterJob   // a ring of job slots, as many as jobs in flight
+	seq     int           // jobs produced
+	blend   *Blender      // weighted outputs
+	blendSE *Blender      // weighted standard errors (withSE)
+	out     *rowio.Writer // finished rows, written on their own goroutine
+	row     int           // producer position: tile row, band, column
 	band    int
 	col     int
-	cur     *strip
+	cur     *rowio.Strip
 	done    int
 }
 
 func (r *runner) run(ctx context.Context) error {
 	p := r.plan
 	nb := len(r.bands)
-	sc := &scan{runner: r, strips: make(chan *strip, 2), jobs: make([]rasterJob, 2*nb*len(p.Cols))}
+	nw := min(r.cfg.Workers, nb*len(p.Cols))
+	// In flight: a tile per worker, as many waiting, and two for the
+	// consumer; RunOrdered keeps job seq's slot (seq mod len) busy until
+	// job seq is finished.
+	sc := &scan{runner: r, jobs: make([]rasterJob, 2*nw+2)}
+	var spans []rowio.Span
 	maxRows := 0
 	for i := range p.Rows {
-		maxRows = max(maxRows, sourceRange(p.InSpan(p.Rows, i), p.H).Len())
-	}
-	for k := 0; k < 2; k++ {
-		st := &strip{rows: make([][]float32, nb)}
-		for i := range st.rows {
-			st.rows[i] = make([]float32, p.W*maxRows)
+		in := sourceRange(p.InSpan(p.Rows, i), p.H)
+		maxRows = max(maxRows, in.Len())
+		if sc.rowNeeded(i) {
+			spans = append(spans, rowio.Span{Start: in.Start, End: in.End})
 		}
-		sc.strips <- st
 	}
+	sc.ahead = rowio.NewAhead(ctx, r.src, r.bands, spans, 2, p.W*maxRows)
+	defer sc.ahead.Close()
 	if r.need == nil {
 		sc.blend = NewBlender(p, nb, false)
 		if r.withSE {
 			sc.blendSE = NewBlender(p, nb, false)
 			r.seSum, r.seFlux = make([]float64, nb), make([]float64, nb)
 		}
-		sc.out = newRowWriter(r.dst, r.cfg.Uncertainty, nb, p.W*sc.blend.StripRows(), r.withSE)
+		sc.out = rowio.NewWriter(r.dst, r.cfg.Uncertainty, nb, p.W*sc.blend.StripRows(), r.withSE)
 	}
-	nw := min(r.cfg.Workers, nb*len(p.Cols))
 	err := RunOrdered(ctx, nw, len(sc.jobs), sc.produce, sc.solve, sc.finish)
 	if sc.out != nil {
-		if werr := sc.out.close(); err == nil {
+		if werr := sc.out.Close(); err == nil {
 			err = werr
 		}
 	}
@@ -575,7 +575,8 @@ func (sc *scan) produce(ctx context.Context) (*rasterJob, bool, error) {
 			if !sc.rowNeeded(sc.row) {
 				continue
 			}
-			if err := sc.readStrip(ctx); err != nil {
+			var err error
+			if sc.cur, err = sc.ahead.Next(ctx); err != nil {
 				return nil, false, err
 			}
 		}
@@ -584,7 +585,8 @@ func (sc *scan) produce(ctx context.Context) (*rasterJob, bool, error) {
 				if sc.need != nil && !sc.need(sc.col, sc.row) {
 					continue
 				}
-				j := &sc.jobs[(sc.row%2)*nb*nc+sc.band*nc+sc.col]
+				j := &sc.jobs[sc.seq%len(sc.jobs)]
+				sc.seq++
 				j.key, j.strip, j.last = TileKey{Band: sc.band, Col: sc.col, Row: sc.row}, sc.cur, sc.lastOfRow(sc.band, sc.col)
 				sc.col++
 				return j, true, nil
@@ -608,26 +610,13 @@ func (sc *scan) lastOfRow(band, col int) bool {
 	return true
 }
 
-// readStrip takes a free strip and reads the current tile row's source rows
-// into it.
-func (sc *scan) readStrip(ctx context.Context) error {
-	select {
-	case sc.cur = <-sc.strips:
-	case <-ctx.Done():
-		return ctx.Err()
-	}
-	in := sourceRange(sc.plan.InSpan(sc.plan.Rows, sc.row), sc.plan.H)
-	sc.cur.y = in.Start
-	return sc.src.ReadRows(in.Start, in.End, sc.bands, sc.cur.rows)
-}
-
 // solve restores one tile and weights its output window (a pass keeps only
 // the solver's side effects).
 func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 	p := sc.plan
 	k := j.key
 	bg := float32(sc.rep.Bands[k.Band].Background)
-	src := Window{Pix: j.strip.rows[k.Band], Y: j.strip.y, W: p.W}
+	src := Window{Pix: j.strip.Rows[k.Band], Y: j.strip.Y, W: p.W}
 	var nm *noise.Model
 	if sc.dataSE {
 		nm = &sc.noise[k.Band]
@@ -666,18 +655,18 @@ func (sc *scan) finish(j *rasterJob, failed bool) error {
 		}
 	}
 	if j.last {
-		sc.strips <- j.strip
+		sc.ahead.Release(j.strip)
 	}
 	return err
 }
 
 // writeRow hands the rows finished by tile row `row` to the writer: NaN
 // where the input is invalid, with the flux bookkeeping over valid pixels.
-func (sc *scan) writeRow(row int, st *strip) error {
+func (sc *scan) writeRow(row int, st *rowio.Strip) error {
 	W := sc.plan.W
 	end := sc.blend.RowEnd(row)
 	n := end - sc.blend.Y()
-	bufs, err := sc.out.buffer()
+	bufs, err := sc.out.Buffer()
 	if err != nil {
 		return err
 	}
@@ -685,8 +674,8 @@ func (sc *scan) writeRow(row int, st *strip) error {
 		acc, out := sc.blend.Rows(b, n), bufs[b][:n*W]
 		br := &sc.rep.Bands[b]
 		for y := 0; y < n; y++ {
-			sy := sc.blend.Y() + y - st.y
-			srow := st.rows[b][sy*W : (sy+1)*W]
+			sy := sc.blend.Y() + y - st.Y
+			srow := st.Rows[b][sy*W : (sy+1)*W]
 			arow, orow := acc[y*W:(y+1)*W], out[y*W:(y+1)*W]
 			for x, v := range srow {
 				if sc.valid[b](v) {
@@ -705,94 +694,13 @@ func (sc *scan) writeRow(row int, st *strip) error {
 		se = sc.outputSE(n, st)
 		sc.blendSE.Shift(n)
 	}
-	sc.out.write(writeJob{y0: sc.blend.Y(), y1: end, bufs: bufs, se: se})
+	sc.out.Write(rowio.Job{Y0: sc.blend.Y(), Y1: end, Rows: bufs, SE: se})
 	sc.blend.Shift(n)
 	sc.done += len(sc.bands) * len(sc.plan.Cols)
 	if sc.cfg.Progress != nil {
 		sc.cfg.Progress(sc.done, len(sc.bands)*sc.plan.NTiles())
 	}
 	return nil
-}
-
-// rowWriter writes finished rows on its own goroutine, so that compression
-// overlaps the next rows' computation; two buffers circulate.
-type rowWriter struct {
-	dst, unc     raster.Writer
-	jobs         chan writeJob
-	free, freeSE chan [][]float32
-	done         chan struct{}
-	mu           sync.Mutex
-	err          error
-}
-
-type writeJob struct {
-	y0, y1 int
-	bufs   [][]float32
-	se     [][]float32 // nil without standard errors
-}
-
-func newRowWriter(dst, unc raster.Writer, nb, n int, withSE bool) *rowWriter {
-	w := &rowWriter{dst: dst, unc: unc, jobs: make(chan writeJob), free: make(chan [][]float32, 2), done: make(chan struct{})}
-	bufs := func() [][]float32 {
-		b := make([][]float32, nb)
-		for i := range b {
-			b[i] = make([]float32, n)
-		}
-		return b
-	}
-	w.free <- bufs()
-	w.free <- bufs()
-	if withSE {
-		w.freeSE = make(chan [][]float32, 2)
-		w.freeSE <- bufs()
-		w.freeSE <- bufs()
-	}
-	go w.loop()
-	return w
-}
-
-func (w *rowWriter) loop() {
-	defer close(w.done)
-	for j := range w.jobs {
-		if w.failed() == nil {
-			err := w.dst.WriteRows(j.y0, j.y1, j.bufs)
-			if err == nil && j.se != nil && w.unc != nil {
-				err = w.unc.WriteRows(j.y0, j.y1, j.se)
-			}
-			w.mu.Lock()
-			w.err = err
-			w.mu.Unlock()
-		}
-		w.free <- j.bufs
-		if j.se != nil {
-			w.freeSE <- j.se
-		}
-	}
-}
-
-func (w *rowWriter) failed() error {
-	w.mu.Lock()
-	defer w.mu.Unlock()
-	return w.err
-}
-
-// buffer returns a free set of row buffers, or the writer's failure.
-func (w *rowWriter) buffer() ([][]float32, error) {
-	bufs := <-w.free
-	if err := w.failed(); err != nil {
-		w.free <- bufs
-		return nil, err
-	}
-	return bufs, nil
-}
-
-func (w *rowWriter) write(j writeJob) { w.jobs <- j }
-
-// close waits for the queued rows and returns the first write failure.
-func (w *rowWriter) close() error {
-	close(w.jobs)
-	<-w.done
-	return w.failed()
 }
 
 // recorded reports whether tile k keeps its change history.

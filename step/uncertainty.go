@@ -1,6 +1,10 @@
 package step
 
-import "math"
+import (
+	"math"
+
+	"limpid/step/rowio"
+)
 
 // The blended Monte Carlo standard error. Tiles are restored with
 // independent random streams, so their Monte Carlo errors are independent
@@ -39,16 +43,16 @@ func weighSE(out []float32, wk *TileWork, res Result, ow, oh int, se Window, ox,
 
 // outputSE turns the first n accumulated rows into standard errors (NaN on
 // invalid pixels of strip st) and adds them to the report's sums.
-func (sc *scan) outputSE(n int, st *strip) [][]float32 {
+func (sc *scan) outputSE(n int, st *rowio.Strip) [][]float32 {
 	W := sc.plan.W
-	bufs := <-sc.out.freeSE
+	bufs := sc.out.BufferSE()
 	for b := range bufs {
 		acc, img := sc.blendSE.Rows(b, n), sc.blend.Rows(b, n)
 		out := bufs[b][:n*W]
 		bg := sc.rep.Bands[b].Background
 		for y := 0; y < n; y++ {
-			sy := sc.blend.Y() + y - st.y
-			srow := st.rows[b][sy*W : (sy+1)*W]
+			sy := sc.blend.Y() + y - st.Y
+			srow := st.Rows[b][sy*W : (sy+1)*W]
 			for x, v := range srow {
 				i := y*W + x
 				if sc.valid[b](v) {

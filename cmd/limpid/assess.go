@@ -2,9 +2,9 @@ package main
 
 import (
 	"fmt"
-	"os"
 	"io"
 	"math"
+	"os"
 
 	"github.com/urfave/cli/v2"
 

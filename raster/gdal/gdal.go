@@ -3,7 +3,6 @@ package gdal
 import (
 	"errors"
 	"fmt"
-	"os"
 	"strings"
 	"sync"
 
@@ -12,14 +11,13 @@ import (
 
 var registerOnce sync.Once
 
-// Init registers GDAL's drivers once and bounds GDAL's block cache so that
-// memory stays bounded by limpid's strips (GDAL's default is 5 % of RAM).
+// Init registers GDAL's drivers once and bounds GDAL's block cache
+// (DefaultCacheMax, unless GDAL_CACHEMAX is set) so that memory stays
+// bounded by limpid's strips (GDAL's default is 5 % of RAM).
 func Init() {
 	registerOnce.Do(func() {
-		if os.Getenv("GDAL_CACHEMAX") == "" {
-			os.Setenv("GDAL_CACHEMAX", "64")
-		}
 		godal.RegisterAll()
+		limitCache()
 	})
 }
 

@@ -9,6 +9,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime/debug"
 	"sort"
 	"syscall"
 
@@ -214,52 +215,66 @@ func sortedKeys(m map[string]string) []string {
 	return k
 }
 
+// writeChunk bounds the rows WriteRows converts and hands to GDAL at a time
+// to about this many pixels (4 MiB of float32), so that its conversion
+// buffer does not grow with the scene's width times the strip's height.
+const writeChunk = 1 << 20
+
 // WriteRows implements raster.Writer: NaN becomes nodata, integer outputs are
-// rounded to nearest and clamped.
+// rounded to nearest and clamped. The rows go to GDAL in chunks of whole rows
+// (writeChunk).
 func (w *Writer) WriteRows(y0, y1 int, src [][]float32) error {
-	n := (y1 - y0) * w.meta.Width
+	W := w.meta.Width
+	step := max(1, writeChunk/W)
+	for i, b := range w.ds.Bands() {
+		for r0 := y0; r0 < y1; r0 += step {
+			r1 := min(r0+step, y1)
+			if err := w.writeBand(b, r0, r1, src[i][(r0-y0)*W:(r1-y0)*W]); err != nil {
+				return fmt.Errorf("raster: writing band %d rows %d-%d: %w", i+1, r0, r1-1, err)
+			}
+		}
+	}
+	return nil
+}
+
+// writeBand converts rows [y0, y1) of one band (src) to the output's values
+// and writes them.
+func (w *Writer) writeBand(b godal.Band, y0, y1 int, src []float32) error {
+	n := len(src)
 	if cap(w.buf) < n {
 		w.buf = make([]float32, n)
 	}
 	buf := w.buf[:n]
 	nd := float32(w.opts.NoData)
-	for i, b := range w.ds.Bands() {
-		for j, v := range src[i][:n] {
-			switch {
-			case v != v:
-				if w.opts.HasNoData {
-					v = nd
-				}
-			case w.integer:
-				f := math.RoundToEven(float64(v))
-				if f < w.lo {
-					f = w.lo
-				} else if f > w.hi {
-					f = w.hi
-				}
-				v = float32(f)
+	for j, v := range src {
+		switch {
+		case v != v:
+			if w.opts.HasNoData {
+				v = nd
 			}
-			buf[j] = v
+		case w.integer:
+			f := math.RoundToEven(float64(v))
+			if f < w.lo {
+				f = w.lo
+			} else if f > w.hi {
+				f = w.hi
+			}
+			v = float32(f)
 		}
-		if w.integer && w.hi > 1<<24 {
-			// float32 cannot hold every 32-bit integer: go through float64.
-			if cap(w.buf64) < n {
-				w.buf64 = make([]float64, n)
-			}
-			b64 := w.buf64[:n]
-			for j, v := range buf {
-				b64[j] = float64(v)
-			}
-			if err := b.Write(0, y0, b64, w.meta.Width, y1-y0, quiet); err != nil {
-				return fmt.Errorf("raster: writing band %d rows %d-%d: %w", i+1, y0, y1-1, err)
-			}
-			continue
-		}
-		if err := b.Write(0, y0, buf, w.meta.Width, y1-y0, quiet); err != nil {
-			return fmt.Errorf("raster: writing band %d rows %d-%d: %w", i+1, y0, y1-1, err)
-		}
+		buf[j] = v
 	}
-	return nil
+	if w.integer && w.hi > 1<<24 {
+		// float32 cannot hold every 32-bit integer: go through float64.
+		if cap(w.buf64) < n {
+			w.buf64 = make([]float64, n)
+		}
+		b64 := w.buf64[:n]
+		for j, v := range buf {
+			b64[j] = float64(v)
+		}
+		return b.Write(0, y0, b64, w.meta.Width, y1-y0, quiet)
+	}
+	return b.Write(0, y0, buf, w.meta.Width, y1-y0, quiet)
 }
 
 // SetMetadata adds a dataset metadata item (processing record).
@@ -298,6 +313,10 @@ func (w *Writer) CommitContext(ctx context.Context) error {
 	}
 	src := w.tmp
 	if w.opts.Format == COG {
+		// GDAL's COG copy (overviews included) runs in C memory: hand the
+		// pages of the Go heap that the restoration no longer uses back to
+		// the system first, so that the two do not add up in the peak RSS.
+		debug.FreeOSMemory()
 		w.tmpCOG = filepath.Join(w.dir, "product.cog.tif")
 		err := translate(ctx, w.tmpCOG, w.tmp, []string{"-of", "COG", "-co", "COMPRESS=DEFLATE", "-co", "PREDICTOR=YES",
 			"-co", "BIGTIFF=IF_SAFER", "-co", "BLOCKSIZE=512"})

@@ -438,20 +438,23 @@ func grow(b []float32, n int) []float32 {
 // restored stream it weights the tiles' output windows (step.Plan.Weigh) and
 // blends them with the tile pipeline's blender in Restore's order (tile row,
 // band, column), so the result equals Restore's bit for bit; for an observed
-// stream it copies the tile cores. Tiles may arrive in any order; a tile row
-// is written once all its tiles are there (out-of-order rows wait in
-// memory).
+// stream it copies the tile cores. Tiles may arrive in any order: a tile that
+// comes in that order is added at once, others wait in memory until their
+// turn; a tile row is written once all its tiles are added. Its memory is
+// the blender's strips and one tile window for a stream in order, whatever
+// the scene's height.
 type Assembler struct {
 	hdr      *arrowio.Header
 	plan     step.Plan
 	dst      raster.Writer
 	restored bool
 	nb       int
-	rows     map[int][]*asmTile
-	counts   map[int]int
-	nextRow  int
+	rows     map[int][]*asmTile // tiles that came before their turn
+	nextRow  int                // the tile row being added
+	added    int                // tiles of nextRow added, in (band, column) order
 	blend    *step.Blender
-	buf      [][]float32
+	out      []float32     // the window of a tile added at once
+	rowsOut  [][]float32   // the blender's finished rows, per band
 	wk       step.TileWork // blend weights
 	// Report, when set (restored streams), receives per-tile records and the
 	// per-band maximum iteration count.
@@ -476,19 +479,35 @@ func NewAssembler(h *arrowio.Header, dst raster.Writer) (*Assembler, error) {
 		return nil, fmt.Errorf("%w: %v", step.ErrConfig, err)
 	}
 	a := &Assembler{hdr: h, plan: p, dst: dst, restored: h.Kind == arrowio.KindRestored, nb: len(h.Bands),
-		rows: map[int][]*asmTile{}, counts: map[int]int{}}
-	// Two strips (accumulator and write buffer) per band: refuse what a
-	// stream's header cannot honestly need on one machine.
+		rows: map[int][]*asmTile{}}
+	// Refuse what a stream's header cannot honestly need on one machine: the
+	// accumulator strips, counted twice (the rule from when rows were copied
+	// out of them to be written; kept so that the same headers pass).
 	maxOut := step.NewBlender(p, 0, !a.restored).StripRows()
 	if need := 2 * int64(a.nb) * int64(p.W) * int64(maxOut) * 4; need > maxAssemblerBytes {
 		return nil, &arrowio.StreamError{Row: -1, Err: fmt.Errorf("%d bands of a %d-pixel-wide scene in strips of %d rows need %d GiB: more than the %d GiB limit", a.nb, p.W, maxOut, need>>30, maxAssemblerBytes>>30)}
 	}
 	a.blend = step.NewBlender(p, a.nb, !a.restored)
-	a.buf = make([][]float32, a.nb)
-	for i := range a.buf {
-		a.buf[i] = make([]float32, p.W*maxOut)
-	}
+	a.rowsOut = make([][]float32, a.nb)
 	return a, nil
+}
+
+// window is tile t's contribution in buf (grown as needed): its weighted
+// output window for a restored stream, its core for an observed one.
+func (a *Assembler) window(buf []float32, t *arrowio.Tile) ([]float32, step.Span, step.Span) {
+	p := a.plan
+	if a.restored {
+		// The stream carries f + bg: weigh it with a zero background.
+		pix := step.Window{Pix: t.Pix, X: t.X, Y: t.Y, W: t.W}
+		return p.Weigh(buf, &a.wk, step.TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}, pix, 0)
+	}
+	ox, oy := p.Cols[t.Col], p.Rows[t.TileRow]
+	ow, oh := ox.Len(), oy.Len()
+	buf = grow(buf, ow*oh)
+	for y := 0; y < oh; y++ {
+		copy(buf[y*ow:(y+1)*ow], t.Pix[(oy.Start+y-t.Y)*t.W+ox.Start-t.X:])
+	}
+	return buf, ox, oy
 }
 
 // Write implements TileSink.
@@ -497,60 +516,68 @@ func (a *Assembler) Write(t *arrowio.Tile) error {
 	if err := CheckPlan(p, t); err != nil {
 		return err
 	}
+	nt := a.nb * len(p.Cols)
+	i := t.Band*len(p.Cols) + t.Col
 	slots := a.rows[t.TileRow]
-	if t.TileRow < a.nextRow || (slots != nil && slots[t.Band*len(p.Cols)+t.Col] != nil) {
+	if t.TileRow < a.nextRow || (t.TileRow == a.nextRow && i < a.added) || (slots != nil && slots[i] != nil) {
 		return arrowio.TileErrorf(t, arrowio.ColTileColumn, "tile (%d,%d) of band %d appears twice", t.Col, t.TileRow, t.Band+1)
 	}
-	if slots == nil {
-		slots = make([]*asmTile, a.nb*len(p.Cols))
-		a.rows[t.TileRow] = slots
-	}
-	at := &asmTile{iters: t.Iterations, change: t.Change}
-	pix := step.Window{Pix: t.Pix, X: t.X, Y: t.Y, W: t.W}
-	if a.restored {
-		// The stream carries f + bg: weigh it with a zero background.
-		at.out, at.ox, at.oy = p.Weigh(nil, &a.wk, step.TileKey{Band: t.Band, Col: t.Col, Row: t.TileRow}, pix, 0)
-	} else {
-		at.ox, at.oy = p.Cols[t.Col], p.Rows[t.TileRow]
-		ow, oh := at.ox.Len(), at.oy.Len()
-		at.out = make([]float32, ow*oh)
-		for y := 0; y < oh; y++ {
-			copy(at.out[y*ow:(y+1)*ow], t.Pix[(at.oy.Start+y-t.Y)*t.W+at.ox.Start-t.X:])
+	if t.TileRow != a.nextRow || i != a.added {
+		if slots == nil {
+			slots = make([]*asmTile, nt)
+			a.rows[t.TileRow] = slots
 		}
+		at := &asmTile{iters: t.Iterations, change: t.Change}
+		at.out, at.ox, at.oy = a.window(nil, t)
+		slots[i] = at
+		return nil
 	}
-	slots[t.Band*len(p.Cols)+t.Col] = at
-	a.counts[t.TileRow]++
-	for a.nextRow < len(p.Rows) && a.counts[a.nextRow] == a.nb*len(p.Cols) {
+	var ox, oy step.Span
+	a.out, ox, oy = a.window(a.out, t)
+	a.add(&asmTile{out: a.out, ox: ox, oy: oy, iters: t.Iterations, change: t.Change})
+	// The tiles that waited for this one, then the rows they complete.
+	for a.nextRow < len(p.Rows) {
+		slots := a.rows[a.nextRow]
+		for a.added < nt && slots != nil && slots[a.added] != nil {
+			s := slots[a.added]
+			slots[a.added] = nil
+			a.add(s)
+		}
+		if a.added < nt {
+			return nil
+		}
 		if err := a.flushRow(a.nextRow); err != nil {
 			return err
 		}
 		delete(a.rows, a.nextRow)
-		delete(a.counts, a.nextRow)
 		a.nextRow++
+		a.added = 0
 	}
 	return nil
 }
 
-// flushRow adds a complete tile row into the blender in (band, column)
-// order and writes the rows no later tile row touches.
-func (a *Assembler) flushRow(row int) error {
-	p := a.plan
-	W := p.W
-	for i, s := range a.rows[row] {
-		b, col := i/len(p.Cols), i%len(p.Cols)
-		a.blend.Add(b, s.ox, s.oy, s.out)
-		if a.Report != nil {
-			br := &a.Report.Bands[b]
-			br.Tiles = append(br.Tiles, step.TileReport{Col: col, Row: row, Iterations: s.iters, Change: s.change})
-			br.MaxIterations = max(br.MaxIterations, s.iters)
-		}
+// add blends the next tile of the row being added (band, column order).
+func (a *Assembler) add(s *asmTile) {
+	nc := len(a.plan.Cols)
+	b, col := a.added/nc, a.added%nc
+	a.blend.Add(b, s.ox, s.oy, s.out)
+	if a.Report != nil {
+		br := &a.Report.Bands[b]
+		br.Tiles = append(br.Tiles, step.TileReport{Col: col, Row: a.nextRow, Iterations: s.iters, Change: s.change})
+		br.MaxIterations = max(br.MaxIterations, s.iters)
 	}
+	a.added++
+}
+
+// flushRow writes the rows that no later tile row touches once tile row
+// `row` is added, straight from the blender's strips.
+func (a *Assembler) flushRow(row int) error {
 	end := a.blend.RowEnd(row)
 	n := end - a.blend.Y()
-	for b := 0; b < a.nb; b++ {
-		copy(a.buf[b][:n*W], a.blend.Rows(b, n))
+	for b := range a.rowsOut {
+		a.rowsOut[b] = a.blend.Rows(b, n)
 	}
-	if err := a.dst.WriteRows(a.blend.Y(), end, a.buf); err != nil {
+	if err := a.dst.WriteRows(a.blend.Y(), end, a.rowsOut); err != nil {
 		return err
 	}
 	a.blend.Shift(n)
@@ -563,13 +590,9 @@ func (a *Assembler) Finish() error {
 	if a.nextRow == len(p.Rows) {
 		return nil
 	}
-	slots := a.rows[a.nextRow]
-	for i := 0; i < a.nb*len(p.Cols); i++ {
-		if slots == nil || slots[i] == nil {
-			return &arrowio.StreamError{Batch: -1, Row: -1, Err: fmt.Errorf("tile (%d,%d) of band %d is missing (%d of %d tile rows complete)", i%len(p.Cols), a.nextRow, i/len(p.Cols)+1, a.nextRow, len(p.Rows))}
-		}
-	}
-	return nil
+	// Tiles before a.added are in; a.added is the first one missing.
+	nc := len(p.Cols)
+	return &arrowio.StreamError{Batch: -1, Row: -1, Err: fmt.Errorf("tile (%d,%d) of band %d is missing (%d of %d tile rows complete)", a.added%nc, a.nextRow, a.added/nc+1, a.nextRow, len(p.Rows))}
 }
 
 // planReport is the report of a stream restored with a scene plan

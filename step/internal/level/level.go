@@ -16,7 +16,12 @@ func Background(src raster.Reader, bands []int, valid func(band int, v float32) 
 	for i := range row {
 		row[i] = make([]float32, m.Width)
 	}
-	samples := make([][]float32, len(bands))
+	// Of the samples only the smallest that can hold the percentile are
+	// kept (that share of all sampled pixels, in a max-heap): the same value
+	// as sorting them all, in bounded memory.
+	rank := func(n int) int { return int(percentile / 100 * float64(n-1)) }
+	keep := rank((m.Height+step-1)/step*m.Width) + 1
+	low := make([]lowest, len(bands))
 	for y := 0; y < m.Height; y += step {
 		if err := src.ReadRows(y, y+1, bands, row); err != nil {
 			return nil, err
@@ -24,19 +29,18 @@ func Background(src raster.Reader, bands []int, valid func(band int, v float32) 
 		for i := range bands {
 			for _, v := range row[i] {
 				if valid(i, v) {
-					samples[i] = append(samples[i], v)
+					low[i].add(v, keep)
 				}
 			}
 		}
 	}
 	out := make([]float64, len(bands))
-	for i, s := range samples {
-		if len(s) == 0 {
+	for i, lw := range low {
+		if lw.n == 0 {
 			continue
 		}
-		sort.Slice(s, func(a, b int) bool { return s[a] < s[b] })
-		k := int(percentile / 100 * float64(len(s)-1))
-		out[i] = math.Max(0, float64(s[k]))
+		sort.Slice(lw.v, func(a, b int) bool { return lw.v[a] < lw.v[b] })
+		out[i] = math.Max(0, float64(lw.v[rank(lw.n)]))
 	}
 	return out, nil
 }
@@ -70,4 +74,37 @@ func WeightedMedian(x []Weighted) float64 {
 func LowMedian(v []float64) float64 {
 	sort.Float64s(v)
 	return v[(len(v)-1)/2]
+}
+
+// lowest keeps the smallest of the values added (at most keep, a max-heap)
+// and counts them all.
+type lowest struct {
+	v []float32
+	n int
+}
+
+func (l *lowest) add(x float32, keep int) {
+	l.n++
+	h := l.v
+	switch {
+	case len(h) < keep:
+		h = append(h, x)
+		for i := len(h) - 1; i > 0 && h[(i-1)/2] < h[i]; i = (i - 1) / 2 {
+			h[i], h[(i-1)/2] = h[(i-1)/2], h[i]
+		}
+	case x < h[0]:
+		h[0] = x
+		for i := 0; ; {
+			c := 2*i + 1
+			if c+1 < len(h) && h[c+1] > h[c] {
+				c++
+			}
+			if c >= len(h) || h[c] <= h[i] {
+				break
+			}
+			h[i], h[c] = h[c], h[i]
+			i = c
+		}
+	}
+	l.v = h
 }
