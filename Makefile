@@ -82,7 +82,7 @@ test: deps-test
 	$(GO) vet ./...
 	CGO_ENABLED=0 $(GO) vet ./step/... ./psf/... ./arrowio/... ./raster
 	$(GO) test -race -count=1 -timeout $(TEST_TIMEOUT) ./...
-	$(GO) test -count=1 -timeout $(TEST_TIMEOUT) -run 'TestHelpExamplesRun|TestREADMEExamplesRun|TestREADMENumbers' ./cmd/limpid
+	$(GO) test -count=1 -timeout $(TEST_TIMEOUT) -run 'TestHelpExamplesRun|TestREADMEExamplesRun|TestREADMENumbers|TestScaleOutEngines' ./cmd/limpid
 	$(GO) test -run '^$$' -fuzz FuzzReader -fuzztime 10s -timeout 2m ./arrowio
 	$(GO) test -run '^$$' -fuzz '^FuzzParse$$' -fuzztime 5s -timeout 2m ./psf
 	$(GO) test -run '^$$' -fuzz '^FuzzReadTextMatrix$$' -fuzztime 5s -timeout 2m ./psf

@@ -130,7 +130,7 @@ func runExample(t *testing.T, line string, mapFile func(string) string) {
 func skipUnderRace(t *testing.T) {
 	t.Helper()
 	if raceEnabled {
-		t.Skip("documentation check: runs without -race (make test's docs pass)")
+		t.Skip("runs without -race, in make test's second pass (documentation and scale-out checks)")
 	}
 }
 
