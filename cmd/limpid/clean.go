@@ -46,13 +46,13 @@ Examples:
 				}
 				ents, err := scratch.Stale(d)
 				if err != nil {
-					return fmt.Errorf("DIR %s: %v", d, reason(err))
+					return fmt.Errorf("DIR %s: %v", d, scratch.Reason(err))
 				}
 				for _, e := range ents {
 					verb := "would remove"
 					if !c.Bool("dry-run") {
 						if err := os.RemoveAll(e.Path); err != nil {
-							return fmt.Errorf("removing %s: %v", e.Path, reason(err))
+							return fmt.Errorf("removing %s: %v", e.Path, scratch.Reason(err))
 						}
 						verb = "removed"
 					}

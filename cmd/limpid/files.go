@@ -68,13 +68,13 @@ func writeSideFile(path string, perm os.FileMode, fill func(io.Writer) error) er
 			if errors.Is(err, syscall.EPIPE) {
 				err = gdal.StreamError(path, err)
 			}
-			return &sideFileError{Op: "write", Err: reason(err)}
+			return &sideFileError{Op: "write", Err: scratch.Reason(err)}
 		}
 		return nil
 	}
 	f, err := scratch.CreateTemp(filepath.Dir(t.Path), filepath.Ext(t.Path))
 	if err != nil {
-		return &sideFileError{Op: "create", Err: reason(err)}
+		return &sideFileError{Op: "create", Err: scratch.Reason(err)}
 	}
 	tmp := f.Name()
 	bw := bufio.NewWriter(f)
@@ -90,28 +90,15 @@ func writeSideFile(path string, perm os.FileMode, fill func(io.Writer) error) er
 	}
 	if err != nil {
 		scratch.Remove(tmp)
-		return &sideFileError{Op: "write", Err: reason(err)}
+		return &sideFileError{Op: "write", Err: scratch.Reason(err)}
 	}
 	if err := scratch.Commit(tmp, t.Path, tmp); err != nil {
 		scratch.Remove(tmp)
-		return &sideFileError{Op: "rename", Err: reason(err)}
+		return &sideFileError{Op: "rename", Err: scratch.Reason(err)}
 	}
 	return nil
 }
 
-// reason is err without the path of an os.PathError or os.LinkError (the
-// callers name the path the user gave, not a temporary).
-func reason(err error) error {
-	var pe *os.PathError
-	if errors.As(err, &pe) {
-		return pe.Err
-	}
-	var le *os.LinkError
-	if errors.As(err, &le) {
-		return le.Err
-	}
-	return err
-}
 
 // The three front ends below differ only in the error lines their callers
 // have always printed (and in the file mode: os.Create's 0666 for the PSF

@@ -183,7 +183,7 @@ func createStreamOutput(out string, stdout io.Writer) (*streamOutput, error) {
 	dir := filepath.Dir(t.Path)
 	f, err := scratch.CreateTemp(dir, ".arrows")
 	if err != nil {
-		return nil, usagef("OUTPUT %s: cannot create a file in %s: %v", out, dir, reason(err))
+		return nil, usagef("OUTPUT %s: cannot create a file in %s: %v", out, dir, scratch.Reason(err))
 	}
 	f.Chmod(0o644 &^ umask)
 	bw := bufio.NewWriterSize(f, 1<<20)

@@ -66,7 +66,7 @@ func Inspect(p string) (Target, error) {
 			t.Info = nil
 		}
 	default:
-		return t, reason(err)
+		return t, Reason(err)
 	}
 	dir := filepath.Dir(t.Path)
 	ds, err := os.Stat(dir)
@@ -74,7 +74,7 @@ func Inspect(p string) (Target, error) {
 		if errors.Is(err, fs.ErrNotExist) {
 			return t, fmt.Errorf("directory %s does not exist", dir)
 		}
-		return t, fmt.Errorf("directory %s: %v", dir, reason(err))
+		return t, fmt.Errorf("directory %s: %v", dir, Reason(err))
 	}
 	if !ds.IsDir() {
 		return t, fmt.Errorf("%s is not a directory", dir)
@@ -92,7 +92,7 @@ func (t Target) CheckWritable() error {
 	dir := filepath.Dir(t.Path)
 	f, err := CreateTemp(dir, ".check")
 	if err != nil {
-		return fmt.Errorf("cannot create a file in %s: %v", dir, reason(err))
+		return fmt.Errorf("cannot create a file in %s: %v", dir, Reason(err))
 	}
 	f.Close()
 	Remove(f.Name())
@@ -120,9 +120,10 @@ func (t Target) IsNull() bool {
 	return err == nil && os.SameFile(n, t.Info)
 }
 
-// reason is the operating system's message of err without the path that
-// the caller names anyway.
-func reason(err error) error {
+// Reason is the operating system's message of err without the path of an
+// os.PathError or os.LinkError (callers name the path the user gave, not a
+// temporary).
+func Reason(err error) error {
 	var pe *fs.PathError
 	if errors.As(err, &pe) {
 		return pe.Err
