@@ -99,7 +99,6 @@ func writeSideFile(path string, perm os.FileMode, fill func(io.Writer) error) er
 	return nil
 }
 
-
 // The three front ends below differ only in the error lines their callers
 // have always printed (and in the file mode: os.Create's 0666 for the PSF
 // toolkit's files, 0644 for the others); all write through writeSideFile.
