@@ -29,6 +29,9 @@ type Problem struct {
 	// the data noise (this variance model) causes: GridEMS writes it into
 	// SE (noisemap.go) and sets Result.HasSE.
 	SENoise *noise.Model
+	// NoiseSE, with SENoise, receives the data-noise part from solvers
+	// whose SE is a Monte Carlo error (ParticleEMS: Result.HasNoiseSE).
+	NoiseSE []float32
 }
 
 // TileKey names a tile: 0-based band index in the output, tile column, row.
@@ -44,6 +47,8 @@ type Result struct {
 	Flat bool
 	// HasSE is true when the solver wrote Problem.SE.
 	HasSE bool
+	// HasNoiseSE is true when the solver wrote Problem.NoiseSE.
+	HasNoiseSE bool
 	// Changes holds the relative change per iteration when
 	// Problem.Record was set and the solver keeps a history.
 	Changes []float64
@@ -64,6 +69,7 @@ type Workspace struct {
 	f, fn, p, q, t, s []float32
 	auto              *autoWork
 	pw                *particleWork // particle method state (particle.go)
+	twin              []float32     // the particle's grid twin's object (particle.go)
 }
 
 func (ws *Workspace) reset(n int) {

@@ -127,6 +127,7 @@ type ParticleEMS struct {
 
 	once       sync.Once
 	s          *conv.Operator
+	grid       *GridEMS // the EMS recursion it approximates (Solve's noise part)
 	mutX, mutY draw.Move
 	jump       draw.Jump
 	alias      draw.Alias
@@ -147,6 +148,7 @@ func (pe *ParticleEMS) init() {
 		pe.s = conv.NewSeparable(sx, sy)
 	}
 	pe.mutX, pe.mutY = draw.NewMove(pe.SmoothX), draw.NewMove(pe.SmoothY)
+	pe.grid = &GridEMS{H: pe.H, S: pe.s, Smooth: pe.Smooth, Iterations: pe.Iterations}
 	pe.jump = draw.NewJump(pe.SmoothX, pe.SmoothY)
 	if pe.Potential == PotentialSampled && pe.PSF != nil {
 		pe.alias = draw.NewAlias(pe.PSF)
@@ -165,20 +167,6 @@ type particleWork struct {
 	rmean     []float64 // replicates: Welford mean and M2 of the estimates
 	rm2       []float64
 	rng       rand.PCG
-}
-
-func grow64(b []float64, n int) []float64 {
-	if cap(b) < n {
-		return make([]float64, n)
-	}
-	return b[:n]
-}
-
-func growU32(b []uint32, n int) []uint32 {
-	if cap(b) < n {
-		return make([]uint32, n)
-	}
-	return b[:n]
 }
 
 func (pw *particleWork) reset(np, n int) {
@@ -423,8 +411,28 @@ func (pe *ParticleEMS) resample(pw *particleWork, wsum float64) {
 	}
 }
 
-// Solve implements Solver.
+// Solve implements Solver. With Problem.SENoise and NoiseSE it also writes
+// the data-noise part of the error into NoiseSE. The particle estimate is not
+// differentiable along the data pathwise (resampling and the random moves
+// are discontinuous in d), but as N -> infinity it follows the EMS recursion
+// with the same H, S and iteration count (Crucinio, Doucet & Johansen, JASA
+// 2021, arXiv:2009.09974); so the part is that recursion's noise error map
+// (GridEMS.solveNoiseMap), on the same tile problem. The two parts come
+// from independent sources, so their variances add (runner.outputSE).
 func (pe *ParticleEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
+	res, err := pe.solve(ctx, ws, p, dst)
+	if err != nil || p.NoiseSE == nil || p.SENoise == nil {
+		return res, err
+	}
+	q := *p
+	q.SE, q.NoiseSE, q.Record = p.NoiseSE, nil, false
+	ws.twin = grow(ws.twin, p.W*p.H)
+	g, err := pe.grid.solveNoiseMap(ctx, ws, &q, ws.twin)
+	res.HasNoiseSE = err == nil && g.HasSE
+	return res, err
+}
+
+func (pe *ParticleEMS) solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
 	if pe.PerPixel < 1 || pe.Iterations < 1 || pe.BurnIn < 0 || pe.BurnIn >= pe.Iterations {
 		return Result{}, fmt.Errorf("particle EMS: need PerPixel >= 1 and 0 <= BurnIn < Iterations (got %d, %d, %d)", pe.PerPixel, pe.BurnIn, pe.Iterations)
 	}

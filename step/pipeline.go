@@ -6,6 +6,7 @@ import (
 
 	"limpid/raster"
 	"limpid/step/internal/ordered"
+	"limpid/step/internal/plane"
 	"limpid/step/noise"
 )
 
@@ -29,6 +30,7 @@ type Window struct {
 type TileWork struct {
 	ws             Workspace
 	d, mask, f, se []float32
+	nse            []float32 // the data-noise part beside a Monte Carlo se
 	wx, wy         []float32
 }
 
@@ -63,9 +65,10 @@ func (p Plan) problem(wk *TileWork, key TileKey, src Window, valid ValidFunc, bg
 // Solved is a tile's solution in a worker's memory, each plane on the tile's
 // input window: the object F (background excluded), the validity Mask (1
 // valid, 0 invalid) and, when the solver reports one, the Monte Carlo
-// standard error SE. It is valid until the worker's next tile.
+// standard error SE (and NoiseSE, Problem.NoiseSE). It is valid until the
+// worker's next tile.
 type Solved struct {
-	F, Mask, SE Window
+	F, Mask, SE, NoiseSE Window
 	Result
 }
 
@@ -82,6 +85,10 @@ func (p Plan) SolveTile(ctx context.Context, solver Solver, wk *TileWork, key Ti
 		wk.se = grow(wk.se, prob.W*prob.H)
 		prob.SE = wk.se
 		prob.SENoise = seNoise
+		if seNoise != nil {
+			wk.nse = grow(wk.nse, prob.W*prob.H)
+			prob.NoiseSE = wk.nse
+		}
 	}
 	res, err := solver.Solve(ctx, &wk.ws, prob, wk.f)
 	if err != nil {
@@ -89,7 +96,7 @@ func (p Plan) SolveTile(ctx context.Context, solver Solver, wk *TileWork, key Ti
 	}
 	ix, iy := p.InSpan(p.Cols, key.Col), p.InSpan(p.Rows, key.Row)
 	at := func(pix []float32) Window { return Window{Pix: pix, X: ix.Start, Y: iy.Start, W: ix.Len()} }
-	return Solved{F: at(wk.f), Mask: at(wk.mask), SE: at(wk.se), Result: res}, nil
+	return Solved{F: at(wk.f), Mask: at(wk.mask), SE: at(wk.se), NoiseSE: at(wk.nse), Result: res}, nil
 }
 
 // Weigh writes tile key's blend-weighted output window (OutSpan x OutSpan,
@@ -221,10 +228,9 @@ var nan = float32(math.NaN())
 // IsCancel reports whether err is a cancellation (of a context).
 func IsCancel(err error) bool { return isCancel(err) }
 
-// grow returns b resized to n, reallocated only when too small.
-func grow(b []float32, n int) []float32 {
-	if cap(b) < n {
-		return make([]float32, n)
-	}
-	return b[:n]
-}
+// grow and its kin resize a buffer, reallocating only when too small.
+var (
+	grow    = plane.Grow[float32]
+	grow64  = plane.Grow[float64]
+	growU32 = plane.Grow[uint32]
+)

@@ -96,10 +96,15 @@ type Config struct {
 	Decided []Decision
 	// Tiles, when set, makes Restore a shard (decided.go).
 	Tiles *TileSink
-	// Uncertainty, when set (particle method only), receives the blended
-	// per-pixel Monte Carlo standard error, same grid and bands as dst
-	// (NaN on invalid pixels). Restore writes it; the caller commits it.
+	// Uncertainty, when set, receives the per-pixel error map, same grid
+	// and bands as dst (NaN on invalid pixels): with the grid method the
+	// data-noise standard error (noisemap.go), with the particle method the
+	// total sqrt(noise^2 + mc^2) of that and its Monte Carlo standard error
+	// (uncertainty.go). Restore writes it; the caller commits it.
 	Uncertainty raster.Writer
+	// seParts, when set (tests), sees each band's finished rows of the
+	// particle method's parts and total (row y0 on; valid pixels only).
+	seParts func(band, y0 int, mc, data, total []float32)
 }
 
 // DefaultOverlap is the halo rule: 4 (r_H + r_S) rounded up to a multiple of
@@ -365,7 +370,7 @@ func restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	}
 	r := &runner{cfg: cfg, plan: plan, src: src, dst: dst, bands: bands, valid: validity, rep: rep, solver: solver,
 		withSE: cfg.Method == MethodParticle || cfg.Uncertainty != nil, dataSE: cfg.Method == MethodGrid && cfg.Uncertainty != nil,
-		sink: cfg.Tiles}
+		noisePart: cfg.Method == MethodParticle && cfg.Uncertainty != nil, seParts: cfg.seParts, sink: cfg.Tiles}
 	if cfg.Tiles != nil {
 		r.need = cfg.Tiles.Need
 	}
@@ -379,7 +384,7 @@ func restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		}
 		r.solver = s
 	}
-	if r.dataSE && r.noise == nil && !decideOnly {
+	if (r.dataSE || r.noisePart) && r.noise == nil && !decideOnly {
 		if _, err := r.bandNoise(ctx); err != nil {
 			return nil, err
 		}
@@ -476,10 +481,14 @@ type runner struct {
 	// withSE: the solver reports standard errors; seSum/seFlux hold the
 	// report's per-band sums (uncertainty.go). dataSE: they are the grid
 	// method's noise error map (noisemap.go), propagated from noise, the
-	// bands' noise models.
-	withSE, dataSE bool
-	seSum, seFlux  []float64
-	noise          []noise.Model
+	// bands' noise models. noisePart: the particle method's error map is
+	// the total of its Monte Carlo error and the data-noise part
+	// (ParticleEMS.Solve), blended separately (uncertainty.go).
+	withSE, dataSE, noisePart bool
+	seSum, seFlux             []float64
+	noiseSum, totalSum        []float64
+	noise                     []noise.Model
+	seParts                   func(band, y0 int, mc, data, total []float32) // Config.seParts
 }
 
 // rasterJob is one tile of the raster route and its weighted output window.
@@ -489,6 +498,7 @@ type rasterJob struct {
 	last  bool         // the last tile of its tile row that the run produces
 	out   []float32
 	seOut []float32 // w^2 se^2 when the solver reports standard errors
+	nse   []float32 // w se of the data-noise part (noisePart)
 	ox    Span
 	oy    Span
 	res   Result
@@ -507,6 +517,7 @@ type scan struct {
 	seq     int           // jobs produced
 	blend   *Blender      // weighted outputs
 	blendSE *Blender      // weighted standard errors (withSE)
+	blendN  *Blender      // weighted data-noise parts (noisePart)
 	out     *rowio.Writer // finished rows, written on their own goroutine
 	row     int           // producer position: tile row, band, column
 	band    int
@@ -539,6 +550,10 @@ func (r *runner) run(ctx context.Context) error {
 		if r.withSE {
 			sc.blendSE = NewBlender(p, nb, false)
 			r.seSum, r.seFlux = make([]float64, nb), make([]float64, nb)
+		}
+		if r.noisePart {
+			sc.blendN = NewBlender(p, nb, false)
+			r.noiseSum, r.totalSum = make([]float64, nb), make([]float64, nb)
 		}
 		sc.out = rowio.NewWriter(r.dst, r.cfg.Uncertainty, nb, p.W*sc.blend.StripRows(), r.withSE)
 	}
@@ -618,7 +633,7 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 	bg := float32(sc.rep.Bands[k.Band].Background)
 	src := Window{Pix: j.strip.Rows[k.Band], Y: j.strip.Y, W: p.W}
 	var nm *noise.Model
-	if sc.dataSE {
+	if sc.dataSE || sc.noisePart {
 		nm = &sc.noise[k.Band]
 	}
 	s, err := p.SolveTile(ctx, sc.solver, wk, k, src, sc.valid[k.Band], bg, sc.recorded(k), sc.withSE, nm)
@@ -631,7 +646,10 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 	}
 	j.out, j.ox, j.oy = p.Weigh(j.out, wk, k, s.F, bg)
 	if sc.withSE {
-		j.seOut = weighSE(j.seOut, wk, s.Result, j.ox.Len(), j.oy.Len(), s.SE, j.ox, j.oy, sc.dataSE)
+		j.seOut = weighSE(j.seOut, wk, s.HasSE, j.ox.Len(), j.oy.Len(), s.SE, j.ox, j.oy, sc.dataSE)
+	}
+	if sc.noisePart {
+		j.nse = weighSE(j.nse, wk, s.HasNoiseSE, j.ox.Len(), j.oy.Len(), s.NoiseSE, j.ox, j.oy, true)
 	}
 	return nil
 }
@@ -647,6 +665,9 @@ func (sc *scan) finish(j *rasterJob, failed bool) error {
 		sc.blend.Add(j.key.Band, j.ox, j.oy, j.out)
 		if sc.withSE {
 			sc.blendSE.Add(j.key.Band, j.ox, j.oy, j.seOut)
+		}
+		if sc.noisePart {
+			sc.blendN.Add(j.key.Band, j.ox, j.oy, j.nse)
 		}
 		br := &sc.rep.Bands[j.key.Band]
 		br.Tiles = append(br.Tiles, TileReport{Col: j.key.Col, Row: j.key.Row, Iterations: j.res.Iterations, Change: j.res.Change, Flat: j.res.Flat, Changes: j.res.Changes})
@@ -693,6 +714,9 @@ func (sc *scan) writeRow(row int, st *rowio.Strip) error {
 	if sc.withSE {
 		se = sc.outputSE(n, st)
 		sc.blendSE.Shift(n)
+		if sc.noisePart {
+			sc.blendN.Shift(n)
+		}
 	}
 	sc.out.Write(rowio.Job{Y0: sc.blend.Y(), Y1: end, Rows: bufs, SE: se})
 	sc.blend.Shift(n)

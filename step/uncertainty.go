@@ -14,16 +14,20 @@ import (
 // blending ramp it dips below either tile's SE, as averaging two independent
 // estimates does. The noise error map blends linearly (sum w se): overlapping tiles
 // restore the same data, so their data-noise errors are fully correlated.
+// The particle method's error map (noisePart) blends each part by its own
+// rule and then adds them in quadrature per pixel, sqrt(mc^2 + noise^2):
+// the Monte Carlo error comes from the random streams and the noise part
+// from the data, independent sources, so their variances add.
 
 // weighSE returns w^2 se^2 (linear: w se) over a tile's output window ox x
 // oy (ow x oh), grown into out, with se read from the window it covers and
 // the weights Plan.Weigh left in wk; zeros when the solver reported no
-// standard error.
-func weighSE(out []float32, wk *TileWork, res Result, ow, oh int, se Window, ox, oy Span, linear bool) []float32 {
+// standard error (!has).
+func weighSE(out []float32, wk *TileWork, has bool, ow, oh int, se Window, ox, oy Span, linear bool) []float32 {
 	out = grow(out, ow*oh)
 	for y := 0; y < oh; y++ {
 		orow := out[y*ow : (y+1)*ow]
-		if !res.HasSE {
+		if !has {
 			clear(orow)
 			continue
 		}
@@ -50,6 +54,10 @@ func (sc *scan) outputSE(n int, st *rowio.Strip) [][]float32 {
 		acc, img := sc.blendSE.Rows(b, n), sc.blend.Rows(b, n)
 		out := bufs[b][:n*W]
 		bg := sc.rep.Bands[b].Background
+		var accN []float32
+		if sc.noisePart {
+			accN = sc.blendN.Rows(b, n)
+		}
 		for y := 0; y < n; y++ {
 			sy := sc.blend.Y() + y - st.Y
 			srow := st.Rows[b][sy*W : (sy+1)*W]
@@ -60,16 +68,38 @@ func (sc *scan) outputSE(n int, st *rowio.Strip) [][]float32 {
 					if !sc.dataSE {
 						se = float32(math.Sqrt(float64(max(acc[i], 0))))
 					}
-					out[i] = se
 					sc.seSum[b] += float64(se)
 					sc.seFlux[b] += float64(img[i]) - bg
+					if sc.noisePart {
+						d := float64(accN[i])
+						se = float32(math.Sqrt(float64(max(acc[i], 0)) + d*d))
+						sc.noiseSum[b] += d
+						sc.totalSum[b] += float64(se)
+					}
+					out[i] = se
 				} else {
 					out[i] = nan
 				}
 			}
 		}
+		if sc.seParts != nil && sc.noisePart {
+			sc.showParts(b, out, acc, accN)
+		}
 	}
 	return bufs
+}
+
+// showParts hands band b's finished rows of the two parts and their total
+// to the test hook Config.seParts (NaN where the total is).
+func (sc *scan) showParts(b int, total, mc2, data []float32) {
+	mc, d := make([]float32, len(total)), make([]float32, len(total))
+	for i, t := range total {
+		mc[i], d[i] = nan, nan
+		if t == t {
+			mc[i], d[i] = float32(math.Sqrt(float64(max(mc2[i], 0)))), data[i]
+		}
+	}
+	sc.seParts(b, sc.blend.Y(), mc, d, total)
 }
 
 // finishSE fills the report's per-band standard-error summary.
@@ -92,6 +122,9 @@ func (r *runner) finishSE() {
 		}
 		if r.seFlux[b] > 0 {
 			br.RelativeSE = r.seSum[b] / r.seFlux[b]
+		}
+		if nv := r.rep.Bands[b].ValidPixels; nv > 0 && r.noisePart {
+			br.MeanNoiseSE, br.MeanTotalSE = r.noiseSum[b]/float64(nv), r.totalSum[b]/float64(nv)
 		}
 		r.rep.Particle.Bands = append(r.rep.Particle.Bands, br)
 	}

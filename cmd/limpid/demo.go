@@ -37,8 +37,9 @@ func demoCommand(stderr, stdout io.Writer) *cli.Command {
 		Name:  "demo",
 		Usage: "make a blurred scene of an invented valley, restore it, and compare with the truth",
 		Description: `Writes DIR/reference.tif (the sharp truth), DIR/observed.tif (blurred with ` + demoPSF + `,
-Poisson + read noise, UInt16 12-bit, nodata 0), DIR/restored.tif, DIR/quicklook.png and
-DIR/report.json, then prints PSNR and SSIM of observed and restored against the reference.
+Poisson + read noise, UInt16 12-bit, nodata 0), DIR/restored.tif, its noise error map
+DIR/noise_error.tif, DIR/quicklook.png and DIR/report.json, then prints PSNR and SSIM of observed
+and restored against the reference and the mean noise error per band.
 
 ` + caution,
 		Flags: []cli.Flag{
@@ -146,9 +147,9 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 	if err := cfg.Resolve(); err != nil {
 		return err
 	}
-	resPath := filepath.Join(dir, "restored.tif")
+	resPath, uncPath := filepath.Join(dir, "restored.tif"), filepath.Join(dir, "noise_error.tif")
 	j := &restoreJob{in: obsPath, out: resPath, format: gdal.GTiff, outType: "float32", cfg: cfg,
-		reportPath: filepath.Join(dir, "report.json")}
+		reportPath: filepath.Join(dir, "report.json"), uncPath: uncPath}
 	fmt.Fprintf(stderr, "limpid demo: Brannock Vale %dx%d, 4 bands, PSF %s, restoring with grid EMS (smoothing and stop chosen per band)\n",
 		n, n, demoPSF)
 	rep, err := runRestore(c.Context, j, nil, stdout, stderr)
@@ -179,8 +180,8 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 		demoPSF, rep.WallSeconds)
 	for i, b := range rep.Bands {
 		if b.Choice != nil && b.Noise != nil {
-			fmt.Fprintf(stdout, "  %-5s noise var = %.3f DN + %.1f; chosen smooth %g, %d iterations\n",
-				scene.ValleyBands[i], b.Noise.A, b.Noise.B, b.Choice.Smooth, b.Choice.Iterations)
+			fmt.Fprintf(stdout, "  %-5s noise var = %.3f DN + %.1f; chosen smooth %g, %d iterations; mean noise error %.2f DN\n",
+				scene.ValleyBands[i], b.Noise.A, b.Noise.B, b.Choice.Smooth, b.Choice.Iterations, b.NoiseSE)
 		}
 	}
 	if part != nil {
@@ -194,21 +195,21 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 		}
 	}
 	ql := filepath.Join(dir, "quicklook.png")
-	if err := quicklook(ql, obsPath, resPath, len(obs)); err != nil {
+	if err := quicklook(ql, obsPath, resPath, uncPath, len(obs)); err != nil {
 		return err
 	}
-	fmt.Fprintf(stdout, "wrote %s, %s, %s, %s (restored product: keep the observed original)\n", refPath, obsPath, resPath, ql)
+	fmt.Fprintf(stdout, "wrote %s, %s, %s, %s, %s (restored product: keep the observed original)\n", refPath, obsPath, resPath, uncPath, ql)
 	return nil
 }
 
-// quicklook writes the demo's observed | restored quicklook (quicklook.go:
-// the same code as restore --quicklook).
-func quicklook(path, obsPath, resPath string, nBands int) error {
+// quicklook writes the demo's observed | restored | noise error quicklook
+// (quicklook.go: the same code as restore --quicklook).
+func quicklook(path, obsPath, resPath, uncPath string, nBands int) error {
 	bands := make([]int, nBands)
 	for i := range bands {
 		bands[i] = i
 	}
-	s, err := cropScene(obsPath, bands, resPath, "", qlInfo{Scene: "demo: " + filepath.Base(obsPath), PSF: "PSF " + demoPSF, Method: "EMS grid"})
+	s, err := cropScene(obsPath, bands, resPath, uncPath, qlInfo{Scene: "demo: " + filepath.Base(obsPath), PSF: "PSF " + demoPSF, Method: "EMS grid", Error: errorTitle("grid")})
 	if err != nil {
 		return err
 	}

@@ -56,18 +56,19 @@ func demoParticle(c *cli.Context, dir, obsPath string, grid step.Config, K int, 
 }
 
 // printSideBySide prints PSNR and SSIM of observed, grid and particle, and
-// the particle method's mean reported Monte Carlo standard error.
+// the means of the particle method's two error parts (uncertainty_particle.tif
+// holds their total, sqrt(noise^2 + mc^2)).
 func (p *demoParticleRun) printSideBySide(w io.Writer, ref, obs, grid [][]float32, valid []bool, n int) {
 	pr := p.rep.Particle
-	fmt.Fprintf(w, "particle EMS: K=%d, burn-in %d, %s, %.1f s; MC error = mean reported standard error\n",
+	fmt.Fprintf(w, "particle EMS: K=%d, burn-in %d, %s, %.1f s; MC error = mean reported Monte Carlo standard error, noise = mean data-noise part\n",
 		pr.PerPixel, pr.BurnIn, pr.SEMethod, p.rep.WallSeconds)
-	fmt.Fprintf(w, "%-6s %24s %24s %17s\n", "", "PSNR (dB)", "SSIM", "particle MC error")
-	fmt.Fprintf(w, "%-6s %8s %7s %8s %8s %7s %8s %10s %6s\n", "band", "observed", "grid", "particle", "observed", "grid", "particle", "DN", "%")
+	fmt.Fprintf(w, "%-6s %24s %24s %17s %9s\n", "", "PSNR (dB)", "SSIM", "particle MC error", "noise")
+	fmt.Fprintf(w, "%-6s %8s %7s %8s %8s %7s %8s %10s %6s %9s\n", "band", "observed", "grid", "particle", "observed", "grid", "particle", "DN", "%", "DN")
 	for b, name := range scene.ValleyBands {
-		fmt.Fprintf(w, "%-6s %8.2f %7.2f %8.2f %8.4f %7.4f %8.4f %10.2f %6.1f\n", name,
+		fmt.Fprintf(w, "%-6s %8.2f %7.2f %8.2f %8.4f %7.4f %8.4f %10.2f %6.1f %9.2f\n", name,
 			assess.PSNR(ref[b], obs[b], valid, demoDataMax), assess.PSNR(ref[b], grid[b], valid, demoDataMax), assess.PSNR(ref[b], p.res[b], valid, demoDataMax),
 			assess.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), assess.SSIM(ref[b], grid[b], valid, n, n, demoDataMax), assess.SSIM(ref[b], p.res[b], valid, n, n, demoDataMax),
-			pr.Bands[b].MeanSE, 100*pr.Bands[b].RelativeSE)
+			pr.Bands[b].MeanSE, 100*pr.Bands[b].RelativeSE, pr.Bands[b].MeanNoiseSE)
 	}
 	fmt.Fprintf(w, "particle outputs: %s, %s, %s\n", p.paths[0], p.paths[1], p.paths[2])
 }

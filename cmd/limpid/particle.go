@@ -26,7 +26,7 @@ func particleFlags() []cli.Flag {
 		&cli.StringFlag{Name: "start", Value: step.DefaultStart.String(), Usage: "particle method: flat (uniform over the valid pixels) or observed (drawn from the data)"},
 		&cli.IntFlag{Name: "batches", Value: step.DefaultBatches, Usage: "particle method: batch means for the Monte Carlo standard error (2 - iterations after burn-in)"},
 		&cli.IntFlag{Name: "replicates", Value: 0, Usage: "particle method: independent clouds whose spread gives the standard error (must divide --particles-per-pixel; 1 = one cloud with batch means; 0 = auto: 4, 2 or 1)"},
-		&cli.StringFlag{Name: "uncertainty", Usage: "write a per-pixel error map (DN, float32, same grid and bands, NaN nodata) to this raster: with the grid method the standard deviation the data noise causes (the band's noise model propagated through the restoration); with the particle method the Monte Carlo standard error. Neither holds PSF or noise-model errors"},
+		&cli.StringFlag{Name: "uncertainty", Usage: "write a per-pixel error map (DN, float32, same grid and bands, NaN nodata) to this raster: with the grid method the standard deviation the data noise causes (the band's noise model propagated through the restoration); with the particle method the total sqrt(noise^2 + mc^2) of that data-noise part and its Monte Carlo standard error (the report gives both parts' means). Neither holds PSF or noise-model errors"},
 	}
 }
 

@@ -69,8 +69,8 @@ func TestParticleBadParameters(t *testing.T) {
 // output's size, geotransform, CRS and bands, in Float32 with NaN nodata;
 // --workers 1 and 2 give byte-identical image and uncertainty files
 // (DEVELOPERS.md, "Determinism"); the report records the particle
-// parameters and the mean standard error, which must agree with the
-// raster's own mean. The default run restores the centre 128 x 128 of the
+// parameters and per band the means of both parts and of the total, which
+// must agree with the raster's own mean (the raster holds the total). The default run restores the centre 128 x 128 of the
 // fixture in 2 x 2 tiles with a given bandwidth (--smooth 0.2): the
 // automatic one runs grid EMS to 200 iterations on every sample tile first
 // (step.TestParticleAutoBandwidth checks that choice). LIMPID_LONG runs the
@@ -105,8 +105,10 @@ func TestParticleUncertaintyRaster(t *testing.T) {
 
 // checkUncertaintyRaster compares the uncertainty raster u with the image
 // out (gdalinfo -json: grid, CRS, bands in Float32 with NaN nodata) and the
-// report rep's particle parameters and mean standard error with the
-// raster's own mean.
+// report rep's particle parameters and mean total error with the raster's
+// own mean. Source for the parts: independent errors' variances add
+// (Bienaymé), so the mean total is at least either part's mean (the total
+// is at least each part per pixel).
 func checkUncertaintyRaster(t *testing.T, out, u, rep string) {
 	t.Helper()
 	in, got := gdalinfo(t, out), gdalinfo(t, u)
@@ -119,10 +121,16 @@ func checkUncertaintyRaster(t *testing.T, out, u, rep string) {
 	if len(ub) != 2 {
 		t.Fatalf("uncertainty has %d bands", len(ub))
 	}
+	if md := mustJSON(got["metadata"]); !strings.Contains(md, "total standard error") {
+		t.Errorf("uncertainty metadata does not say it holds the total: %s", md)
+	}
 	for i := range ub {
 		bi, bu := ib[i].(map[string]any), ub[i].(map[string]any)
 		if bu["type"] != "Float32" || bu["description"] != bi["description"] || mustJSON(bu["noDataValue"]) != `"NaN"` {
 			t.Errorf("band %d: %s", i+1, mustJSON(bu))
+		}
+		if md := mustJSON(bu["metadata"]); !strings.Contains(md, "LIMPID_MEAN_NOISE_STANDARD_ERROR") || !strings.Contains(md, "LIMPID_MEAN_MONTE_CARLO_STANDARD_ERROR") {
+			t.Errorf("band %d: metadata lacks the parts' means: %s", i+1, md)
 		}
 	}
 	var r struct {
@@ -132,7 +140,9 @@ func checkUncertaintyRaster(t *testing.T, out, u, rep string) {
 			Particle struct {
 				PerPixel int `json:"particles_per_pixel"`
 				Bands    []struct {
-					MeanSE float64 `json:"mean_standard_error"`
+					MeanSE    float64 `json:"mean_standard_error"`
+					MeanNoise float64 `json:"mean_noise_se"`
+					MeanTotal float64 `json:"mean_total_se"`
 				} `json:"bands"`
 			} `json:"particle"`
 		} `json:"restoration"`
@@ -161,8 +171,12 @@ func checkUncertaintyRaster(t *testing.T, out, u, rep string) {
 		// the raster holds float32 values (relative rounding 6e-8
 		// each): relative 1e-6.
 		const meanTol = 1e-6
-		if m := s / float64(nv); math.Abs(m-r.Restoration.Particle.Bands[bi].MeanSE) > meanTol*m || !(m > 0) {
-			t.Errorf("band %d: raster mean SE %g, report %g", bi+1, m, r.Restoration.Particle.Bands[bi].MeanSE)
+		pb := r.Restoration.Particle.Bands[bi]
+		if m := s / float64(nv); math.Abs(m-pb.MeanTotal) > meanTol*m || !(m > 0) {
+			t.Errorf("band %d: raster mean %g, report's mean total %g", bi+1, m, pb.MeanTotal)
+		}
+		if !(pb.MeanNoise > 0 && pb.MeanSE > 0) || pb.MeanTotal < pb.MeanNoise || pb.MeanTotal < pb.MeanSE {
+			t.Errorf("band %d: means noise %g, Monte Carlo %g, total %g", bi+1, pb.MeanNoise, pb.MeanSE, pb.MeanTotal)
 		}
 	}
 }

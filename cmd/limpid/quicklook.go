@@ -24,8 +24,9 @@ import (
 // the PSF and the method, and prints the stretch. Observed and restored share
 // one linear stretch per channel (qlScene.stretch: 2-98 percentiles of both
 // crops' valid pixels once outlier clusters are set aside), so brightness and
-// contrast compare directly; the uncertainty (another unit, DN of standard
-// error) has its own 0 to 98th percentile grey stretch with a labelled grey
+// contrast compare directly; the error map (another unit, DN of standard
+// error: the grid method's noise error, the particle method's total error)
+// has its own 0 to 98th percentile grey stretch with a labelled grey
 // bar. Each panel carries a scale bar in map units from the geotransform.
 
 // qlCropSide is the largest panel side in pixels (the crop is at most
@@ -53,6 +54,18 @@ type qlScene struct {
 // qlInfo is what the quicklook's title line names.
 type qlInfo struct {
 	Scene, PSF, Method string
+	// Error titles the error panel (errorTitle).
+	Error string
+}
+
+// errorTitle names the --uncertainty map of a method by what it holds: the
+// grid method's data-noise error, or the particle method's total of its
+// data-noise and Monte Carlo parts (step/uncertainty.go).
+func errorTitle(method string) string {
+	if method == "particle" {
+		return "total error: noise + Monte Carlo (DN)"
+	}
+	return "noise error (DN)"
 }
 
 // displayBands picks the bands shown: red, green, blue by colour
@@ -165,7 +178,7 @@ func (s *qlScene) render() *image.RGBA {
 	for i, l := range lines {
 		drawText(img, 2, qlLine*i+12, l, color.Black)
 	}
-	titles := []string{"observed", "restored", "Monte Carlo std. error (DN)"}
+	titles := []string{"observed", "restored", s.info.Error}
 	for k, t := range titles[:panels] {
 		drawText(img, k*(s.cw+qlGap)+2, qlLine*len(lines)+13, t, color.RGBA{0, 0, 120, 255})
 	}

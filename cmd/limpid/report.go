@@ -54,6 +54,7 @@ type htmlPage struct {
 	Caution                      string
 	Finished                     string
 	HasUncertainty               bool
+	UncertaintyTitle             string // errorTitle: what the error map holds
 	// ConvCaption describes the convergence figure as drawn.
 	ConvCaption string
 	// PSFNote and ConvNote replace a figure that could not be drawn.
@@ -79,10 +80,10 @@ th{background:#eee}td.l{text-align:left}img{max-width:100%;border:1px solid #ccc
 specification names, when it names one; not for kernel: or measured:) and the system, model (else kernel) times the pixel aperture |sinc f| (what a slanted-edge
 measurement such as <code>limpid psf measure</code> sees); the dotted grey line marks Nyquist, 0.5 cycles/pixel. Curves that
 coincide are drawn with distinct widths and dashes and named so in the legend.</p>{{else}}<p class="note" id="psf-note">{{.PSFNote}}</p>{{end}}
-<h2>Observed | restored{{if .HasUncertainty}} | Monte Carlo standard error{{end}}</h2>
+<h2>Observed | restored{{if .HasUncertainty}} | {{.UncertaintyTitle}}{{end}}</h2>
 <p>Centre crop; the header names the bands of the composite and prints the stretch in DN. Observed and restored share one
 linear 2-98 % stretch per channel, taken after values beyond 10 robust standard deviations of the median (bright tarps,
-clouds, saturated targets) are set aside;{{if .HasUncertainty}} the standard error (DN) has its own 0-98 % grey scale, keyed by the bar above it;{{end}}
+clouds, saturated targets) are set aside;{{if .HasUncertainty}} the error map ({{.UncertaintyTitle}}: a standard deviation in DN; PSF and noise-model errors are not in it) has its own 0-98 % grey scale, keyed by the bar above it;{{end}}
 scale bar in map units.</p>
 <img id="quicklook" alt="quicklook" src="{{.Quicklook}}">
 <h2>Per-band metrics</h2>
@@ -132,7 +133,7 @@ func htmlReport(j *restoreJob, inPath string, bands []int, rep *step.Report, qui
 	}
 	// The caution constant is wrapped for terminals; the page reflows it.
 	p := htmlPage{Title: "limpid restoration: " + j.in, Caution: strings.Join(strings.Fields(caution), " "), Finished: time.Now().UTC().Format(time.RFC3339),
-		Quicklook: dataURL(quicklookPNG), MetricWindow: window, HasUncertainty: j.uncPath != ""}
+		Quicklook: dataURL(quicklookPNG), MetricWindow: window, HasUncertainty: j.uncPath != "", UncertaintyTitle: errorTitle(rep.Method)}
 	if psfPNG, err := psfPlotPNG(j.cfg.PSF, rep.PSF); err != nil {
 		p.PSFNote = "The PSF figure could not be drawn: " + err.Error()
 		warnings = append(warnings, "--report-html: the PSF figure is left out: "+err.Error())

@@ -99,7 +99,8 @@ type restoreJob struct {
 	bandSpec   string
 	cfg        step.Config
 	reportPath string
-	// uncPath is --uncertainty (particle method): the standard-error raster.
+	// uncPath is --uncertainty: the error map (grid: noise error; particle:
+	// total error).
 	uncPath string
 	// quicklookPath and htmlPath are --quicklook and --report-html
 	// (views.go).
@@ -367,7 +368,7 @@ type fullReport struct {
 	Finished   string       `json:"finished_utc"`
 	Product    string       `json:"product"`
 	Step       *step.Report `json:"restoration"`
-	// Uncertainty is the --uncertainty raster (particle method).
+	// Uncertainty is the --uncertainty raster (the error map).
 	Uncertainty string `json:"uncertainty,omitempty"`
 }
 

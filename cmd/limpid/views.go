@@ -59,7 +59,7 @@ func writeViews(j *restoreJob, inPath string, bands []int, rep *step.Report, std
 	if j.quicklookPath == "" && j.htmlPath == "" {
 		return nil
 	}
-	s, err := cropScene(inPath, bands, j.out, j.uncPath, qlInfo{Scene: sceneName(j.in), PSF: "PSF " + rep.PSF, Method: "EMS " + rep.Method})
+	s, err := cropScene(inPath, bands, j.out, j.uncPath, qlInfo{Scene: sceneName(j.in), PSF: "PSF " + rep.PSF, Method: "EMS " + rep.Method, Error: errorTitle(rep.Method)})
 	if err != nil {
 		return err
 	}

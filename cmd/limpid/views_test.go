@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"fmt"
 	"image"
+	"image/color"
 	"image/png"
 	"math"
 	"os"
@@ -33,9 +34,12 @@ func checkScaleBar(img image.Image, x0, y int) int {
 	return n
 }
 
-// TestRestoreQuicklook: the quicklook has observed | restored (| Monte Carlo
-// error) panels of the scene crop, and its scale bar's length in pixels is
-// its label's length divided by the pixel size of the geotransform.
+// TestRestoreQuicklook: the quicklook has observed | restored (| error map)
+// panels of the scene crop, and its scale bar's length in pixels is its
+// label's length divided by the pixel size of the geotransform. The error
+// panel is titled by what the --uncertainty map holds: the grid method's
+// noise error, the particle method's total error (README, "The noise error
+// map").
 // Source: GDAL's geotransform (gdalinfo -json: 10 m pixels for the fixture);
 // the bar is the largest 1-2-5 length below a quarter of the panel (256 px
 // -> 640 m -> 500 m = 50 pixels).
@@ -49,9 +53,12 @@ func TestRestoreQuicklook(t *testing.T) {
 		name   string
 		args   []string
 		panels int
+		title  string // the error panel's
 	}{
-		{"grid", []string{"--smooth", "0.3", "--stop", "change", "--iterations", "10"}, 2},
-		{"particle", []string{"--method", "particle", "--smooth", "0.2", "--bands", "3", "--particles-per-pixel", "2", "--iterations", "4", "--batches", "2", "--uncertainty", filepath.Join(dir, "u.tif")}, 3},
+		{"grid", []string{"--smooth", "0.3", "--stop", "change", "--iterations", "10"}, 2, ""},
+		{"grid-uncertainty", []string{"--smooth", "0.3", "--stop", "change", "--iterations", "10", "--bands", "3", "--uncertainty", filepath.Join(dir, "g.tif")}, 3, "noise error (DN)"},
+		{"particle", []string{"--method", "particle", "--smooth", "0.2", "--bands", "3", "--particles-per-pixel", "2", "--iterations", "4", "--batches", "2", "--uncertainty", filepath.Join(dir, "u.tif")}, 3,
+			"total error: noise + Monte Carlo (DN)"},
 	} {
 		ql, out := filepath.Join(dir, c.name+".png"), filepath.Join(dir, c.name+".tif")
 		args := append([]string{"restore", "--psf", "gaussian:sigma=1.4", "--quicklook", ql}, c.args...)
@@ -74,6 +81,9 @@ func TestRestoreQuicklook(t *testing.T) {
 			if !hasGreyRamp(img, 2*(crop+gap), crop, head) {
 				t.Errorf("%s: no black-to-white bar above the error panel", c.name)
 			}
+			if !hasTitle(img, 2*(crop+gap), crop, head, c.title) {
+				t.Errorf("%s: the error panel is not titled %q", c.name, c.title)
+			}
 		} else {
 			checkMidGrey(t, img, head)
 		}
@@ -95,6 +105,36 @@ func TestRestoreQuicklook(t *testing.T) {
 			t.Errorf("%v: exit %d, %q", a, code, errs)
 		}
 	}
+}
+
+// hasTitle reports whether the header above the panel at x0 (w pixels
+// wide) shows title in the panel titles' colour at some baseline: every
+// pixel quicklook.go's drawText inks for it matches, and the pixels just
+// past its end are white (so a longer title does not match).
+func hasTitle(img image.Image, x0, w, head int, title string) bool {
+	ink := color.RGBA{0, 0, 120, 255}
+	for y := 10; y < head; y++ {
+		want := image.NewRGBA(image.Rect(0, 0, w, head))
+		drawText(want, 2, y, title, ink)
+		ok, inked := true, 0
+		for py := 0; py < head && ok; py++ {
+			for px := 0; px < w && ok; px++ {
+				c := want.RGBAAt(px, py)
+				r, g, b, _ := img.At(x0+px, py).RGBA()
+				switch {
+				case c.A != 0:
+					inked++
+					ok = uint8(r>>8) == c.R && uint8(g>>8) == c.G && uint8(b>>8) == c.B
+				case py > y-11 && py <= y && px >= 2+len(title)*qlChar && px < 2+(len(title)+2)*qlChar:
+					ok = r>>8 == 255 && g>>8 == 255 && b>>8 == 255
+				}
+			}
+		}
+		if ok && inked > 0 {
+			return true
+		}
+	}
+	return false
 }
 
 // hasGreyRamp reports whether some header row above the panel at x0 (w
@@ -289,10 +329,11 @@ func TestRestoreHTMLReport(t *testing.T) {
 		want  []string
 		width int // the convergence figure: two panels
 	}{
-		{"grid", []string{"--bands", "3"}, []string{"EMS (grid)", `<td class="l">red</td>`, "Left: red's relative L1 change per iteration"}, 2},
+		{"grid", []string{"--bands", "3", "--uncertainty", filepath.Join(dir, "g.tif")}, []string{"EMS (grid)", `<td class="l">red</td>`, "Left: red's relative L1 change per iteration",
+			"Observed | restored | noise error (DN)"}, 2},
 		{"particle", []string{"--bands", "3,2", "--method", "particle", "--particles-per-pixel", "2", "--iterations", "6", "--batches", "2",
 			"--uncertainty", filepath.Join(dir, "u.tif")},
-			[]string{"EMS (particle)", `<td class="l">red</td>`, `<td class="l">green</td>`, "Monte Carlo standard error",
+			[]string{"EMS (particle)", `<td class="l">red</td>`, `<td class="l">green</td>`, "Observed | restored | total error: noise + Monte Carlo (DN)",
 				"every tile ran 6 iterations", "particle method runs the fixed --iterations count"}, 2},
 	} {
 		t.Run(c.name, func(t *testing.T) {

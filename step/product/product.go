@@ -15,8 +15,13 @@ import (
 // Label is the LIMPID_PRODUCT item of a restored raster.
 const Label = "restored (deconvolved) image; keep the original"
 
-// uncertaintyLabel is the LIMPID_PRODUCT item of a standard-error raster.
-const uncertaintyLabel = "Monte Carlo standard error (DN) of a restored (deconvolved) image"
+// uncertaintyLabel is the LIMPID_PRODUCT item of the particle method's
+// error raster: the total of its two parts (step/uncertainty.go).
+const uncertaintyLabel = "total standard error (DN) of a restored (deconvolved) image: sqrt(noise^2 + mc^2) of the data-noise part and the Monte Carlo part; PSF and noise-model errors are not in it"
+
+// totalRule is the particle map's LIMPID_SE_METHOD.
+const totalRule = "noise part: the EMS recursion the particle method approximates (same PSF, bandwidth and iterations) linearised, " +
+	"its noise error map as the grid method's; Monte Carlo part: "
 
 // noiseMapRule and noiseMapBlendRule describe the grid method's noise error
 // map (step/noisemap.go) in its metadata.
@@ -157,8 +162,9 @@ func Metadata(rep *step.Report) Record {
 	return Record{Scene: scene, Bands: bands}
 }
 
-// UncertaintyMetadata is the processing metadata of the particle method's
-// standard-error raster.
+// UncertaintyMetadata is the processing metadata of the --uncertainty
+// raster: the grid method's noise error map, or the particle method's total
+// error.
 func UncertaintyMetadata(rep *step.Report) Record {
 	var scene []Item
 	var bands [][]Item
@@ -191,11 +197,18 @@ func UncertaintyMetadata(rep *step.Report) Record {
 	scene = append(scene, psfItems(rep.PSFUsed)...)
 	scene = append(scene, []Item{
 		{"LIMPID_PARAMETERS", string(params)},
-		{"LIMPID_SE_BLEND", step.SEBlendRule},
-		{"LIMPID_SE_METHOD", rep.Particle.SEMethod},
+		{"LIMPID_SE_BLEND", "Monte Carlo part: " + step.SEBlendRule + "; noise part: " + noiseMapBlendRule + "; then sqrt(noise^2 + mc^2) per pixel (independent sources)"},
+		{"LIMPID_SE_METHOD", totalRule + rep.Particle.SEMethod},
 	}...)
-	for _, b := range rep.Particle.Bands {
-		bands = append(bands, []Item{{"LIMPID_MEAN_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanSE)}})
+	for i, b := range rep.Particle.Bands {
+		items := []Item{{"LIMPID_MEAN_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanTotalSE)},
+			{"LIMPID_MEAN_NOISE_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanNoiseSE)},
+			{"LIMPID_MEAN_MONTE_CARLO_STANDARD_ERROR", fmt.Sprintf("%.6g", b.MeanSE)}}
+		if i < len(rep.Bands) && rep.Bands[i].Noise != nil {
+			nm := rep.Bands[i].Noise
+			items = append(items, Item{"LIMPID_NOISE_MODEL", fmt.Sprintf("var = %.6g * DN + %.6g (%s)", nm.A, nm.B, nm.Source)})
+		}
+		bands = append(bands, items)
 	}
 	return Record{Scene: scene, Bands: bands}
 }

@@ -130,3 +130,12 @@ func Taper(dst, mask []float32, w, h, r int, dist, _ []float32) {
 // of radius r: twice the PSF's reach (measured on the nodata scenes of
 // DEVELOPERS.md, "Nodata collars and footprints").
 func TaperRadius(r int) int { return max(2, 2*r) }
+
+// Grow returns b resized to n, reallocated (zeroed) only when its capacity
+// is short; otherwise its contents are kept.
+func Grow[T any](b []T, n int) []T {
+	if cap(b) < n {
+		return make([]T, n)
+	}
+	return b[:n]
+}

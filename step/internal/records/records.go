@@ -24,4 +24,9 @@ type ParticleBand struct {
 	// sum(SE) / sum(restored - background).
 	MeanSE     float64 `json:"mean_standard_error"`
 	RelativeSE float64 `json:"relative_standard_error"`
+	// With --uncertainty: MeanNoiseSE is the mean data-noise part (DN; the
+	// EMS recursion's noise error map at the same settings) and MeanTotalSE
+	// the mean of the file's total sqrt(mc^2 + noise^2) (DN).
+	MeanNoiseSE float64 `json:"mean_noise_se,omitempty"`
+	MeanTotalSE float64 `json:"mean_total_se,omitempty"`
 }
