@@ -241,6 +241,22 @@ type measureSummary struct {
 	Edges        []edgeSummary `json:"edges"`
 	Point        *pointSummary `json:"point,omitempty"`
 	Spec         string        `json:"psf_spec"`
+	// Bands: --auto without --band measures every band (the top-level
+	// keys are the first band's).
+	Bands []bandSummary `json:"bands,omitempty"`
+}
+
+// bandSummary is one band's measurement in psf measure --auto's "bands".
+type bandSummary struct {
+	Band       int           `json:"band"`
+	Sigma      *float64      `json:"sigma"`
+	SigmaX     *float64      `json:"sigma_x"`
+	SigmaY     *float64      `json:"sigma_y"`
+	MTFNyquist *float64      `json:"mtf_nyquist"`
+	MTF50      *float64      `json:"mtf50"`
+	FWHM       *float64      `json:"fwhm"`
+	Edges      []edgeSummary `json:"edges"`
+	Spec       string        `json:"psf_spec"`
 }
 
 func parseInts(flag, s string, n int) ([]int, error) {
@@ -288,6 +304,7 @@ type measureArgs struct {
 	pointWindow               int
 	auto                      bool
 	band                      int
+	allBands                  bool // --auto without --band: every band
 	json, csv, kernel, pngOut string
 }
 
@@ -310,11 +327,24 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 		return err
 	}
 	defer src.Close()
-	sum, err := measureScene(src, args)
+	sum, err := measureBands(src, args)
 	if err != nil {
 		return err
 	}
-	printSummary(stdout, &sum)
+	if len(sum.Bands) > 1 {
+		for _, b := range sum.Bands {
+			fmt.Fprintf(stdout, "band %d:\n", b.Band)
+			bs := measureSummary{Sigma: b.Sigma, SigmaX: b.SigmaX, SigmaY: b.SigmaY, MTFNyquist: b.MTFNyquist, MTF50: b.MTF50, Edges: b.Edges, Spec: b.Spec, SigmaFrom: "no usable edge"}
+			if b.Band == sum.Band {
+				bs = sum
+			} else if b.Sigma != nil {
+				bs.SigmaFrom = "edges"
+			}
+			printSummary(stdout, &bs)
+		}
+	} else {
+		printSummary(stdout, &sum)
+	}
 	for _, e := range sum.Edges {
 		for _, w := range e.Warnings {
 			fmt.Fprintf(stderr, "limpid: warning: edge %v: %s\n", e.Window, w)
@@ -334,6 +364,7 @@ func parseMeasureArgs(c *cli.Context) (measureArgs, error) {
 	var a measureArgs
 	a.in = c.Args().Get(0)
 	a.auto, a.band, a.pointWindow = c.Bool("auto"), c.Int("band"), c.Int("point-window")
+	a.allBands = a.auto && !c.IsSet("band")
 	a.json, a.csv, a.kernel, a.pngOut = c.String("json"), c.String("csv"), c.String("kernel"), c.String("png")
 	if len(c.StringSlice("edge")) == 0 && c.String("point") == "" && !a.auto {
 		return a, usagef("psf measure needs --edge X0,Y0,X1,Y1, --point X,Y or --auto")
@@ -371,6 +402,40 @@ func parseMeasureArgs(c *cli.Context) (measureArgs, error) {
 		}
 	}
 	return a, nil
+}
+
+// measureBands is measureScene of --band, or with --auto and no --band of
+// every band: then Bands lists them and the top level is the first band
+// with a usable measurement (a band without usable edges is listed with
+// null sigmas).
+func measureBands(src raster.Reader, args measureArgs) (measureSummary, error) {
+	if !args.allBands {
+		return measureScene(src, args)
+	}
+	var top *measureSummary
+	var bands []bandSummary
+	for b := 1; b <= len(src.Meta().Bands); b++ {
+		a := args
+		a.band = b
+		sum, err := measureScene(src, a)
+		var u usageError
+		if errors.As(err, &u) && strings.Contains(err.Error(), "no usable") && len(src.Meta().Bands) > 1 {
+			bands = append(bands, bandSummary{Band: b, Edges: []edgeSummary{}})
+			continue
+		} else if err != nil {
+			return measureSummary{}, err
+		}
+		bands = append(bands, bandSummary{Band: b, Sigma: sum.Sigma, SigmaX: sum.SigmaX, SigmaY: sum.SigmaY,
+			MTFNyquist: sum.MTFNyquist, MTF50: sum.MTF50, FWHM: sum.FWHM, Edges: sum.Edges, Spec: sum.Spec})
+		if top == nil {
+			top = &sum
+		}
+	}
+	if top == nil {
+		return measureSummary{}, usagef("--auto: no usable edge in any band of %s (straight, high-contrast, 2-10 degrees off the axes, uniform sides); give --edge or --point windows", args.in)
+	}
+	top.Bands = bands
+	return *top, nil
 }
 
 // measureScene measures the --edge windows, the --auto edges and the
@@ -631,7 +696,7 @@ const psfProductHelp = `
 // restorePSF reads restore's --psf: a psf spec, or auto[:band=N], which
 // measures the PSF from INPUT's edges (psf measure --auto) before restoring.
 func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
-	spec := strings.TrimSpace(c.String("psf"))
+	spec := psfPlain(c)
 	name, rest, _ := strings.Cut(spec, ":")
 	if name != "auto" {
 		k, err := psf.Parse(spec, psfEnv())

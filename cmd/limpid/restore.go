@@ -39,7 +39,7 @@ func psfHelp() string {
 
 func restoreFlags() []cli.Flag {
 	return append([]cli.Flag{
-		&cli.StringFlag{Name: "psf", Usage: psfHelp()},
+		&cli.StringSliceFlag{Name: "psf", Usage: psfHelp()},
 		&cli.StringFlag{Name: "format", Value: "gtiff", Usage: "output container: gtiff (tiled, DEFLATE, predictor, BIGTIFF=IF_SAFER) or cog (Cloud Optimized GeoTIFF)"},
 		&cli.StringFlag{Name: "bands", Usage: "1-based bands to restore, in output order, e.g. 1,3,4 (default: all)"},
 		&cli.StringFlag{Name: "output-type", Value: "same", Usage: "same (round to nearest, clamp to the input type's range) or float32"},
@@ -142,10 +142,15 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	default:
 		return nil, usagef("--output-type %q: use same or float32", t)
 	}
-	if c.String("psf") == "" {
+	if len(psfArgs(c)) == 0 {
 		return nil, usagef("--psf is required, e.g. --psf gaussian:sigma=0.7")
 	}
-	k, psfSpec, err := restorePSF(c) // psf.go: model specs, and auto (measured from INPUT)
+	// psfband.go: a PSF per band (BAND=SPEC, auto); else psf.go: one spec
+	// or auto:band=N for every band.
+	k, psfSpec, bandK, bandSpec, perBand, err := bandPSFs(c)
+	if err == nil && !perBand {
+		k, psfSpec, err = restorePSF(c)
+	}
 	if err != nil {
 		return nil, err
 	}
@@ -154,6 +159,11 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 		Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
 		Workers: c.Int("workers"), Seed: c.Uint64("seed"),
 		Choose: step.Choose(c.String("choose")),
+	}
+	for _, bk := range bandK {
+		if bk != nil {
+			cfg.BandPSF, cfg.BandPSFSpec = bandK, bandSpec
+		}
 	}
 	if err := parseRegularisation(c, &cfg); err != nil {
 		return nil, err
@@ -325,7 +335,15 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 	}
 	// Every output path before any work (--psf auto measures INPUT in
 	// parseJob).
-	ins := append([]namedPath{{"INPUT", c.Args().Get(0)}}, psfInputs(c.String("psf"))...)
+	ins := []namedPath{{"INPUT", c.Args().Get(0)}}
+	for _, v := range psfArgs(c) {
+		if b, spec, ok := strings.Cut(v, "="); ok {
+			if _, err := strconv.Atoi(strings.TrimSpace(b)); err == nil {
+				v = strings.TrimSpace(spec)
+			}
+		}
+		ins = append(ins, psfInputs(v)...)
+	}
 	outs := []namedPath{{"OUTPUT", c.Args().Get(1)}, {"--report", c.String("report")}, {"--uncertainty", c.String("uncertainty")},
 		{"--quicklook", c.String("quicklook")}, {"--report-html", c.String("report-html")}}
 	if err := checkOutputs(stdout, stderr, ins, outs); err != nil {
@@ -351,6 +369,9 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 		}
 	}
 	if c.String("input-format") == "arrow" || c.String("output-format") == "arrow" {
+		if j.cfg.BandPSF != nil {
+			return usagef("--psf: a PSF per band is not available with tile streams (--input-format/--output-format arrow); restore the raster")
+		}
 		return runStreamRestore(c.Context, c, j, stdin, stdout, stderr)
 	}
 	_, err = runRestore(c.Context, j, stdin, stdout, stderr)
