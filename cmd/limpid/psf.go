@@ -160,6 +160,10 @@ point-like target in the --point-window square centred there.
 
 --auto searches the band for straight high-contrast edges 2-10 degrees off
 the axes with uniform sides and measures each (see the README for the rule).
+Without --band it measures every band: the table per band on stdout, and
+--json lists them under "bands" (band, sigma, sigma_x, sigma_y, mtf_nyquist,
+mtf50, fwhm, edges; null sigmas for a band without usable edges), the
+top-level keys staying those of the first band measured.
 
 Several edges of one orientation combine by their median; edges whose sigma
 is more than 3 x 1.4826 x MAD (and 10 %) from the median are rejected as
@@ -179,8 +183,8 @@ Examples:
 			&cli.StringSliceFlag{Name: "edge", Usage: "edge window X0,Y0,X1,Y1 in pixels (repeatable)"},
 			&cli.StringFlag{Name: "point", Usage: "point target centre X,Y in pixels"},
 			&cli.IntFlag{Name: "point-window", Value: 21, Usage: "side of the point target's window in pixels (odd, 7-101)"},
-			&cli.BoolFlag{Name: "auto", Usage: "search the band for usable edges"},
-			&cli.IntFlag{Name: "band", Value: 1, Usage: "1-based band to measure"},
+			&cli.BoolFlag{Name: "auto", Usage: "search the band for usable edges; without --band every band (--json then lists them under \"bands\"; the top-level keys, --kernel, --csv and --png are the first measured band's)"},
+			&cli.IntFlag{Name: "band", Value: 1, Usage: "1-based band to measure", DefaultText: "1; every band with --auto"},
 			&cli.StringFlag{Name: "json", Usage: "write the summary to this JSON file"},
 			&cli.StringFlag{Name: "csv", Usage: "write ESF/LSF and MTF curves to PREFIX_edgeN_*.csv"},
 			&cli.StringFlag{Name: "kernel", Usage: "write the measured Gaussian kernel to this file (.tif/.tiff: GeoTIFF, else text)"},
@@ -690,8 +694,12 @@ const psfProductHelp = `
         parts (system MTF = product of the parts' MTFs; kernel = their convolution), e.g.
         'diffraction:wavelength=0.65,fnumber=8,pitch=10*detector:fill=0.9*gaussian:sigma=0.4'
       Kernels exclude the pixel aperture; model kernels hold >= 99.9 % of the weight.
-      auto[:band=N]: measured from INPUT itself (restore only): the edges limpid psf measure
-        --auto finds in band N (default: the first band restored), as gaussian:sx=..,sy=..`
+      A PSF per band: repeat --psf BAND=SPEC (BAND the 1-based input band, restored);
+        a --psf SPEC without a band covers the other bands. LIMPID_PSF: values separated by ';'.
+      auto: measured from INPUT itself (restore only), as gaussian:sx=..,sy=..: every restored
+        band from the edges limpid psf measure --auto finds in it (a band without usable edges
+        takes the median of the measured bands' sigmas; the report says so); BAND=auto one band;
+        auto:band=N measures band N for every band`
 
 // restorePSF reads restore's --psf: a psf spec, or auto[:band=N], which
 // measures the PSF from INPUT's edges (psf measure --auto) before restoring.

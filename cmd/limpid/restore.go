@@ -74,6 +74,8 @@ Examples:
    gdal_translate -of GTiff in.jp2 /vsistdout/ | limpid restore --psf kernel:psf.txt - - > out.tif
    LIMPID_PSF=gaussian:sigma=0.6 LIMPID_WORKERS=2 limpid restore in.tif out.tif
    limpid restore --psf gaussian:sigma=0.7 --smooth 0.2 --stop change in.tif out.tif   (fixed, cheaper)
+   limpid restore --psf gaussian:sigma=0.7 --psf 4=gaussian:sigma=0.9 in.tif out.tif   (band 4 its own PSF)
+   LIMPID_PSF='1=gaussian:sigma=0.7;2=gaussian:sigma=0.8;3=gaussian:sigma=0.8;4=gaussian:sigma=0.9' limpid restore in.tif out.tif
 
 By default the smoothing and the stop are chosen per band from the scene (noise
 model + risk estimate; see the report's "choice"); --smooth EPS --stop change
@@ -83,7 +85,8 @@ Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings, or a plan
 packed with tiles pack --plan; README, "Scale out", also for --plan and --shard):
    limpid tiles pack scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 --smooth 0.2 --stop change - - | limpid tiles unpack - out.tif
 
-Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
+Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32);
+LIMPID_PSF takes a list of --psf values separated by ";".
 
 ` + caution,
 		Flags:  append(append(restoreFlags(), streamFlags()...), planFlags()...),
