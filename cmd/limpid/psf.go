@@ -261,6 +261,7 @@ type bandSummary struct {
 	FWHM       *float64      `json:"fwhm"`
 	Edges      []edgeSummary `json:"edges"`
 	Spec       string        `json:"psf_spec"`
+	sigmaFrom  string
 }
 
 func parseInts(flag, s string, n int) ([]int, error) {
@@ -338,20 +339,28 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 	if len(sum.Bands) > 1 {
 		for _, b := range sum.Bands {
 			fmt.Fprintf(stdout, "band %d:\n", b.Band)
-			bs := measureSummary{Sigma: b.Sigma, SigmaX: b.SigmaX, SigmaY: b.SigmaY, MTFNyquist: b.MTFNyquist, MTF50: b.MTF50, Edges: b.Edges, Spec: b.Spec, SigmaFrom: "no usable edge"}
-			if b.Band == sum.Band {
-				bs = sum
-			} else if b.Sigma != nil {
-				bs.SigmaFrom = "edges"
+			bs := measureSummary{Sigma: b.Sigma, SigmaX: b.SigmaX, SigmaY: b.SigmaY, MTFNyquist: b.MTFNyquist, MTF50: b.MTF50, Edges: b.Edges, Spec: b.Spec, SigmaFrom: b.sigmaFrom}
+			if b.Sigma == nil {
+				bs.SigmaFrom = "no usable edge"
 			}
 			printSummary(stdout, &bs)
 		}
 	} else {
 		printSummary(stdout, &sum)
 	}
-	for _, e := range sum.Edges {
-		for _, w := range e.Warnings {
-			fmt.Fprintf(stderr, "limpid: warning: edge %v: %s\n", e.Window, w)
+	bands := []bandSummary{{Edges: sum.Edges}}
+	if len(sum.Bands) > 1 {
+		bands = sum.Bands
+	}
+	for _, b := range bands {
+		where := ""
+		if b.Band > 0 {
+			where = fmt.Sprintf("band %d ", b.Band)
+		}
+		for _, e := range b.Edges {
+			for _, w := range e.Warnings {
+				fmt.Fprintf(stderr, "limpid: warning: %sedge %v: %s\n", where, e.Window, w)
+			}
 		}
 	}
 	if sum.Point != nil {
@@ -430,7 +439,7 @@ func measureBands(src raster.Reader, args measureArgs) (measureSummary, error) {
 			return measureSummary{}, err
 		}
 		bands = append(bands, bandSummary{Band: b, Sigma: sum.Sigma, SigmaX: sum.SigmaX, SigmaY: sum.SigmaY,
-			MTFNyquist: sum.MTFNyquist, MTF50: sum.MTF50, FWHM: sum.FWHM, Edges: sum.Edges, Spec: sum.Spec})
+			MTFNyquist: sum.MTFNyquist, MTF50: sum.MTF50, FWHM: sum.FWHM, Edges: sum.Edges, Spec: sum.Spec, sigmaFrom: sum.SigmaFrom})
 		if top == nil {
 			top = &sum
 		}
