@@ -40,6 +40,7 @@ func TestBandPSFMatchesBandAlone(t *testing.T) {
 		set  func(*Config)
 	}{
 		{"fixed", func(*Config) {}},
+		{"noise map", func(c *Config) { c.Uncertainty = raster.NewMem(src.M) }},
 		{"auto", func(c *Config) { c.SmoothAuto, c.Stop, c.Iterations, c.Tile = true, StopAuto, 0, 32 }},
 		{"auto one tile", func(c *Config) { c.SmoothAuto, c.Stop, c.Iterations = true, StopAuto, 0 }},
 		{"discrepancy", func(c *Config) { c.Stop = StopDiscrepancy }},
@@ -59,6 +60,11 @@ func TestBandPSFMatchesBandAlone(t *testing.T) {
 			all := cfg
 			all.BandPSF, all.BandPSFSpec = []*psf.Kernel{nil, ks[1], ks[2], ks[3]}, []string{"", "b", "c", "d"}
 			got, rep := restoreMem(t, src, []int{0, 1, 2, 3}, all)
+			var gotSE [][]float32
+			if all.Uncertainty != nil {
+				gotSE = all.Uncertainty.(*raster.Mem).Bands
+				all.Uncertainty = raster.NewMem(src.M)
+			}
 			// The plan's replay (Decide, then Restore with the decisions)
 			// gives the same bytes.
 			rep0, err := Decide(context.Background(), src, []int{0, 1, 2, 3}, all)
@@ -73,9 +79,15 @@ func TestBandPSFMatchesBandAlone(t *testing.T) {
 				}
 				one := cfg
 				one.PSF = ks[b]
+				if one.Uncertainty != nil {
+					one.Uncertainty = raster.NewMem(src.M)
+				}
 				want, _ := restoreMem(t, src, []int{0, 1, 2, 3}, one)
 				if !slices.Equal(got.Bands[b], want.Bands[b]) {
 					t.Errorf("band %d differs from the scene restored with its PSF", b+1)
+				}
+				if gotSE != nil && sameBits(gotSE[b], one.Uncertainty.(*raster.Mem).Bands[b]) >= 0 {
+					t.Errorf("band %d: the noise error map differs from the scene restored with its PSF", b+1)
 				}
 				if b > 0 && (rep.Bands[b].PSFUsed == nil || rep.Bands[b].PSF != all.BandPSFSpec[b] || rep.Bands[b].PSFUsed.SHA256 != psf.Describe("", ks[b]).SHA256) {
 					t.Errorf("band %d records PSF %q %+v", b+1, rep.Bands[b].PSF, rep.Bands[b].PSFUsed)
