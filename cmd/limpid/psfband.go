@@ -100,8 +100,11 @@ func bandPSFs(c *cli.Context) (k *psf.Kernel, spec string, bandK []*psf.Kernel, 
 		restored[b] = true
 	}
 	for _, b := range sortedKeys(byBand) {
+		if b >= len(meta.Bands) {
+			return nil, "", nil, nil, true, usagef("--psf %d=%s: band %d does not exist (INPUT has %d bands)", b+1, byBand[b], b+1, len(meta.Bands))
+		}
 		if !restored[b] {
-			return nil, "", nil, nil, true, usagef("--psf %d=%s: band %d is not restored (--bands %q; INPUT has %d bands)", b+1, byBand[b], b+1, c.String("bands"), len(meta.Bands))
+			return nil, "", nil, nil, true, usagef("--psf %d=%s: band %d is not restored (--bands %s)", b+1, byBand[b], b+1, c.String("bands"))
 		}
 	}
 	specs := make([]string, len(bands))

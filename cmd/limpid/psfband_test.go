@@ -202,6 +202,7 @@ func TestPSFPerBandBadInput(t *testing.T) {
 		{[]string{"--bands", "1,2", "--psf", "1=gaussian:sigma=1"}, "band 2 is restored but has no PSF"},
 		{[]string{"--psf", "gaussian:sigma=1", "--psf", "gaussian:sigma=2"}, "only one --psf without a band"},
 		{[]string{"--psf", "0=gaussian:sigma=1"}, "1-based input band"},
+		{[]string{"--psf", "gaussian:sigma=1", "--psf", "5=gaussian:sigma=1"}, "band 5 does not exist"},
 		{[]string{"--psf", "1=gaussian:sigma=1", "-", x}, "stdin"},
 	} {
 		args := append([]string{"restore"}, c.args...)
