@@ -85,27 +85,12 @@ func riskEvaluated(k, cap int) bool {
 	return k <= 10 || (k <= 30 && k%2 == 0) || k%5 == 0 || k == cap
 }
 
-// riskWeights holds the DCT-domain weights for one tile size: Q^2, G and
-// K = 1 / (h^2 + lambda) (the masked form, see rp.risk), and the PSF's
-// radius.
-type riskWeights struct {
-	q2, g, k []float64
-	radius   int
-}
+// riskWeights are the DCT-domain weights Q^2, G and K of one tile size
+// (conv.RiskWeights).
+type riskWeights = conv.RiskWeights
 
 func newRiskWeights(k *psf.Kernel, w, h int) (*riskWeights, bool) {
-	lam, ok := conv.Eigenvalues(k, w, h)
-	if !ok {
-		return nil, false
-	}
-	rw := &riskWeights{q2: make([]float64, w*h), g: make([]float64, w*h), k: make([]float64, w*h), radius: max(k.Rx(), k.Ry())}
-	for i, l := range lam {
-		den := l*l + riskLambda
-		rw.q2[i] = l * l / den
-		rw.g[i] = l / den
-		rw.k[i] = 1 / den
-	}
-	return rw, true
+	return conv.NewRiskWeights(k, w, h, riskLambda)
 }
 
 // autoWork is one worker's scratch for the risk-carrying EMS.
@@ -195,10 +180,10 @@ func setupRisk(aw *autoWork, p *Problem, nm *noise.Model, rw *riskWeights, seed 
 	// Full tiles: gd = C^T G C (d - b), gv = c C^T G C (v delta). Masked
 	// tiles: the same with K in place of G and d - b zeroed on invalid
 	// pixels (v delta is zero there already).
-	wt := rw.g
+	wt := rw.G
 	if rp.masked {
-		wt = rw.k
-		plane.Taper(aw.taper[:n], p.Mask[:n], w, h, plane.TaperRadius(rw.radius), aw.ue[:n], aw.wp[:n])
+		wt = rw.K
+		plane.Taper(aw.taper[:n], p.Mask[:n], w, h, plane.TaperRadius(rw.Radius), aw.ue[:n], aw.wp[:n])
 	}
 	tmp := aw.ue
 	for i := 0; i < n; i++ {
@@ -304,7 +289,7 @@ func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []floa
 	if rp.dctOK {
 		aw.dct.Forward(aw.F, f)
 		var t1, t2, t3 float64
-		q2 := rp.weight.q2
+		q2 := rp.weight.Q2
 		for i, x := range aw.F[:n] {
 			t1 += q2[i] * x * x
 		}
@@ -352,7 +337,7 @@ func (rp *riskProblem) maskedRisk(ws *Workspace, aw *autoWork, g *GridEMS, f, u 
 	}
 	aw.dct.Forward(aw.F, wp)
 	var t1 float64
-	k := rp.weight.k
+	k := rp.weight.K
 	for i, x := range aw.F[:n] {
 		t1 += k[i] * x * x
 	}

@@ -257,7 +257,7 @@ func TestRiskUnbiasedGaussian(t *testing.T) {
 			X, WHx := make([]float64, n), make([]float32, n)
 			dct.Forward(X, x)
 			tp := make([]float32, n)
-			plane.Taper(tp, mc.mask, w, h, plane.TaperRadius(rw.radius), make([]float32, n), make([]float32, n))
+			plane.Taper(tp, mc.mask, w, h, plane.TaperRadius(rw.Radius), make([]float32, n), make([]float32, n))
 			for i := range WHx {
 				WHx[i] = hx[i] * tp[i]
 			}
@@ -293,12 +293,12 @@ func TestRiskUnbiasedGaussian(t *testing.T) {
 						}
 						dct.Forward(Fk, Pk)
 						for i := range Fk {
-							tr += rw.k[i] * (Fk[i]*Fk[i] - 2*Fk[i]*WX[i])
+							tr += rw.K[i] * (Fk[i]*Fk[i] - 2*Fk[i]*WX[i])
 						}
 					} else {
 						dct.Forward(Fk, f)
 						for i := range Fk {
-							tr += rw.q2[i] * (Fk[i]*Fk[i] - 2*Fk[i]*X[i])
+							tr += rw.Q2[i] * (Fk[i]*Fk[i] - 2*Fk[i]*X[i])
 						}
 					}
 					diff[kk-1] = append(diff[kk-1], run.Risk[kk-1]-tr)

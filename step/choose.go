@@ -8,6 +8,7 @@ import (
 	"sort"
 	"sync"
 
+	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/conv"
 	"limpid/step/internal/level"
@@ -190,7 +191,7 @@ type chooser struct {
 	plan    Plan
 	tiles   map[[2]int]bool // nil: every tile
 	noise   []noise.Model
-	grids   []*GridEMS // per candidate
+	grids   [][]*GridEMS // per band, per candidate
 	smooths []float64
 	seed    uint64
 
@@ -207,22 +208,22 @@ type chooser struct {
 	kept       []*keptTile // per band
 
 	mu      sync.Mutex
-	weights map[[2]int]*riskWeights
-	noDCT   map[[2]int]bool
+	weights map[weightsKey]*riskWeights
+	noDCT   map[weightsKey]bool
 	runs    map[TileKey][]riskRun
 	valid   map[TileKey]int
 }
 
 func (c *chooser) Name() string { return "choose" }
 
-func (c *chooser) riskWeights(w, h int) *riskWeights {
+func (c *chooser) riskWeights(k *psf.Kernel, w, h int) *riskWeights {
 	c.mu.Lock()
 	defer c.mu.Unlock()
-	key := [2]int{w, h}
+	key := weightsKey{k, w, h}
 	if rw, ok := c.weights[key]; ok || c.noDCT[key] {
 		return rw
 	}
-	rw, ok := newRiskWeights(c.cfg.PSF, w, h)
+	rw, ok := newRiskWeights(k, w, h)
 	if !ok {
 		c.noDCT[key] = true
 		return nil
@@ -250,7 +251,7 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		ws.auto = &autoWork{}
 	}
 	cp := c.crop(ws.auto, p)
-	rp := setupRisk(ws.auto, cp, &c.noise[k.Band], c.riskWeights(cp.W, cp.H), c.seed, NoiseInflation)
+	rp := setupRisk(ws.auto, cp, &c.noise[k.Band], c.riskWeights(c.cfg.Kernel(k.Band), cp.W, cp.H), c.seed, NoiseInflation)
 	if rp.nValid == 0 || !(rp.flux > 0) {
 		return Result{Flat: true}, nil
 	}
@@ -268,7 +269,7 @@ func (c *chooser) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 
 // newRuns is a tile's run list before any candidate ran.
 func (c *chooser) newRuns() []riskRun {
-	runs := make([]riskRun, len(c.grids))
+	runs := make([]riskRun, len(c.smooths))
 	for i := range runs {
 		runs[i] = riskRun{Smooth: c.smooths[i], BestR: math.Inf(1), Mode: RiskSkipped}
 	}
@@ -294,7 +295,7 @@ func (c *chooser) solveActive(ctx context.Context, ws *Workspace, k TileKey, rp 
 	if done {
 		return nil
 	}
-	run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[i], c.limit(), c.cfg.Stop == StopAuto, false, math.Inf(1))
+	run, err := runRisk(ctx, ws, ws.auto, rp, c.grids[k.Band][i], c.limit(), c.cfg.Stop == StopAuto, false, math.Inf(1))
 	if err != nil {
 		return err
 	}
@@ -316,7 +317,7 @@ func (c *chooser) solveAll(ctx context.Context, ws *Workspace, k TileKey, cp *Pr
 	runs := c.newRuns()
 	beat := math.Inf(1)
 	var kept []float32
-	for i, g := range c.grids {
+	for i, g := range c.grids[k.Band] {
 		run, err := runRisk(ctx, ws, ws.auto, rp, g, c.limit(), auto, c.keep, beat)
 		if err != nil {
 			return err
@@ -571,8 +572,8 @@ func (r *runner) regularise(ctx context.Context) (Solver, error) {
 	if err != nil {
 		return nil, err
 	}
-	rg := &regulariser{runner: r, noise: models, H: conv.New(r.cfg.PSF), bs: &bandSolver{byBand: make([]Solver, len(r.bands))},
-		particle: r.cfg.Method == MethodParticle, cache: map[[2]float64]Solver{}}
+	rg := &regulariser{runner: r, noise: models, hs: r.cfg.operators(len(r.bands)), bs: &bandSolver{byBand: make([]Solver, len(r.bands))},
+		particle: r.cfg.Method == MethodParticle, cache: map[solverKey]Solver{}}
 	if !r.cfg.SmoothAuto && r.cfg.Stop != StopAuto {
 		return rg.discrepancy(), nil
 	}
@@ -611,10 +612,21 @@ func (r *runner) bandNoise(ctx context.Context) ([]noise.Model, error) {
 type regulariser struct {
 	*runner
 	noise    []noise.Model
-	H        *conv.Operator
+	hs       []*conv.Operator // per band
 	bs       *bandSolver
 	particle bool
-	cache    map[[2]float64]Solver
+	cache    map[solverKey]Solver
+}
+
+type solverKey struct {
+	h   *conv.Operator
+	eps float64
+	k   int
+}
+
+type weightsKey struct {
+	k    *psf.Kernel
+	w, h int
 }
 
 func (rg *regulariser) usable(b int) bool { return rg.noise[b].A+rg.noise[b].B > 0 }
@@ -625,12 +637,12 @@ func (rg *regulariser) usable(b int) bool { return rg.noise[b].A+rg.noise[b].B >
 func (rg *regulariser) fixed(b int) {
 	cfg := &rg.cfg
 	if rg.particle {
-		rg.bs.byBand[b] = rg.solverFor(cfg.Smooth, cfg.Iterations)
+		rg.bs.byBand[b] = rg.solverFor(b, cfg.Smooth, cfg.Iterations)
 		rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
 			Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, the particle method's --iterations", rg.noise[b].Source)}
 		return
 	}
-	rg.bs.byBand[b] = newGrid(rg.H, cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
+	rg.bs.byBand[b] = newGrid(rg.hs[b], cfg.Smooth, min(cfg.Iterations, DefaultIterations), DefaultTolerance)
 	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: min(cfg.Iterations, DefaultIterations),
 		Rule: fmt.Sprintf("fallback: no noise model (%s); the given smoothing, stop by change %g", rg.noise[b].Source, DefaultTolerance)}
 	rg.decide(b, Decision{Rule: DecideFixed})
@@ -651,7 +663,7 @@ func (rg *regulariser) discrepancy() Solver {
 // discrepancyBand gives band b the discrepancy stop with the fixed bandwidth.
 func (rg *regulariser) discrepancyBand(b int) {
 	cfg := &rg.cfg
-	g := newGrid(rg.H, cfg.Smooth, cfg.Iterations, 0)
+	g := newGrid(rg.hs[b], cfg.Smooth, cfg.Iterations, 0)
 	g.Noise, g.Tau = &rg.noise[b], DiscrepancyTau
 	rg.bs.byBand[b] = g
 	rg.rep.Bands[b].Choice = &Choice{Smooth: cfg.Smooth, Iterations: cfg.Iterations,
@@ -680,7 +692,7 @@ func (rg *regulariser) newChooser() *chooser {
 		ccfg = &cc
 	}
 	c := &chooser{cfg: ccfg, plan: rg.plan, noise: rg.noise, smooths: smooths, seed: cfg.Seed,
-		weights: map[[2]int]*riskWeights{}, noDCT: map[[2]int]bool{}, runs: map[TileKey][]riskRun{}, valid: map[TileKey]int{}}
+		weights: map[weightsKey]*riskWeights{}, noDCT: map[weightsKey]bool{}, runs: map[TileKey][]riskRun{}, valid: map[TileKey]int{}}
 	if cfg.Choose != ChoosePerTile {
 		c.tiles = sampleTiles(rg.plan)
 		c.exhaustive = len(c.tiles) > 1
@@ -688,8 +700,14 @@ func (rg *regulariser) newChooser() *chooser {
 	// The kept iterate has no noise map: with one, the final pass runs.
 	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle && cfg.Uncertainty == nil
 	c.kept = make([]*keptTile, nb)
-	for _, e := range smooths {
-		c.grids = append(c.grids, newGrid(rg.H, e, ccfg.Iterations, 0))
+	by := map[*conv.Operator][]*GridEMS{}
+	for _, h := range rg.hs {
+		if by[h] == nil {
+			for _, e := range smooths {
+				by[h] = append(by[h], newGrid(h, e, ccfg.Iterations, 0))
+			}
+		}
+		c.grids = append(c.grids, by[h])
 	}
 	return c
 }
@@ -747,9 +765,9 @@ func (c *chooser) summedRisk(b, i int) float64 {
 
 // solverFor is the (cached) final-pass solver for bandwidth eps stopped at
 // k iterations.
-func (rg *regulariser) solverFor(eps float64, k int) Solver {
+func (rg *regulariser) solverFor(b int, eps float64, k int) Solver {
 	cfg := &rg.cfg
-	key := [2]float64{eps, float64(k)}
+	key := solverKey{rg.hs[b], eps, k}
 	if s, ok := rg.cache[key]; ok {
 		return s
 	}
@@ -764,10 +782,10 @@ func (rg *regulariser) solverFor(eps float64, k int) Solver {
 	var s Solver
 	if rg.particle {
 		pc := *cfg
-		pc.Smooth = eps
+		pc.Smooth, pc.PSF = eps, cfg.Kernel(b)
 		s = pc.newParticleSolver()
 	} else {
-		s = newGrid(rg.H, eps, it, tol)
+		s = newGrid(rg.hs[b], eps, it, tol)
 	}
 	rg.cache[key] = s
 	return s
@@ -788,7 +806,7 @@ func (rg *regulariser) chosen(c *chooser) Solver {
 		}
 		ch := c.summarise(b)
 		d := Decision{Rule: DecideChosen, Smooth: ch.Smooth, Iterations: ch.Iterations, Kept: c.kept[b] != nil && cfg.Choose != ChoosePerTile}
-		rg.bs.byBand[b] = rg.solverFor(ch.Smooth, ch.Iterations)
+		rg.bs.byBand[b] = rg.solverFor(b, ch.Smooth, ch.Iterations)
 		if kt := c.kept[b]; kt != nil && cfg.Choose != ChoosePerTile {
 			kt.res, kt.smooth = Result{Iterations: ch.Iterations}, ch.Smooth
 			kt.x0, kt.y0 = -rg.plan.InSpan(rg.plan.Cols, 0).Start, -rg.plan.InSpan(rg.plan.Rows, 0).Start
@@ -822,7 +840,7 @@ func (rg *regulariser) perTile(c *chooser, b int, ch *Choice) {
 		for col := range rg.plan.Cols {
 			tc := m[[2]int{col, row}]
 			ch.TileChoices = append(ch.TileChoices, tc)
-			rg.bs.byTile[b][[2]int{col, row}] = rg.solverFor(tc.Smooth, tc.Iterations)
+			rg.bs.byTile[b][[2]int{col, row}] = rg.solverFor(b, tc.Smooth, tc.Iterations)
 			ks = append(ks, weighted{V: float64(tc.Iterations), W: 1})
 			es = append(es, tc.Smooth)
 		}

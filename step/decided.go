@@ -5,7 +5,6 @@ import (
 	"fmt"
 
 	"limpid/raster"
-	"limpid/step/conv"
 	"limpid/step/noise"
 )
 
@@ -68,8 +67,8 @@ func (r *runner) finishDecided() {
 // regularise builds them from its passes.
 func (r *runner) replay() (Solver, error) {
 	nb := len(r.bands)
-	rg := &regulariser{runner: r, noise: make([]noise.Model, nb), H: conv.New(r.cfg.PSF), bs: &bandSolver{byBand: make([]Solver, nb)},
-		particle: r.cfg.Method == MethodParticle, cache: map[[2]float64]Solver{}}
+	rg := &regulariser{runner: r, noise: make([]noise.Model, nb), hs: r.cfg.operators(nb), bs: &bandSolver{byBand: make([]Solver, nb)},
+		particle: r.cfg.Method == MethodParticle, cache: map[solverKey]Solver{}}
 	if r.cfg.Choose == ChoosePerTile {
 		rg.bs.byTile = make([]map[[2]int]Solver, nb)
 	}
@@ -85,14 +84,14 @@ func (r *runner) replay() (Solver, error) {
 		case DecideDiscrepancy:
 			rg.discrepancyBand(b)
 		case DecideChosen:
-			rg.bs.byBand[b] = rg.solverFor(d.Smooth, d.Iterations)
+			rg.bs.byBand[b] = rg.solverFor(b, d.Smooth, d.Iterations)
 			if d.Kept {
-				rg.bs.byBand[b] = &keptReplay{g: newGrid(rg.H, d.Smooth, d.Iterations, 0), plan: r.plan, res: Result{Iterations: d.Iterations}}
+				rg.bs.byBand[b] = &keptReplay{g: newGrid(rg.hs[b], d.Smooth, d.Iterations, 0), plan: r.plan, res: Result{Iterations: d.Iterations}}
 			}
 			if r.cfg.Choose == ChoosePerTile {
 				rg.bs.byTile[b] = map[[2]int]Solver{}
 				for _, tc := range d.Tiles {
-					rg.bs.byTile[b][[2]int{tc.Col, tc.Row}] = rg.solverFor(tc.Smooth, tc.Iterations)
+					rg.bs.byTile[b][[2]int{tc.Col, tc.Row}] = rg.solverFor(b, tc.Smooth, tc.Iterations)
 				}
 			}
 			if d.Choice != nil {

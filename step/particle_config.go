@@ -1,71 +1,30 @@
 package step
 
 import (
-	"fmt"
 	"math"
 
 	"limpid/step/conv"
+	"limpid/step/internal/option"
 	"limpid/step/internal/records"
-	"limpid/step/resample"
 )
 
-// Defaults of the particle method (DEVELOPERS.md, "Particle EMS: cost and
-// accuracy" has the measurements behind them).
+// The particle method's parameters and defaults live in
+// step/internal/option (DEVELOPERS.md, "Particle EMS: cost and accuracy"
+// has the measurements behind the defaults).
+type ParticleConfig = option.ParticleConfig
+
+// Defaults of the particle method (see option).
 const (
-	DefaultPerPixel     = 16
-	DefaultESSThreshold = 0.5 // common practice, no source
-	DefaultBatches      = 10
-	DefaultResampling   = resample.Stratified
-	DefaultPotential    = PotentialExact
-	DefaultStart        = StartFlat
-	// maxParticlesPerTile bounds one tile's cloud (resampling counts are
-	// uint32; about 24 bytes per particle).
-	maxParticlesPerTile = 1 << 31
+	DefaultPerPixel, DefaultESSThreshold, DefaultBatches = option.DefaultPerPixel, option.DefaultESSThreshold, option.DefaultBatches
+	DefaultResampling, DefaultPotential, DefaultStart    = option.DefaultResampling, option.DefaultPotential, option.DefaultStart
+	maxParticlesPerTile                                  = option.MaxParticlesPerTile
 )
 
-// ParticleConfig holds the particle method's parameters (Config.Method
-// "particle"). The zero value means every default; otherwise fields are taken
-// as given except where a field says so.
-type ParticleConfig struct {
-	// PerPixel is K, particles per valid pixel (>= 1).
-	PerPixel int
-	// Potential is how the potential is evaluated (zero: PotentialExact).
-	Potential Potential
-	// Resampling is the resampling scheme (zero: resample.Stratified).
-	Resampling resample.Scheme
-	// ESSThreshold in [0, 1]: resample when ESS < ESSThreshold x N.
-	ESSThreshold float64
-	// BurnIn iterations are discarded before averaging; < 0 means half the
-	// iterations.
-	BurnIn int
-	// Start is the initial cloud (zero: StartFlat).
-	Start Start
-	// Batches for the batch-means standard error (0 = DefaultBatches),
-	// used when Replicates resolves to 1.
-	Batches int
-	// Replicates G: independent clouds whose spread gives the standard
-	// error (PerPixel must be a multiple of G; 1 = one cloud with batch
-	// means). 0 = auto: 4, else 2, else 1, the largest that divides
-	// PerPixel.
-	Replicates int
-}
-
-// AutoReplicates is the Replicates = 0 rule: the largest of 4, 2, 1 that
-// divides K.
-func AutoReplicates(k int) int {
-	for _, g := range []int{4, 2} {
-		if k%g == 0 {
-			return g
-		}
-	}
-	return 1
-}
-
-// DefaultParticle returns the default particle parameters.
-func DefaultParticle() ParticleConfig {
-	return ParticleConfig{PerPixel: DefaultPerPixel, Potential: DefaultPotential, Resampling: DefaultResampling,
-		ESSThreshold: DefaultESSThreshold, BurnIn: -1, Start: DefaultStart, Batches: DefaultBatches}
-}
+// AutoReplicates and DefaultParticle: see option.
+var (
+	AutoReplicates  = option.AutoReplicates
+	DefaultParticle = option.DefaultParticle
+)
 
 // resolveParticle fills defaults and validates the particle parameters
 // against the iteration count; errors are FieldErrors.
@@ -133,10 +92,3 @@ type (
 
 // SEBlendRule documents how tile standard errors are combined.
 const SEBlendRule = "sqrt(sum_t w_t^2 se_t^2): blend weights w_t of the image, tiles' Monte Carlo errors independent"
-
-func (pc ParticleConfig) seMethod() string {
-	if pc.Replicates > 1 {
-		return fmt.Sprintf("spread of %d independent replicate clouds", pc.Replicates)
-	}
-	return fmt.Sprintf("batch means (%d batches) over the averaging window", pc.Batches)
-}

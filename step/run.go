@@ -50,6 +50,10 @@ type Config struct {
 	Method  Method // zero: MethodGrid
 	PSF     *psf.Kernel
 	PSFSpec string
+	// BandPSF, when set, gives each output band its own PSF (one entry per
+	// band; a nil entry: PSF); BandPSFSpec holds their specs.
+	BandPSF     []*psf.Kernel
+	BandPSFSpec []string
 	// Smooth is the EMS smoothing bandwidth in pixels (0 = Richardson-Lucy).
 	Smooth     float64
 	Iterations int
@@ -282,15 +286,20 @@ func (cfg *Config) resolveTiling() error {
 	if cfg.Tile < 16 || cfg.Tile > 16384 {
 		return fieldErrorf("Tile", "{Tile} %d must be between 16 and 16384", cfg.Tile)
 	}
-	if cfg.PSF.W > cfg.Tile || cfg.PSF.H > cfg.Tile {
-		return fieldErrorf("Tile", "the PSF (%dx%d) is larger than a tile (%d): raise {Tile}", cfg.PSF.W, cfg.PSF.H, cfg.Tile)
+	eps := cfg.Smooth
+	if cfg.SmoothAuto {
+		eps = AutoSmooths[len(AutoSmooths)-1]
+	}
+	o := 0
+	for _, k := range append([]*psf.Kernel{cfg.PSF}, cfg.BandPSF...) {
+		if k != nil && (k.W > cfg.Tile || k.H > cfg.Tile) {
+			return fieldErrorf("Tile", "the PSF (%dx%d) is larger than a tile (%d): raise {Tile}", k.W, k.H, cfg.Tile)
+		} else if k != nil {
+			o = max(o, DefaultOverlap(k, eps, cfg.Tile))
+		}
 	}
 	if cfg.Overlap == 0 {
-		eps := cfg.Smooth
-		if cfg.SmoothAuto {
-			eps = AutoSmooths[len(AutoSmooths)-1]
-		}
-		cfg.Overlap = DefaultOverlap(cfg.PSF, eps, cfg.Tile)
+		cfg.Overlap = o
 	}
 	if cfg.Overlap < NoOverlap {
 		return fieldErrorf("Overlap", "{Overlap} %d must be >= 0", cfg.Overlap)
@@ -309,6 +318,15 @@ func (cfg *Config) resolveTiling() error {
 
 // NewSolver builds the solver cfg names.
 func (cfg *Config) NewSolver() Solver {
+	if cfg.PerBandPSF() {
+		bs := &bandSolver{}
+		for b := range cfg.BandPSF {
+			c := *cfg
+			c.PSF, c.BandPSF = cfg.Kernel(b), nil
+			bs.byBand = append(bs.byBand, c.NewSolver())
+		}
+		return bs
+	}
 	if cfg.Method == MethodParticle {
 		return cfg.newParticleSolver()
 	}
@@ -321,6 +339,37 @@ func (cfg *Config) NewSolver() Solver {
 		g.Tolerance = 0
 	}
 	return g
+}
+
+// Kernel is output band b's PSF.
+func (cfg *Config) Kernel(b int) *psf.Kernel {
+	if b < len(cfg.BandPSF) && cfg.BandPSF[b] != nil {
+		return cfg.BandPSF[b]
+	}
+	return cfg.PSF
+}
+
+// PerBandPSF: some band has a PSF other than PSF.
+func (cfg *Config) PerBandPSF() bool {
+	for b := range cfg.BandPSF {
+		if cfg.Kernel(b) != cfg.PSF {
+			return true
+		}
+	}
+	return false
+}
+
+// operators is every band's PSF operator, one per distinct kernel.
+func (cfg *Config) operators(nb int) []*conv.Operator {
+	hs, by := make([]*conv.Operator, nb), map[*psf.Kernel]*conv.Operator{}
+	for b := range hs {
+		k := cfg.Kernel(b)
+		if by[k] == nil {
+			by[k] = conv.New(k)
+		}
+		hs[b] = by[k]
+	}
+	return hs
 }
 
 // Restore reads bands (0-based, output order) of src tile by tile, restores
@@ -341,6 +390,9 @@ func restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	if err != nil {
 		return nil, fmt.Errorf("%w: %v", ErrConfig, err)
 	}
+	if cfg.BandPSF != nil && len(cfg.BandPSF) != len(bands) {
+		return nil, fmt.Errorf("%w: %d band PSFs for %d bands", ErrConfig, len(cfg.BandPSF), len(bands))
+	}
 	solver := cfg.NewSolver()
 	rep := newReport(&cfg, plan, solver)
 	validity := make([]ValidFunc, len(bands))
@@ -351,6 +403,14 @@ func restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 		bi := meta.Bands[b]
 		validity[i] = NewValid(bi.NoData, bi.HasNoData, cfg.Saturated, cfg.HasSaturated)
 		rep.Bands = append(rep.Bands, BandReport{Band: i + 1, SourceBand: b + 1, Background: cfg.Background, BackgroundRule: "given"})
+		if cfg.PerBandPSF() {
+			spec := cfg.PSFSpec
+			if i < len(cfg.BandPSFSpec) && cfg.BandPSF[i] != nil {
+				spec = cfg.BandPSFSpec[i]
+			}
+			used := psf.Describe(spec, cfg.Kernel(i))
+			rep.Bands[i].PSF, rep.Bands[i].PSFUsed = spec, &used
+		}
 	}
 	if cfg.Decided != nil && len(cfg.Decided) != len(bands) {
 		return nil, fmt.Errorf("%w: %d decided bands for %d bands", ErrConfig, len(cfg.Decided), len(bands))
@@ -420,7 +480,7 @@ func newReport(cfg *Config, plan Plan, solver Solver) *Report {
 		pc := cfg.Particle
 		rep.Particle = &ParticleReport{PerPixel: pc.PerPixel, Potential: pc.Potential.String(), Resampling: pc.Resampling.String(),
 			ESSThreshold: pc.ESSThreshold, BurnIn: pc.BurnIn, Start: pc.Start.String(), Batches: pc.Batches, SEBlend: SEBlendRule,
-			Replicates: pc.Replicates, SEMethod: pc.seMethod()}
+			Replicates: pc.Replicates, SEMethod: pc.SEMethod()}
 	}
 	if cfg.SmoothAuto {
 		rep.SmoothRule = fmt.Sprintf("auto: risk estimate over %v", AutoSmooths)

@@ -105,6 +105,9 @@ func runPlannedStream(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer)
 		return err
 	}
 	cfg := p.Config(c.Int("workers"))
+	if cfg.BandPSF != nil {
+		return usagef("INPUT %s: the stream's plan gives each band its own PSF, which tile streams do not carry; restore the raster with restore --plan", j.in)
+	}
 	cfg.SetTiling(h.Tile, h.Overlap)
 	if err := cfg.Resolve(); err != nil {
 		return err

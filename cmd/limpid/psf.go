@@ -160,6 +160,10 @@ point-like target in the --point-window square centred there.
 
 --auto searches the band for straight high-contrast edges 2-10 degrees off
 the axes with uniform sides and measures each (see the README for the rule).
+Without --band it measures every band: the table per band on stdout, and
+--json lists them under "bands" (band, sigma, sigma_x, sigma_y, mtf_nyquist,
+mtf50, fwhm, edges; null sigmas for a band without usable edges), the
+top-level keys staying those of the first band measured.
 
 Several edges of one orientation combine by their median; edges whose sigma
 is more than 3 x 1.4826 x MAD (and 10 %) from the median are rejected as
@@ -179,8 +183,8 @@ Examples:
 			&cli.StringSliceFlag{Name: "edge", Usage: "edge window X0,Y0,X1,Y1 in pixels (repeatable)"},
 			&cli.StringFlag{Name: "point", Usage: "point target centre X,Y in pixels"},
 			&cli.IntFlag{Name: "point-window", Value: 21, Usage: "side of the point target's window in pixels (odd, 7-101)"},
-			&cli.BoolFlag{Name: "auto", Usage: "search the band for usable edges"},
-			&cli.IntFlag{Name: "band", Value: 1, Usage: "1-based band to measure"},
+			&cli.BoolFlag{Name: "auto", Usage: "search the band for usable edges; without --band every band (--json then lists them under \"bands\"; the top-level keys, --kernel, --csv and --png are the first measured band's)"},
+			&cli.IntFlag{Name: "band", Value: 1, Usage: "1-based band to measure", DefaultText: "1; every band with --auto"},
 			&cli.StringFlag{Name: "json", Usage: "write the summary to this JSON file"},
 			&cli.StringFlag{Name: "csv", Usage: "write ESF/LSF and MTF curves to PREFIX_edgeN_*.csv"},
 			&cli.StringFlag{Name: "kernel", Usage: "write the measured Gaussian kernel to this file (.tif/.tiff: GeoTIFF, else text)"},
@@ -241,6 +245,23 @@ type measureSummary struct {
 	Edges        []edgeSummary `json:"edges"`
 	Point        *pointSummary `json:"point,omitempty"`
 	Spec         string        `json:"psf_spec"`
+	// Bands: --auto without --band measures every band (the top-level
+	// keys are the first band's).
+	Bands []bandSummary `json:"bands,omitempty"`
+}
+
+// bandSummary is one band's measurement in psf measure --auto's "bands".
+type bandSummary struct {
+	Band       int           `json:"band"`
+	Sigma      *float64      `json:"sigma"`
+	SigmaX     *float64      `json:"sigma_x"`
+	SigmaY     *float64      `json:"sigma_y"`
+	MTFNyquist *float64      `json:"mtf_nyquist"`
+	MTF50      *float64      `json:"mtf50"`
+	FWHM       *float64      `json:"fwhm"`
+	Edges      []edgeSummary `json:"edges"`
+	Spec       string        `json:"psf_spec"`
+	sigmaFrom  string
 }
 
 func parseInts(flag, s string, n int) ([]int, error) {
@@ -288,6 +309,7 @@ type measureArgs struct {
 	pointWindow               int
 	auto                      bool
 	band                      int
+	allBands                  bool // --auto without --band: every band
 	json, csv, kernel, pngOut string
 }
 
@@ -310,14 +332,35 @@ func psfMeasure(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) error
 		return err
 	}
 	defer src.Close()
-	sum, err := measureScene(src, args)
+	sum, err := measureBands(src, args)
 	if err != nil {
 		return err
 	}
-	printSummary(stdout, &sum)
-	for _, e := range sum.Edges {
-		for _, w := range e.Warnings {
-			fmt.Fprintf(stderr, "limpid: warning: edge %v: %s\n", e.Window, w)
+	if len(sum.Bands) > 1 {
+		for _, b := range sum.Bands {
+			fmt.Fprintf(stdout, "band %d:\n", b.Band)
+			bs := measureSummary{Sigma: b.Sigma, SigmaX: b.SigmaX, SigmaY: b.SigmaY, MTFNyquist: b.MTFNyquist, MTF50: b.MTF50, Edges: b.Edges, Spec: b.Spec, SigmaFrom: b.sigmaFrom}
+			if b.Sigma == nil {
+				bs.SigmaFrom = "no usable edge"
+			}
+			printSummary(stdout, &bs)
+		}
+	} else {
+		printSummary(stdout, &sum)
+	}
+	bands := []bandSummary{{Edges: sum.Edges}}
+	if len(sum.Bands) > 1 {
+		bands = sum.Bands
+	}
+	for _, b := range bands {
+		where := ""
+		if b.Band > 0 {
+			where = fmt.Sprintf("band %d ", b.Band)
+		}
+		for _, e := range b.Edges {
+			for _, w := range e.Warnings {
+				fmt.Fprintf(stderr, "limpid: warning: %sedge %v: %s\n", where, e.Window, w)
+			}
 		}
 	}
 	if sum.Point != nil {
@@ -334,6 +377,7 @@ func parseMeasureArgs(c *cli.Context) (measureArgs, error) {
 	var a measureArgs
 	a.in = c.Args().Get(0)
 	a.auto, a.band, a.pointWindow = c.Bool("auto"), c.Int("band"), c.Int("point-window")
+	a.allBands = a.auto && !c.IsSet("band")
 	a.json, a.csv, a.kernel, a.pngOut = c.String("json"), c.String("csv"), c.String("kernel"), c.String("png")
 	if len(c.StringSlice("edge")) == 0 && c.String("point") == "" && !a.auto {
 		return a, usagef("psf measure needs --edge X0,Y0,X1,Y1, --point X,Y or --auto")
@@ -371,6 +415,40 @@ func parseMeasureArgs(c *cli.Context) (measureArgs, error) {
 		}
 	}
 	return a, nil
+}
+
+// measureBands is measureScene of --band, or with --auto and no --band of
+// every band: then Bands lists them and the top level is the first band
+// with a usable measurement (a band without usable edges is listed with
+// null sigmas).
+func measureBands(src raster.Reader, args measureArgs) (measureSummary, error) {
+	if !args.allBands {
+		return measureScene(src, args)
+	}
+	var top *measureSummary
+	var bands []bandSummary
+	for b := 1; b <= len(src.Meta().Bands); b++ {
+		a := args
+		a.band = b
+		sum, err := measureScene(src, a)
+		var u usageError
+		if errors.As(err, &u) && strings.Contains(err.Error(), "no usable") && len(src.Meta().Bands) > 1 {
+			bands = append(bands, bandSummary{Band: b, Edges: []edgeSummary{}})
+			continue
+		} else if err != nil {
+			return measureSummary{}, err
+		}
+		bands = append(bands, bandSummary{Band: b, Sigma: sum.Sigma, SigmaX: sum.SigmaX, SigmaY: sum.SigmaY,
+			MTFNyquist: sum.MTFNyquist, MTF50: sum.MTF50, FWHM: sum.FWHM, Edges: sum.Edges, Spec: sum.Spec, sigmaFrom: sum.SigmaFrom})
+		if top == nil {
+			top = &sum
+		}
+	}
+	if top == nil {
+		return measureSummary{}, usagef("--auto: no usable edge in any band of %s (straight, high-contrast, 2-10 degrees off the axes, uniform sides); give --edge or --point windows", args.in)
+	}
+	top.Bands = bands
+	return *top, nil
 }
 
 // measureScene measures the --edge windows, the --auto edges and the
@@ -625,13 +703,17 @@ const psfProductHelp = `
         parts (system MTF = product of the parts' MTFs; kernel = their convolution), e.g.
         'diffraction:wavelength=0.65,fnumber=8,pitch=10*detector:fill=0.9*gaussian:sigma=0.4'
       Kernels exclude the pixel aperture; model kernels hold >= 99.9 % of the weight.
-      auto[:band=N]: measured from INPUT itself (restore only): the edges limpid psf measure
-        --auto finds in band N (default: the first band restored), as gaussian:sx=..,sy=..`
+      A PSF per band: repeat --psf BAND=SPEC (BAND the 1-based input band, restored);
+        a --psf SPEC without a band covers the other bands. LIMPID_PSF: values separated by ';'.
+      auto: measured from INPUT itself (restore only), as gaussian:sx=..,sy=..: every restored
+        band from the edges limpid psf measure --auto finds in it (a band without usable edges
+        takes the median of the measured bands' sigmas; the report says so); BAND=auto one band;
+        auto:band=N measures band N for every band`
 
 // restorePSF reads restore's --psf: a psf spec, or auto[:band=N], which
 // measures the PSF from INPUT's edges (psf measure --auto) before restoring.
 func restorePSF(c *cli.Context) (*psf.Kernel, string, error) {
-	spec := strings.TrimSpace(c.String("psf"))
+	spec := psfPlain(c)
 	name, rest, _ := strings.Cut(spec, ":")
 	if name != "auto" {
 		k, err := psf.Parse(spec, psfEnv())

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"strings"
 
+	"limpid/psf"
 	"limpid/step"
 )
 
@@ -18,6 +19,21 @@ func psfRecordText(rep *step.Report) string {
 	if r.SHA256 == "" {
 		return fmt.Sprintf("%s (%d x %d kernel)", rep.PSF, rep.PSFSize[0], rep.PSFSize[1])
 	}
+	// A PSF per band: each band's record.
+	var per []string
+	for _, b := range rep.Bands {
+		if b.PSFUsed != nil {
+			per = append(per, fmt.Sprintf("band %d: %s", b.Band, kernelRecordText(*b.PSFUsed)))
+		}
+	}
+	if len(per) > 0 {
+		return strings.Join(per, "; ")
+	}
+	return kernelRecordText(r)
+}
+
+// kernelRecordText describes one PSF record.
+func kernelRecordText(r psf.Record) string {
 	var b strings.Builder
 	fmt.Fprintf(&b, "%s (%d x %d kernel", r.Spec, r.Width, r.Height)
 	if r.Model == "gaussian" {

@@ -39,7 +39,7 @@ func psfHelp() string {
 
 func restoreFlags() []cli.Flag {
 	return append([]cli.Flag{
-		&cli.StringFlag{Name: "psf", Usage: psfHelp()},
+		&cli.StringSliceFlag{Name: "psf", Usage: psfHelp()},
 		&cli.StringFlag{Name: "format", Value: "gtiff", Usage: "output container: gtiff (tiled, DEFLATE, predictor, BIGTIFF=IF_SAFER) or cog (Cloud Optimized GeoTIFF)"},
 		&cli.StringFlag{Name: "bands", Usage: "1-based bands to restore, in output order, e.g. 1,3,4 (default: all)"},
 		&cli.StringFlag{Name: "output-type", Value: "same", Usage: "same (round to nearest, clamp to the input type's range) or float32"},
@@ -74,6 +74,8 @@ Examples:
    gdal_translate -of GTiff in.jp2 /vsistdout/ | limpid restore --psf kernel:psf.txt - - > out.tif
    LIMPID_PSF=gaussian:sigma=0.6 LIMPID_WORKERS=2 limpid restore in.tif out.tif
    limpid restore --psf gaussian:sigma=0.7 --smooth 0.2 --stop change in.tif out.tif   (fixed, cheaper)
+   limpid restore --psf gaussian:sigma=0.7 --psf 4=gaussian:sigma=0.9 in.tif out.tif   (band 4 its own PSF)
+   LIMPID_PSF='1=gaussian:sigma=0.7;2=gaussian:sigma=0.8;3=gaussian:sigma=0.8;4=gaussian:sigma=0.9' limpid restore in.tif out.tif
 
 By default the smoothing and the stop are chosen per band from the scene (noise
 model + risk estimate; see the report's "choice"); --smooth EPS --stop change
@@ -83,7 +85,8 @@ Arrow IPC tile streams (README, "Arrow tile streams"; fixed settings, or a plan
 packed with tiles pack --plan; README, "Scale out", also for --plan and --shard):
    limpid tiles pack scene.tif - | limpid restore --input-format arrow --output-format arrow --psf gaussian:sigma=0.7 --smooth 0.2 --stop change - - | limpid tiles unpack - out.tif
 
-Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32).
+Every flag can also be set from LIMPID_<FLAG> (e.g. LIMPID_OUTPUT_TYPE=float32);
+LIMPID_PSF takes a list of --psf values separated by ";".
 
 ` + caution,
 		Flags:  append(append(restoreFlags(), streamFlags()...), planFlags()...),
@@ -143,10 +146,15 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	default:
 		return nil, usagef("--output-type %q: use same or float32", t)
 	}
-	if c.String("psf") == "" {
+	if len(psfArgs(c)) == 0 {
 		return nil, usagef("--psf is required, e.g. --psf gaussian:sigma=0.7")
 	}
-	k, psfSpec, err := restorePSF(c) // psf.go: model specs, and auto (measured from INPUT)
+	// psfband.go: a PSF per band (BAND=SPEC, auto); else psf.go: one spec
+	// or auto:band=N for every band.
+	k, psfSpec, bandK, bandSpec, perBand, err := bandPSFs(c)
+	if err == nil && !perBand {
+		k, psfSpec, err = restorePSF(c)
+	}
 	if err != nil {
 		return nil, err
 	}
@@ -155,6 +163,11 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 		Tolerance: c.Float64("tolerance"), Tile: c.Int("tile"),
 		Workers: c.Int("workers"), Seed: c.Uint64("seed"),
 		Choose: step.Choose(c.String("choose")),
+	}
+	for _, bk := range bandK {
+		if bk != nil {
+			cfg.BandPSF, cfg.BandPSFSpec = bandK, bandSpec
+		}
 	}
 	if err := parseRegularisation(c, &cfg); err != nil {
 		return nil, err
@@ -326,7 +339,15 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 	}
 	// Every output path before any work (--psf auto measures INPUT in
 	// parseJob).
-	ins := append([]namedPath{{"INPUT", c.Args().Get(0)}}, psfInputs(c.String("psf"))...)
+	ins := []namedPath{{"INPUT", c.Args().Get(0)}}
+	for _, v := range psfArgs(c) {
+		if b, spec, ok := strings.Cut(v, "="); ok {
+			if _, err := strconv.Atoi(strings.TrimSpace(b)); err == nil {
+				v = strings.TrimSpace(spec)
+			}
+		}
+		ins = append(ins, psfInputs(v)...)
+	}
 	outs := []namedPath{{"OUTPUT", c.Args().Get(1)}, {"--report", c.String("report")}, {"--uncertainty", c.String("uncertainty")},
 		{"--quicklook", c.String("quicklook")}, {"--report-html", c.String("report-html")}}
 	if err := checkOutputs(stdout, stderr, ins, outs); err != nil {
@@ -352,6 +373,9 @@ func restoreAction(c *cli.Context, stdin io.Reader, stdout, stderr io.Writer) er
 		}
 	}
 	if c.String("input-format") == "arrow" || c.String("output-format") == "arrow" {
+		if j.cfg.BandPSF != nil {
+			return usagef("--psf: a PSF per band is not available with tile streams (--input-format/--output-format arrow); restore the raster")
+		}
 		return runStreamRestore(c.Context, c, j, stdin, stdout, stderr)
 	}
 	_, err = runRestore(c.Context, j, stdin, stdout, stderr)

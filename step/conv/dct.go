@@ -160,3 +160,29 @@ func Eigenvalues(k *psf.Kernel, w, h int) ([]float64, bool) {
 	}
 	return lam, true
 }
+
+// RiskWeights are the DCT-domain weights of limpid's risk estimate for one
+// tile size (step's auto.go): with h the PSF's DCT eigenvalues (Eigenvalues)
+// and lambda a regularisation, Q2 = h^2 / (h^2 + lambda), G = h / (h^2 +
+// lambda) and K = 1 / (h^2 + lambda); Radius is the PSF's.
+type RiskWeights struct {
+	Q2, G, K []float64
+	Radius   int
+}
+
+// NewRiskWeights is RiskWeights for kernel k on w x h tiles; ok is false
+// when the DCT does not diagonalise k (Eigenvalues).
+func NewRiskWeights(k *psf.Kernel, w, h int, lambda float64) (*RiskWeights, bool) {
+	lam, ok := Eigenvalues(k, w, h)
+	if !ok {
+		return nil, false
+	}
+	rw := &RiskWeights{Q2: make([]float64, w*h), G: make([]float64, w*h), K: make([]float64, w*h), Radius: max(k.Rx(), k.Ry())}
+	for i, l := range lam {
+		den := l*l + lambda
+		rw.Q2[i] = l * l / den
+		rw.G[i] = l / den
+		rw.K[i] = 1 / den
+	}
+	return rw, true
+}

@@ -50,28 +50,31 @@ func (f *Float) UnmarshalJSON(b []byte) error {
 // Settings are the restoration settings a plan fixes (step.Config without
 // the per-run fields: workers, progress, sinks).
 type Settings struct {
-	Method         step.Method  `json:"method"`
-	PSFSpec        string       `json:"psf"`
-	PSF            *psf.Kernel  `json:"psf_kernel"`
-	Smooth         float64      `json:"smooth"`
-	SmoothAuto     bool         `json:"smooth_auto"`
-	Stop           step.Stop    `json:"stop"`
-	Choose         step.Choose  `json:"choose"`
-	Iterations     int          `json:"iterations"`
-	Tolerance      Float        `json:"tolerance"`
-	Background     float64      `json:"background"`
-	BackgroundAuto bool         `json:"background_auto"`
-	Tile           int          `json:"tile"`
-	Overlap        int          `json:"overlap"`
-	RandomKey      uint64       `json:"random_stream_key"`
-	Saturated      Float        `json:"saturated"`
-	HasSaturated   bool         `json:"has_saturated"`
-	Noise          *noise.Model `json:"noise,omitempty"`
+	Method  step.Method `json:"method"`
+	PSFSpec string      `json:"psf"`
+	PSF     *psf.Kernel `json:"psf_kernel"`
+	// BandPSF: a PSF per output band when they differ (null: PSF).
+	BandPSF        []*psf.Kernel `json:"band_psf_kernels,omitempty"`
+	BandPSFSpec    []string      `json:"band_psfs,omitempty"`
+	Smooth         float64       `json:"smooth"`
+	SmoothAuto     bool          `json:"smooth_auto"`
+	Stop           step.Stop     `json:"stop"`
+	Choose         step.Choose   `json:"choose"`
+	Iterations     int           `json:"iterations"`
+	Tolerance      Float         `json:"tolerance"`
+	Background     float64       `json:"background"`
+	BackgroundAuto bool          `json:"background_auto"`
+	Tile           int           `json:"tile"`
+	Overlap        int           `json:"overlap"`
+	RandomKey      uint64        `json:"random_stream_key"`
+	Saturated      Float         `json:"saturated"`
+	HasSaturated   bool          `json:"has_saturated"`
+	Noise          *noise.Model  `json:"noise,omitempty"`
 }
 
 // SettingsOf copies cfg's plan settings (cfg resolved).
 func SettingsOf(cfg step.Config) Settings {
-	return Settings{Method: cfg.Method, PSFSpec: cfg.PSFSpec, PSF: cfg.PSF, Smooth: cfg.Smooth, SmoothAuto: cfg.SmoothAuto,
+	return Settings{Method: cfg.Method, PSFSpec: cfg.PSFSpec, PSF: cfg.PSF, BandPSF: cfg.BandPSF, BandPSFSpec: cfg.BandPSFSpec, Smooth: cfg.Smooth, SmoothAuto: cfg.SmoothAuto,
 		Stop: cfg.Stop, Choose: cfg.Choose, Iterations: cfg.Iterations, Tolerance: Float(cfg.Tolerance),
 		Background: cfg.Background, BackgroundAuto: cfg.BackgroundAuto, Tile: cfg.Tile, Overlap: cfg.Overlap,
 		RandomKey: cfg.Seed, Saturated: Float(cfg.Saturated), HasSaturated: cfg.HasSaturated, Noise: cfg.Noise}
@@ -80,7 +83,7 @@ func SettingsOf(cfg step.Config) Settings {
 // Config is the step.Config the settings describe, with the decisions.
 func (p *File) Config(workers int) step.Config {
 	s := p.Settings
-	return step.Config{Method: s.Method, PSFSpec: s.PSFSpec, PSF: s.PSF, Smooth: s.Smooth, SmoothAuto: s.SmoothAuto,
+	return step.Config{Method: s.Method, PSFSpec: s.PSFSpec, PSF: s.PSF, BandPSF: s.BandPSF, BandPSFSpec: s.BandPSFSpec, Smooth: s.Smooth, SmoothAuto: s.SmoothAuto,
 		Stop: s.Stop, Choose: s.Choose, Iterations: s.Iterations, Tolerance: float64(s.Tolerance),
 		Background: s.Background, BackgroundAuto: s.BackgroundAuto, Tile: s.Tile, Overlap: s.Overlap,
 		Seed: s.RandomKey, Saturated: float64(s.Saturated), HasSaturated: s.HasSaturated, Noise: s.Noise,
@@ -212,17 +215,24 @@ func (p *File) Validate() error {
 		return fmt.Errorf("%w: format %q version %d; this limpid reads %q version %d (make the plan again)", ErrPlan, p.Format, p.Version, Format, Version)
 	}
 	bad := func(what string) error { return fmt.Errorf("%w: %s (make the plan again)", ErrPlan, what) }
-	k := p.Settings.PSF
-	if k == nil {
+	if p.Settings.PSF == nil {
 		return bad("no PSF kernel")
 	}
-	if _, err := psf.NewKernel(k.W, k.H, k.Data); err != nil {
-		return bad(err.Error())
-	}
-	if (k.X != nil && len(k.X) != k.W) || (k.Y != nil && len(k.Y) != k.H) || (k.X == nil) != (k.Y == nil) {
-		return bad("the PSF kernel's factors do not match its size")
+	for i, k := range append([]*psf.Kernel{p.Settings.PSF}, p.Settings.BandPSF...) {
+		if k == nil && i > 0 {
+			continue
+		}
+		if _, err := psf.NewKernel(k.W, k.H, k.Data); err != nil {
+			return bad(err.Error())
+		}
+		if (k.X != nil && len(k.X) != k.W) || (k.Y != nil && len(k.Y) != k.H) || (k.X == nil) != (k.Y == nil) {
+			return bad("the PSF kernel's factors do not match its size")
+		}
 	}
 	nb := len(p.Bands)
+	if p.Settings.BandPSF != nil && len(p.Settings.BandPSF) != nb {
+		return bad(fmt.Sprintf("%d band PSFs for %d bands", len(p.Settings.BandPSF), nb))
+	}
 	if nb == 0 || len(p.Decided) != nb || p.Report == nil || len(p.Report.Bands) != nb || len(p.Output.Bands) != nb {
 		return bad(fmt.Sprintf("%d bands with %d decisions, %d output bands", nb, len(p.Decided), len(p.Output.Bands)))
 	}

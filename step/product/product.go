@@ -145,6 +145,7 @@ func Metadata(rep *step.Report) Record {
 			{"LIMPID_BACKGROUND", strconv.FormatFloat(b.Background, 'g', -1, 64)},
 			{"LIMPID_ITERATIONS_MAX", strconv.Itoa(b.MaxIterations)},
 		}
+		items = append(items, bandPSFItems(&b)...)
 		if a := b.Applied; a != nil {
 			js, _ := json.Marshal(a)
 			items = append(items, Item{"LIMPID_SMOOTH", strconv.FormatFloat(a.Smooth, 'g', -1, 64)},
@@ -180,6 +181,7 @@ func UncertaintyMetadata(rep *step.Report) Record {
 		}
 		for _, b := range rep.Bands {
 			items := []Item{{"LIMPID_MEAN_NOISE_STANDARD_ERROR", fmt.Sprintf("%.6g", b.NoiseSE)}}
+			items = append(items, bandPSFItems(&b)...)
 			if b.Noise != nil {
 				items = append(items, Item{"LIMPID_NOISE_MODEL", fmt.Sprintf("var = %.6g * DN + %.6g (%s)", b.Noise.A, b.Noise.B, b.Noise.Source)})
 			}
@@ -216,6 +218,14 @@ func UncertaintyMetadata(rep *step.Report) Record {
 // psfItems are the kernel's items: LIMPID_PSF_USED (the psf.Record as
 // JSON) and LIMPID_PSF_SHA256 (the weights' hash, psf.WeightsSHA256); none
 // for a report without a record (a stream written before records were).
+// bandPSFItems records a band's own PSF (when the bands' PSFs differ).
+func bandPSFItems(b *step.BandReport) []Item {
+	if b.PSFUsed == nil {
+		return nil
+	}
+	return append([]Item{{"LIMPID_PSF", b.PSF}}, psfItems(*b.PSFUsed)...)
+}
+
 func psfItems(r psf.Record) []Item {
 	if r.SHA256 == "" {
 		return nil

@@ -117,6 +117,9 @@ type BandReport struct {
 	FluxAfter      float64 `json:"flux_after"`
 	ValidPixels    int64   `json:"valid_pixels"`
 	MaxIterations  int     `json:"max_iterations"`
+	// PSF and PSFUsed: the band's own PSF, when the bands' PSFs differ.
+	PSF     string      `json:"psf,omitempty"`
+	PSFUsed *psf.Record `json:"psf_used,omitempty"`
 	// Noise is the noise model used (estimated or given), when the stop,
 	// the smoothing rule or the noise error map needed one.
 	Noise *noise.Model `json:"noise,omitempty"`
