@@ -46,7 +46,7 @@ and restored against the reference and the mean noise error per band.
 			&cli.StringFlag{Name: "out", Value: "limpid-demo", Usage: "output directory (created)"},
 			&cli.IntFlag{Name: "size", Value: 768, Usage: "scene width and height in pixels (64-4096)"},
 			&cli.IntFlag{Name: "workers", Value: 0, Usage: "parallel tile workers (0 = number of CPUs)"},
-			&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, Usage: "also restore with the particle method at K particles per pixel and print it beside grid (0 = grid only)"},
+			&cli.IntFlag{Name: "particles-per-pixel", Value: step.DefaultPerPixel, Usage: "also restore the photon-limited harbour scene with the grid and the particle method (K particles per pixel) and print them side by side (0 = skip it)"},
 		},
 		Action: func(c *cli.Context) error {
 			n := c.Int("size")
@@ -168,7 +168,7 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 	if err != nil {
 		return err
 	}
-	part, err := demoParticle(c, dir, obsPath, cfg, c.Int("particles-per-pixel"), stdout, stderr)
+	part, err := demoParticle(c, dir, n, workers, c.Int("particles-per-pixel"), stdout, stderr)
 	if err != nil {
 		return err
 	}
@@ -184,15 +184,14 @@ func runDemo(c *cli.Context, dir string, n, workers int, stdout, stderr io.Write
 				scene.ValleyBands[i], b.Noise.A, b.Noise.B, b.Choice.Smooth, b.Choice.Iterations, b.NoiseSE)
 		}
 	}
+	fmt.Fprintf(stdout, "%-6s %14s %14s %13s %13s\n", "band", "PSNR observed", "PSNR restored", "SSIM observed", "SSIM restored")
+	for b, name := range scene.ValleyBands {
+		fmt.Fprintf(stdout, "%-6s %11.2f dB %11.2f dB %13.4f %13.4f\n", name,
+			assess.PSNR(ref[b], obs[b], valid, demoDataMax), assess.PSNR(ref[b], res[b], valid, demoDataMax),
+			assess.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), assess.SSIM(ref[b], res[b], valid, n, n, demoDataMax))
+	}
 	if part != nil {
-		part.printSideBySide(stdout, ref, obs, res, valid, n)
-	} else {
-		fmt.Fprintf(stdout, "%-6s %14s %14s %13s %13s\n", "band", "PSNR observed", "PSNR restored", "SSIM observed", "SSIM restored")
-		for b, name := range scene.ValleyBands {
-			fmt.Fprintf(stdout, "%-6s %11.2f dB %11.2f dB %13.4f %13.4f\n", name,
-				assess.PSNR(ref[b], obs[b], valid, demoDataMax), assess.PSNR(ref[b], res[b], valid, demoDataMax),
-				assess.SSIM(ref[b], obs[b], valid, n, n, demoDataMax), assess.SSIM(ref[b], res[b], valid, n, n, demoDataMax))
-		}
+		part.printSideBySide(stdout)
 	}
 	ql := filepath.Join(dir, "quicklook.png")
 	if err := quicklook(ql, obsPath, resPath, uncPath, len(obs)); err != nil {
