@@ -39,11 +39,11 @@ endef
 
 .PHONY: deps deps-build deps-test deps-ref demo test test-long bench build clean
 
-# go test's -timeout is per package (per test binary). The default run takes
-# about 1.5 minutes per package with -race on an idle 2-core machine
-# (DEVELOPERS.md, "Testing"); 5 minutes leaves room for a loaded one and
-# still stops a hung test long before go test's own 10-minute default.
-TEST_TIMEOUT ?= 5m
+# go test's -timeout is per package (per test binary). The slowest packages
+# (step, cmd/limpid) take about 2-4 minutes each with -race on a 2-core
+# machine (DEVELOPERS.md, "Testing"); 8 minutes leaves room for a loaded one
+# and still stops a hung test.
+TEST_TIMEOUT ?= 8m
 # make test-long adds the measurement-grade cases (LIMPID_LONG=1) and keeps
 # -race: some paths run only there (the automatic bandwidth through the
 # particle CLI, worker byte identity with the automatic choice), and the

@@ -41,15 +41,11 @@ func TestBandPSFMatchesBandAlone(t *testing.T) {
 	}{
 		{"fixed", func(*Config) {}},
 		{"noise map", func(c *Config) { c.Uncertainty = raster.NewMem(src.M) }},
-		{"auto", func(c *Config) { c.SmoothAuto, c.Stop, c.Iterations, c.Tile = true, StopAuto, 0, 32 }},
-		{"auto one tile", func(c *Config) { c.SmoothAuto, c.Stop, c.Iterations = true, StopAuto, 0 }},
+		{"auto", func(c *Config) { c.SmoothAuto, c.Stop, c.Iterations, c.Tile = true, StopAuto, 60, 32 }},
+		{"auto one tile", func(c *Config) { c.SmoothAuto, c.Stop, c.Iterations = true, StopAuto, 60 }},
 		{"discrepancy", func(c *Config) { c.Stop = StopDiscrepancy }},
 		{"particle", func(c *Config) {
 			c.Method, c.Tile, c.Smooth, c.Iterations = MethodParticle, 32, 0.5, 12
-			c.Particle = ParticleConfig{PerPixel: 4, ESSThreshold: 0.5, BurnIn: 6, Batches: 3}
-		}},
-		{"particle auto", func(c *Config) {
-			c.Method, c.Tile, c.SmoothAuto, c.Iterations = MethodParticle, 32, true, 12
 			c.Particle = ParticleConfig{PerPixel: 4, ESSThreshold: 0.5, BurnIn: 6, Batches: 3}
 		}},
 	} {
