@@ -159,20 +159,13 @@ func checkUncertaintyRaster(t *testing.T, out, u, rep string) {
 		t.Fatal(err)
 	}
 	for bi, pl := range planes {
-		var s float64
-		var nv int
-		for _, v := range pl {
-			if !math.IsNaN(float64(v)) {
-				s += float64(v)
-				nv++
-			}
-		}
+		m := nanMean(pl)
 		// The report's mean is over the same valid pixels in float64;
 		// the raster holds float32 values (relative rounding 6e-8
 		// each): relative 1e-6.
 		const meanTol = 1e-6
 		pb := r.Restoration.Particle.Bands[bi]
-		if m := s / float64(nv); math.Abs(m-pb.MeanTotal) > meanTol*m || !(m > 0) {
+		if math.Abs(m-pb.MeanTotal) > meanTol*m || !(m > 0) {
 			t.Errorf("band %d: raster mean %g, report's mean total %g", bi+1, m, pb.MeanTotal)
 		}
 		if !(pb.MeanNoise > 0 && pb.MeanSE > 0) || pb.MeanTotal < pb.MeanNoise || pb.MeanTotal < pb.MeanSE {
@@ -227,16 +220,22 @@ func TestGridNoiseMapRaster(t *testing.T) {
 		t.Fatalf("report: %s", rb)
 	}
 	for bi, pl := range planes {
-		var s float64
-		var nv int
-		for _, v := range pl {
-			if !math.IsNaN(float64(v)) {
-				s += float64(v)
-				nv++
-			}
-		}
-		if m := s / float64(nv); math.Abs(m-r.Restoration.Bands[bi].NoiseSE) > meanTol*m || !(m > 0) {
+		m := nanMean(pl)
+		if math.Abs(m-r.Restoration.Bands[bi].NoiseSE) > meanTol*m || !(m > 0) {
 			t.Errorf("band %d: map mean %g DN, report %g", bi+1, m, r.Restoration.Bands[bi].NoiseSE)
 		}
 	}
+}
+
+// nanMean is the mean of the plane's non-NaN values (float64 sums).
+func nanMean(pl []float32) float64 {
+	var s float64
+	var nv int
+	for _, v := range pl {
+		if !math.IsNaN(float64(v)) {
+			s += float64(v)
+			nv++
+		}
+	}
+	return s / float64(nv)
 }
