@@ -1,6 +1,7 @@
 package step
 
 import (
+	"limpid/step/internal/level"
 	"sort"
 
 	"limpid/step/noise"
@@ -25,7 +26,7 @@ func applied(s Solver, b int, smoothAuto, stopAuto bool, nm *noise.Model) *setti
 		sort.Slice(tiles, func(i, j int) bool {
 			return tiles[i].Row < tiles[j].Row || tiles[i].Row == tiles[j].Row && tiles[i].Col < tiles[j].Col
 		})
-		a.Smooth, a.Iterations, a.Tiles = lowMedian(es), int(weightedMedian(ks)), tiles
+		a.Smooth, a.Iterations, a.Tiles = level.LowMedian(es), int(level.WeightedMedian(ks)), tiles
 	} else if ok {
 		a = *applied(bs.byBand[b], b, false, false, nil)
 	}

@@ -402,9 +402,8 @@ func (c *chooser) summarise(band int) Choice {
 		ch.Rule = "no tile with signal: the given smoothing and cap"
 		return ch
 	}
-	// The two risk estimates weight errors differently (Q^2 against H^T H),
-	// so they are not summed together: tiles on the DCT estimate decide
-	// when there are any.
+	// The two risk estimates weight errors differently (Q^2 against H^T H):
+	// not summed together, tiles on the DCT estimate decide when any.
 	var dctKeys []TileKey
 	for _, k := range keys {
 		if c.runs[k][0].Mode == RiskPrediction {
@@ -419,54 +418,9 @@ func (c *chooser) summarise(band int) Choice {
 	ch.TilesUsed = len(keys)
 	best := -1
 	for i, s := range c.smooths {
-		cr := CandidateReport{Smooth: s}
-		var ks []weighted
-		minLen := math.MaxInt
-		for _, k := range keys {
-			run := c.runs[k][i]
-			cr.Risk += run.BestR
-			ks = append(ks, weighted{V: float64(run.BestK), W: float64(c.valid[k])})
-			minLen = min(minLen, len(run.Risk))
-		}
-		if math.IsInf(cr.Risk, 0) || math.IsNaN(cr.Risk) {
-			// Skipped on some tile (its risk rose at a smaller
-			// bandwidth): not a candidate for the band.
-			cr.Skipped, cr.Risk, cr.BestIterations = true, 0, 0
-			ch.Candidates = append(ch.Candidates, cr)
-			continue
-		}
-		cr.BestIterations, cr.StopFrom = int(weightedMedian(ks)), StopFromMedian
-		allFull := true
-		for _, k := range keys {
-			allFull = allFull && len(c.runs[k][i].Risk) == c.limit()
-		}
-		bestSum, bestIt := math.Inf(1), 0
-		for it := 1; it <= minLen; it++ {
-			var sum float64
-			for _, k := range keys {
-				sum += c.runs[k][i].Risk[it-1]
-			}
-			if !math.IsNaN(sum) && !math.IsInf(sum, 0) {
-				cr.Curve = append(cr.Curve, [2]float64{float64(it), sum})
-				if sum < bestSum {
-					bestSum, bestIt = sum, it
-				}
-			}
-		}
-		// The summed curve decides where every tile's run covers its
-		// minimum and RiskPatience iterations beyond (or ran to the limit):
-		// one stop for the band, the minimum of the band's total risk.
-		if bestIt > 0 && (bestIt+RiskPatience <= minLen || allFull) {
-			cr.BestIterations, cr.StopFrom = bestIt, StopFromSummed
-		}
-		for _, k := range keys {
-			run := c.runs[k][i]
-			if len(run.Risk) == c.limit() && run.BestK == c.limit() {
-				cr.CapBound = true
-			}
-		}
+		cr := c.candidate(i, s, keys)
 		ch.Candidates = append(ch.Candidates, cr)
-		if best < 0 || cr.Risk < ch.Candidates[best].Risk {
+		if !cr.Skipped && (best < 0 || cr.Risk < ch.Candidates[best].Risk) {
 			best = i
 		}
 	}
@@ -484,10 +438,57 @@ func (c *chooser) summarise(band int) Choice {
 	return ch
 }
 
-type weighted = level.Weighted
+// candidate summarises bandwidth i (s) over the tiles keys: risk, stop, cap.
+func (c *chooser) candidate(i int, s float64, keys []TileKey) CandidateReport {
+	cr := CandidateReport{Smooth: s}
+	var ks []weighted
+	minLen := math.MaxInt
+	for _, k := range keys {
+		run := c.runs[k][i]
+		cr.Risk += run.BestR
+		ks = append(ks, weighted{V: float64(run.BestK), W: float64(c.valid[k])})
+		minLen = min(minLen, len(run.Risk))
+	}
+	if math.IsInf(cr.Risk, 0) || math.IsNaN(cr.Risk) {
+		// Skipped on some tile (its risk rose at a smaller
+		// bandwidth): not a candidate for the band.
+		cr.Skipped, cr.Risk, cr.BestIterations = true, 0, 0
+		return cr
+	}
+	cr.BestIterations, cr.StopFrom = int(level.WeightedMedian(ks)), StopFromMedian
+	allFull := true
+	for _, k := range keys {
+		allFull = allFull && len(c.runs[k][i].Risk) == c.limit()
+	}
+	bestSum, bestIt := math.Inf(1), 0
+	for it := 1; it <= minLen; it++ {
+		var sum float64
+		for _, k := range keys {
+			sum += c.runs[k][i].Risk[it-1]
+		}
+		if !math.IsNaN(sum) && !math.IsInf(sum, 0) {
+			cr.Curve = append(cr.Curve, [2]float64{float64(it), sum})
+			if sum < bestSum {
+				bestSum, bestIt = sum, it
+			}
+		}
+	}
+	// The summed curve decides where every tile's run covers its
+	// minimum and RiskPatience iterations beyond (or ran to the limit):
+	// one stop for the band, the minimum of the band's total risk.
+	if bestIt > 0 && (bestIt+RiskPatience <= minLen || allFull) {
+		cr.BestIterations, cr.StopFrom = bestIt, StopFromSummed
+	}
+	for _, k := range keys {
+		run := c.runs[k][i]
+		if len(run.Risk) == c.limit() && run.BestK == c.limit() {
+			cr.CapBound = true
+		}
+	}
+	return cr
+}
 
-func weightedMedian(x []weighted) float64 { return level.WeightedMedian(x) }
-func lowMedian(v []float64) float64       { return level.LowMedian(v) }
+type weighted = level.Weighted
 
 // tileMap returns the per-tile choices of a band, smoothed by a 3 x 3
 // median over the tile grid (bandwidth and log iterations separately), so
@@ -521,8 +522,8 @@ func (c *chooser) tileMap(band int, fallback Choice) map[[2]int]TileChoice {
 			}
 			tc := TileChoice{Col: col, Row: row, Smooth: fallback.Smooth, Iterations: fallback.Iterations}
 			if len(es) > 0 {
-				tc.Smooth = lowMedian(es)
-				tc.Iterations = max(1, int(math.Round(math.Exp(lowMedian(ks)))))
+				tc.Smooth = level.LowMedian(es)
+				tc.Iterations = max(1, int(math.Round(math.Exp(level.LowMedian(ks)))))
 			}
 			out[[2]int{col, row}] = tc
 		}
@@ -845,7 +846,7 @@ func (rg *regulariser) perTile(c *chooser, b int, ch *Choice) {
 			es = append(es, tc.Smooth)
 		}
 	}
-	ch.Smooth, ch.Iterations = lowMedian(es), int(weightedMedian(ks))
+	ch.Smooth, ch.Iterations = level.LowMedian(es), int(level.WeightedMedian(ks))
 	ch.Rule += ", per tile, 3x3 median-smoothed map"
 }
 
