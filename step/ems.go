@@ -3,8 +3,8 @@ package step
 import (
 	"context"
 	"limpid/step/conv"
+	"limpid/step/internal/plane"
 	"limpid/step/noise"
-	"math"
 )
 
 // Problem is one tile to restore: the observed plane D (W x H, row-major),
@@ -155,16 +155,7 @@ func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 		f[i] = c
 	}
 	g.H.Adjoint(&ws.conv, ws.s, p.Mask, p.W, p.H)
-	target := -1.0
-	if g.Noise != nil {
-		var v float64
-		for i, m := range p.Mask[:n] {
-			if m != 0 {
-				v += float64(g.Noise.Variance(p.D[i]))
-			}
-		}
-		target = g.Tau * g.Tau * v
-	}
+	target := g.discrepancyTarget(p)
 	var res Result
 	for k := 0; k < g.Iterations; k++ {
 		if err := ctx.Err(); err != nil {
@@ -227,16 +218,7 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 	if g.S != nil {
 		g.S.Apply(&ws.conv, fn, e, w, h)
 	}
-	var num, den float64
-	fn = fn[:n]
-	for i := range fn {
-		num += math.Abs(float64(fn[i] - ff[i]))
-		den += math.Abs(float64(ff[i]))
-	}
-	if den == 0 {
-		return 0, rss
-	}
-	return num / den, rss
+	return plane.RelChange(fn[:n], ff), rss
 }
 
 // dataRatio sets q = w d / (Hf + b) where the mask is set and the
