@@ -12,6 +12,8 @@ import (
 	"limpid/raster"
 	"limpid/step/conv"
 	"limpid/step/internal/level"
+	"limpid/step/internal/records"
+	"limpid/step/internal/sample"
 	"limpid/step/noise"
 )
 
@@ -19,28 +21,26 @@ import (
 // at: an even 4 x 4 grid of the tile plan (all tiles of smaller scenes).
 const chooseMaxTiles = 4
 
+// ChoiceBudget is the default pixel budget of a global choice per band: the
+// sample tiles' risk runs look at windows of at most this many pixels in
+// all (Config.ChoiceBudget). Measured in DEVELOPERS.md, "Automatic
+// regularisation" (the cost of the choice).
+const ChoiceBudget = 1 << 20
+
+// minChoiceWindow is the smallest side of a sample window: below it the
+// window's mirrored edges (a PSF radius times the square root of the
+// iterations) would weigh too much in the risk (common practice, no
+// source; the budget keeps windows above it for up to 64 sample tiles).
+const minChoiceWindow = 128
+
 // noiseSamplesPerBand bounds the noise fit's memory (12 bytes a sample).
 const noiseSamplesPerBand = 1 << 20
 
 // sampleTiles returns which tiles of the plan the global passes use.
 func sampleTiles(p Plan) map[[2]int]bool {
-	pick := func(n int) []int {
-		if n <= chooseMaxTiles {
-			out := make([]int, n)
-			for i := range out {
-				out[i] = i
-			}
-			return out
-		}
-		var out []int
-		for i := 0; i < chooseMaxTiles; i++ {
-			out = append(out, int((float64(i)+0.5)*float64(n)/chooseMaxTiles))
-		}
-		return out
-	}
 	m := map[[2]int]bool{}
-	for _, r := range pick(len(p.Rows)) {
-		for _, c := range pick(len(p.Cols)) {
+	for _, r := range sample.Grid(len(p.Rows), chooseMaxTiles) {
+		for _, c := range sample.Grid(len(p.Cols), chooseMaxTiles) {
 			m[[2]int{c, r}] = true
 		}
 	}
@@ -203,9 +203,14 @@ type chooser struct {
 	// candidate whose summed risk rises (one tile's rise must not veto a
 	// bandwidth the sum prefers). active is the pass's candidate.
 	exhaustive bool
-	active     int
-	bandDone   []bool
-	kept       []*keptTile // per band
+	// window is the largest side of a sample window of an exhaustive
+	// choice (the pixel budget over the sample tiles, rounded down to a
+	// 2,3,5-smooth size so that the risk's DCT is fast); 0: the whole
+	// in-scene part of the tile.
+	window   int
+	active   int
+	bandDone []bool
+	kept     []*keptTile // per band
 
 	mu      sync.Mutex
 	weights map[weightsKey]*riskWeights
@@ -352,12 +357,17 @@ func (c *chooser) solveAll(ctx context.Context, ws *Workspace, k TileKey, cp *Pr
 // over such a tile weighs the border strips several times and, measured on
 // smooth relief, chose 8 iterations where the interior's optimum was 3.
 // The choice therefore sees each scene pixel once; the final pass restores
-// the full tile with the chosen settings.
+// the full tile with the chosen settings. An exhaustive choice then keeps
+// a centred window of at most c.window pixels a side (the pixel budget).
 func (c *chooser) crop(aw *autoWork, p *Problem) *Problem {
 	k := p.Key
 	ix, iy := c.plan.InSpan(c.plan.Cols, k.Col), c.plan.InSpan(c.plan.Rows, k.Row)
 	x0, y0 := max(0, -ix.Start), max(0, -iy.Start)
 	x1, y1 := min(p.W, c.plan.W-ix.Start), min(p.H, c.plan.H-iy.Start)
+	if c.exhaustive {
+		x0, x1 = sample.Window(x0, x1, c.window)
+		y0, y1 = sample.Window(y0, y1, c.window)
+	}
 	if x0 == 0 && y0 == 0 && x1 == p.W && y1 == p.H {
 		return p
 	}
@@ -416,6 +426,9 @@ func (c *chooser) summarise(band int) Choice {
 		keys = dctKeys
 	}
 	ch.TilesUsed = len(keys)
+	for _, k := range keys {
+		ch.PixelsUsed += c.valid[k]
+	}
 	best := -1
 	for i, s := range c.smooths {
 		cr := c.candidate(i, s, keys)
@@ -508,27 +521,7 @@ func (c *chooser) tileMap(band int, fallback Choice) map[[2]int]TileChoice {
 		}
 		raw[[2]int{k.Col, k.Row}] = TileChoice{Col: k.Col, Row: k.Row, Smooth: runs[bi].Smooth, Iterations: max(1, runs[bi].BestK)}
 	}
-	out := map[[2]int]TileChoice{}
-	for row := 0; row < nr; row++ {
-		for col := 0; col < nc; col++ {
-			var es, ks []float64
-			for dy := -1; dy <= 1; dy++ {
-				for dx := -1; dx <= 1; dx++ {
-					if t, ok := raw[[2]int{col + dx, row + dy}]; ok {
-						es = append(es, t.Smooth)
-						ks = append(ks, math.Log(float64(t.Iterations)))
-					}
-				}
-			}
-			tc := TileChoice{Col: col, Row: row, Smooth: fallback.Smooth, Iterations: fallback.Iterations}
-			if len(es) > 0 {
-				tc.Smooth = level.LowMedian(es)
-				tc.Iterations = max(1, int(math.Round(math.Exp(level.LowMedian(ks)))))
-			}
-			out[[2]int{col, row}] = tc
-		}
-	}
-	return out
+	return records.SmoothTileMap(raw, nc, nr, fallback.Smooth, fallback.Iterations)
 }
 
 // newGrid builds a plain GridEMS for (eps, k).
@@ -697,6 +690,13 @@ func (rg *regulariser) newChooser() *chooser {
 	if cfg.Choose != ChoosePerTile {
 		c.tiles = sampleTiles(rg.plan)
 		c.exhaustive = len(c.tiles) > 1
+		if c.exhaustive {
+			budget := cfg.ChoiceBudget
+			if budget == 0 {
+				budget = ChoiceBudget
+			}
+			c.window = sample.Side(budget, len(c.tiles), minChoiceWindow)
+		}
 	}
 	// The kept iterate has no noise map: with one, the final pass runs.
 	c.keep = rg.plan.NTiles() == 1 && cfg.Stop == StopAuto && !rg.particle && cfg.Uncertainty == nil

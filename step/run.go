@@ -86,6 +86,10 @@ type Config struct {
 	IterationLimit int
 	// Choose is ChooseGlobal (the zero value) or ChoosePerTile.
 	Choose Choose
+	// ChoiceBudget bounds the pixels per band a global choice over several
+	// sample tiles runs its risk on (0: the default ChoiceBudget; negative:
+	// the whole in-scene part of every sample tile).
+	ChoiceBudget int
 	// Noise, when set, replaces the estimated per-band noise model.
 	Noise *noise.Model
 	// Progress, when set, is called after each strip with tiles done/total.

@@ -48,15 +48,19 @@ func terrainAt(u, v float64) float64 {
 	return 1600 + 500*math.Sin(u/17)*math.Cos(v/23) + 300*math.Sin((u+v)/9) + 150*math.Cos(u/5.5-v/13)
 }
 
-// Scenes returns the 36 scenes at n x n pixels, named CONTENT-sSIGMA-nLEVEL,
+// Scenes returns the 36 scenes at n x n pixels (the valley contents are the
+// same for every n <= 320), named CONTENT-sSIGMA-nLEVEL,
 // rounded and clipped to 12 bits. The random stream is fixed, so the scenes
 // are the same on every run.
 func Scenes(n int) ([]Scene, error) {
-	valley, _ := scenes.ValleyReference(700, 700)
+	// The valley is 700 pixels a side for the tuning scenes (n <= 320);
+	// larger n (scripts/choicebudget) draws a larger valley.
+	vs := max(700, n+400)
+	valley, _ := scenes.ValleyReference(vs, vs)
 	crop := func(plane []float32, x0, y0 int) []float32 {
 		out := make([]float32, n*n)
 		for y := 0; y < n; y++ {
-			copy(out[y*n:(y+1)*n], plane[(y0+y)*700+x0:])
+			copy(out[y*n:(y+1)*n], plane[(y0+y)*vs+x0:])
 		}
 		return out
 	}
