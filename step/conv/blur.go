@@ -55,27 +55,41 @@ func MeanFilled(d []float32, valid []bool, n int) ([]float64, bool) {
 	return out, true
 }
 
-// Blur64 is a separable blur with half-sample symmetric borders.
+// Blur64 is a separable blur with half-sample symmetric borders. Each sum
+// runs over the taps in order whether or not it meets a border, so the
+// interior loops (no reflection) give the same bits as the reflected ones.
 func Blur64(src []float64, w, h int, g []float64) []float64 {
 	r := (len(g) - 1) / 2
 	tmp, out := make([]float64, w*h), make([]float64, w*h)
 	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
+		row, dst := src[y*w:(y+1)*w], tmp[y*w:(y+1)*w]
+		for x := range dst {
 			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * src[y*w+raster.Mirror(x+k, w)]
+			if x >= r && x+r < w {
+				for k, gk := range g {
+					a += gk * row[x-r+k]
+				}
+			} else {
+				for k := -r; k <= r; k++ {
+					a += g[k+r] * row[raster.Mirror(x+k, w)]
+				}
 			}
-			tmp[y*w+x] = a
+			dst[x] = a
 		}
 	}
+	acc := make([]float64, w)
 	for y := 0; y < h; y++ {
-		for x := 0; x < w; x++ {
-			var a float64
-			for k := -r; k <= r; k++ {
-				a += g[k+r] * tmp[raster.Mirror(y+k, h)*w+x]
-			}
-			out[y*w+x] = a
+		for i := range acc {
+			acc[i] = 0
 		}
+		// The same sum as per pixel, one tap (one source row) at a time.
+		for k := -r; k <= r; k++ {
+			gk, sr := g[k+r], tmp[raster.Mirror(y+k, h)*w:][:w]
+			for x, v := range sr {
+				acc[x] += gk * v
+			}
+		}
+		copy(out[y*w:(y+1)*w], acc)
 	}
 	return out
 }

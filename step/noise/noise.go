@@ -3,7 +3,7 @@ package noise
 import (
 	"fmt"
 	"math"
-	"sort"
+	"slices"
 
 	"limpid/step/conv"
 )
@@ -189,11 +189,7 @@ func (s *Sampler) Fit() (Model, error) {
 	if n < noiseBins*noiseMinPerBin/4 {
 		return Model{}, ErrNoData
 	}
-	idx := make([]int, n)
-	for i := range idx {
-		idx[i] = i
-	}
-	sort.Slice(idx, func(a, b int) bool { return s.mean[idx[a]] < s.mean[idx[b]] })
+	idx := sortedByMean(s.mean)
 	nb := min(noiseBins, n/noiseMinPerBin)
 	nb = max(nb, 2)
 	var bins []Bin
@@ -246,6 +242,33 @@ func (s *Sampler) Fit() (Model, error) {
 		m.B = math.Max(m.B, m.Floor)
 	}
 	return m, nil
+}
+
+// sortedByMean returns the sample indices in increasing order of mean,
+// equal means in index order: one sort of 64-bit keys, the mean's float32
+// bits mapped to an order-preserving unsigned integer (IEEE 754 total order
+// for finite values: flip every bit of a negative, the sign bit of a
+// positive; -0 taken as +0) above the index.
+func sortedByMean(mean []float32) []int {
+	keys := make([]uint64, len(mean))
+	for i, m := range mean {
+		if m == 0 {
+			m = 0 // -0 ties with +0, as < compares them
+		}
+		b := math.Float32bits(m)
+		if b&(1<<31) != 0 {
+			b = ^b
+		} else {
+			b |= 1 << 31
+		}
+		keys[i] = uint64(b)<<32 | uint64(i)
+	}
+	slices.Sort(keys)
+	idx := make([]int, len(keys))
+	for i, k := range keys {
+		idx[i] = int(uint32(k))
+	}
+	return idx
 }
 
 // fitAffine fits Variance = a*Mean + b by weighted least squares with weights
@@ -333,17 +356,61 @@ func fitAffine(bins []Bin) Model {
 }
 
 // Median is the median of v (the mean of the middle two for an even
-// count; NaN for none). It sorts v.
+// count; NaN for none). It reorders v.
 func Median(v []float64) float64 {
-	if len(v) == 0 {
+	n := len(v)
+	if n == 0 {
 		return math.NaN()
 	}
-	sort.Float64s(v)
-	n := len(v)
 	if n%2 == 1 {
-		return v[n/2]
+		return selectKth(v, n/2)
 	}
-	return 0.5 * (v[n/2-1] + v[n/2])
+	hi := selectKth(v, n/2)
+	// After the selection every value below n/2 is <= hi: the lower
+	// middle is their largest.
+	lo := v[0]
+	for _, x := range v[1 : n/2] {
+		lo = math.Max(lo, x)
+	}
+	return 0.5 * (lo + hi)
+}
+
+// selectKth reorders v so that v[k] is its k-th smallest value (0-based),
+// everything before it <= v[k] and everything after >= v[k], and returns
+// it: quickselect (Hoare, CACM 4(7):321, 1961, "FIND") with a three-way
+// partition (Dijkstra's Dutch national flag), which keeps runs of equal
+// values linear, and the median of three as the pivot. NaN-free input.
+func selectKth(v []float64, k int) float64 {
+	lo, hi := 0, len(v)-1
+	for lo < hi {
+		mid := lo + (hi-lo)/2
+		a, b, c := v[lo], v[mid], v[hi]
+		p := math.Max(math.Min(a, b), math.Min(math.Max(a, b), c))
+		// v[lo:lt] < p, v[lt:i] == p, v[gt+1:hi+1] > p.
+		lt, i, gt := lo, lo, hi
+		for i <= gt {
+			switch x := v[i]; {
+			case x < p:
+				v[lt], v[i] = v[i], v[lt]
+				lt++
+				i++
+			case x > p:
+				v[i], v[gt] = v[gt], v[i]
+				gt--
+			default:
+				i++
+			}
+		}
+		switch {
+		case k < lt:
+			hi = lt - 1
+		case k > gt:
+			lo = gt + 1
+		default:
+			return p
+		}
+	}
+	return v[k]
 }
 
 // Merge appends o's samples to s (o's Limit is not applied again).
