@@ -5,6 +5,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/internal/vec"
 )
 
 // convKind is the implementation a Operator uses.
@@ -154,8 +155,15 @@ func (c *Operator) Adjoint(ws *Work, dst, src []float32, w, h int) {
 	}
 }
 
-// corr sets dst[x] = sum_t k[t] e[x+t] (len(e) >= len(dst)+len(k)-1).
+// corr sets dst[x] = sum_t k[t] e[x+t] (len(e) >= len(dst)+len(k)-1): the
+// vector kernel when the CPU has one, else the scalar loops below (which use
+// the symmetry of sym kernels to halve the multiplications).
 func corr(dst, e, k []float32, sym bool) {
+	if vec.Accelerated() {
+		var one [1]int
+		vec.Corr(dst, e, one[:], k, false)
+		return
+	}
 	n := len(k)
 	switch {
 	case sym && n == 3:
@@ -248,43 +256,49 @@ func rowAdj(dst, src, k []float32, r int, ext []float32, sym bool) {
 	}
 }
 
-// axpy: y += a*x.
-func axpy(y []float32, a float32, x []float32) {
-	x = x[:len(y)]
-	for i := range y {
-		y[i] += a * x[i]
+// maxRows is the number of source rows one vec.Corr call sums; longer
+// kernels take several calls (the row offsets live on the stack).
+const maxRows = 32
+
+// corrRows sets dst (or adds to it, with add) to sum_j sum_c k[j*kw+c] *
+// src[row(j)+i+c] over the n source rows j (kw = len(k)/n), in order of j.
+func corrRows(dst, src []float32, n int, row func(j int) int, k []float32, add bool) {
+	kw := len(k) / n
+	var offs [maxRows]int
+	for j0 := 0; j0 < n; j0 += maxRows {
+		m := min(maxRows, n-j0)
+		for j := range m {
+			offs[j] = row(j0 + j)
+		}
+		vec.Corr(dst, src, offs[:m], k[j0*kw:(j0+m)*kw], add || j0 > 0)
 	}
 }
 
-// colFwd: vertical pass of the forward operator, rows mirrored.
+// colFwd: vertical pass of the forward operator, rows mirrored: each
+// output row is the tap-weighted sum of its 2r+1 mirrored source rows.
 func colFwd(dst, src []float32, w, h int, k []float32, r int) {
 	for y := 0; y < h; y++ {
-		out := dst[y*w : (y+1)*w]
-		for i := range out {
-			out[i] = 0
-		}
-		for t, kt := range k {
-			sy := raster.Mirror(y+t-r, h)
-			axpy(out, kt, src[sy*w:(sy+1)*w])
-		}
+		corrRows(dst[y*w:(y+1)*w], src, len(k), func(t int) int {
+			return raster.Mirror(y+t-r, h) * w
+		}, k, false)
 	}
 }
 
-// colAdj: vertical pass of the adjoint: correlate zero-padded rows, fold.
+// colAdj: vertical pass of the adjoint: correlate zero-padded rows (only
+// the taps that meet a source row), fold the 2r extension rows back onto
+// the rows they mirrored.
 func colAdj(dst, src []float32, w, h int, k []float32, r int) {
-	for i := range dst[:w*h] {
-		dst[i] = 0
-	}
+	clear(dst[:w*h])
 	for m := 0; m < h+2*r; m++ {
 		ty := raster.Mirror(m-r, h)
-		out := dst[ty*w : (ty+1)*w]
-		for t, kt := range k {
-			sy := m + t - 2*r
-			if sy < 0 || sy >= h {
-				continue
-			}
-			axpy(out, kt, src[sy*w:(sy+1)*w])
+		// Source row m+t-2r exists for t in [t0, t1).
+		t0, t1 := max(0, 2*r-m), min(len(k), h+2*r-m)
+		if t0 >= t1 {
+			continue
 		}
+		corrRows(dst[ty*w:(ty+1)*w], src, t1-t0, func(j int) int {
+			return (m + t0 + j - 2*r) * w
+		}, k[t0:t1], true)
 	}
 }
 
@@ -301,17 +315,10 @@ func (c *Operator) directFwd(ws *Work, dst, src []float32, w, h int) {
 			e[w+c.rx+m] = row[raster.Mirror(w+m, w)]
 		}
 	}
-	ws.tmp = grow(ws.tmp, w)
 	for y := 0; y < h; y++ {
-		out := dst[y*w : (y+1)*w]
-		for i := range out {
-			out[i] = 0
-		}
-		for ty := 0; ty < c.kh; ty++ {
-			sy := raster.Mirror(y+ty-c.ry, h)
-			corr(ws.tmp[:w], ws.ext[sy*ew:(sy+1)*ew], c.fwd2[ty*c.kw:(ty+1)*c.kw], false)
-			axpy(out, 1, ws.tmp[:w])
-		}
+		corrRows(dst[y*w:(y+1)*w], ws.ext, c.kh, func(ty int) int {
+			return raster.Mirror(y+ty-c.ry, h) * ew
+		}, c.fwd2, false)
 	}
 }
 
@@ -330,20 +337,17 @@ func (c *Operator) directAdj(ws *Work, dst, src []float32, w, h int) {
 	}
 	ws.ext2 = grow(ws.ext2, zw*(h+2*c.ry))
 	z := ws.ext2
-	for i := range z {
-		z[i] = 0
-	}
-	ws.tmp = grow(ws.tmp, zw)
 	for m := 0; m < h+2*c.ry; m++ {
 		zr := z[m*zw : (m+1)*zw]
-		for ty := 0; ty < c.kh; ty++ {
-			sy := m + ty - 2*c.ry
-			if sy < 0 || sy >= h {
-				continue
-			}
-			corr(ws.tmp[:zw], ws.ext[sy*gw:(sy+1)*gw], c.adj2[ty*c.kw:(ty+1)*c.kw], false)
-			axpy(zr, 1, ws.tmp[:zw])
+		// Source row m+ty-2ry exists for ty in [t0, t1) (never empty).
+		t0, t1 := max(0, 2*c.ry-m), min(c.kh, h+2*c.ry-m)
+		if t0 >= t1 {
+			clear(zr)
+			continue
 		}
+		corrRows(zr, ws.ext, t1-t0, func(j int) int {
+			return (m + t0 + j - 2*c.ry) * gw
+		}, c.adj2[t0*c.kw:t1*c.kw], false)
 	}
 	for i := range dst[:w*h] {
 		dst[i] = 0
