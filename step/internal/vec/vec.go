@@ -1,5 +1,7 @@
 package vec
 
+import "math"
+
 // accel is true when the vector kernels run (set at start-up from the CPU's
 // features; SetPortable clears it).
 var accel = hasAccel
@@ -52,48 +54,41 @@ func Corr(dst, src []float32, offs []int, k []float32, add bool) {
 	corrGo(dst, src, offs, k, kw, add)
 }
 
+// corrGo is the portable Corr. It sums each source row's kw taps in a
+// register and adds the row sums straight into dst (so the association
+// differs from the vector path's one running sum per element, within the
+// same rounding bound; with add=false the first row's sums are stored).
 func corrGo(dst, src []float32, offs []int, k []float32, kw int, add bool) {
-	if len(offs) == 1 {
-		s := src[offs[0] : offs[0]+len(dst)+kw-1]
-		for i := range dst {
-			w := s[i : i+kw : i+kw]
-			var acc float32
-			for c, kc := range k {
-				acc += kc * w[c]
-			}
-			if add {
-				dst[i] += acc
+	n := len(dst)
+	for r, o := range offs {
+		kr := k[r*kw : (r+1)*kw]
+		set := r == 0 && !add
+		if kw == 1 {
+			k0 := kr[0]
+			s := src[o : o+n] // lets the compiler drop the bounds checks
+			if set {
+				for i := range dst {
+					dst[i] = k0 * s[i]
+				}
 			} else {
-				dst[i] = acc
-			}
-		}
-		return
-	}
-	if !add {
-		clear(dst)
-	}
-	// Row by row into dst would change the order of the sum (and its
-	// rounding) for add; keep one accumulator per element instead, in
-	// blocks small enough to stay in registers' reach of the cache.
-	const block = 256
-	var acc [block]float32
-	for i0 := 0; i0 < len(dst); i0 += block {
-		n := min(block, len(dst)-i0)
-		a := acc[:n]
-		clear(a)
-		for r, o := range offs {
-			kr := k[r*kw : (r+1)*kw]
-			s := src[o+i0 : o+i0+n+kw-1]
-			for c, kc := range kr {
-				row := s[c : c+n]
-				for i := range a {
-					a[i] += kc * row[i]
+				for i := range dst {
+					dst[i] += k0 * s[i]
 				}
 			}
+			continue
 		}
-		d := dst[i0 : i0+n]
-		for i := range d {
-			d[i] += a[i]
+		s := src[o : o+n+kw-1]
+		for i := range dst {
+			w := s[i : i+kw : i+kw]
+			var t float32
+			for c, kc := range kr {
+				t += kc * w[c]
+			}
+			if set {
+				dst[i] = t
+			} else {
+				dst[i] += t
+			}
 		}
 	}
 }
@@ -185,4 +180,40 @@ func UpdateJVP(e, ue, f, u, t, dt, s []float32, floor float32) {
 			ue[i] = u[i]
 		}
 	}
+}
+
+// l1Lanes is the number of float64 partial sums L1Sums keeps: element i
+// goes to lane i mod 8 on both paths (two YMM registers of 4 float64 on the
+// vector path), and the lanes are added in order at the end, so both paths
+// give the same bits.
+const l1Lanes = 8
+
+// L1Sums returns sum_i |a[i] - b[i]| and sum_i |b[i]| over len(a) elements
+// (b at least as long), each difference taken in float32 and the sums in
+// float64: the numerator and denominator of a relative L1 change.
+func L1Sums(a, b []float32) (diff, norm float64) {
+	n := len(a)
+	b = b[:n]
+	var dl, nl [l1Lanes]float64
+	i := 0
+	if accel && n >= l1Lanes {
+		i = n &^ (l1Lanes - 1)
+		l1SumsAsm(&dl, &nl, a[:i], b)
+	} else {
+		for ; i+l1Lanes <= n; i += l1Lanes {
+			for l := range l1Lanes {
+				dl[l] += math.Abs(float64(a[i+l] - b[i+l]))
+				nl[l] += math.Abs(float64(b[i+l]))
+			}
+		}
+	}
+	for l := 0; i < n; i, l = i+1, l+1 {
+		dl[l] += math.Abs(float64(a[i] - b[i]))
+		nl[l] += math.Abs(float64(b[i]))
+	}
+	for l := range l1Lanes {
+		diff += dl[l]
+		norm += nl[l]
+	}
+	return diff, norm
 }

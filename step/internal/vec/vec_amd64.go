@@ -27,3 +27,9 @@ func ratioJVPAsm(q, dq, hf, d, m, delta, hu []float32, b float32)
 
 //go:noescape
 func updateJVPAsm(e, ue, f, u, t, dt, s []float32, floor float32)
+
+// l1SumsAsm adds |a[i]-b[i]| and |b[i]| to the lanes dl[i%8], nl[i%8] for
+// i < len(a), a multiple of 8.
+//
+//go:noescape
+func l1SumsAsm(dl, nl *[8]float64, a, b []float32)

@@ -293,3 +293,53 @@ updateJVPLoop:
 updateJVPDone:
 	VZEROUPPER
 	RET
+
+// func l1SumsAsm(dl, nl *[8]float64, a, b []float32)
+//
+// Lanes 0-3 in Y0 (diff) / Y2 (norm), 4-7 in Y1 / Y3: the float32
+// difference is widened exactly (VCVTPS2PD), its sign cleared with the
+// mask 0x7fff...f (all ones shifted right by one), then added.
+TEXT ·l1SumsAsm(SB), NOSPLIT, $0-64
+	MOVQ    dl+0(FP), DI
+	MOVQ    nl+8(FP), R9
+	MOVQ    a_base+16(FP), SI
+	MOVQ    a_len+24(FP), CX
+	MOVQ    b_base+40(FP), DX
+	VMOVUPD (DI), Y0
+	VMOVUPD 32(DI), Y1
+	VMOVUPD (R9), Y2
+	VMOVUPD 32(R9), Y3
+	VPCMPEQQ Y15, Y15, Y15
+	VPSRLQ  $1, Y15, Y15
+	XORQ    BX, BX
+
+l1Loop:
+	CMPQ      BX, CX
+	JGE       l1Done
+	VMOVUPS   (DX)(BX*4), Y4
+	VMOVUPS   (SI)(BX*4), Y5
+	VSUBPS    Y4, Y5, Y5
+	VCVTPS2PD X5, Y6
+	VEXTRACTF128 $1, Y5, X5
+	VCVTPS2PD X5, Y7
+	VANDPD    Y15, Y6, Y6
+	VANDPD    Y15, Y7, Y7
+	VADDPD    Y6, Y0, Y0
+	VADDPD    Y7, Y1, Y1
+	VCVTPS2PD X4, Y8
+	VEXTRACTF128 $1, Y4, X4
+	VCVTPS2PD X4, Y9
+	VANDPD    Y15, Y8, Y8
+	VANDPD    Y15, Y9, Y9
+	VADDPD    Y8, Y2, Y2
+	VADDPD    Y9, Y3, Y3
+	ADDQ      $8, BX
+	JMP       l1Loop
+
+l1Done:
+	VMOVUPD Y0, (DI)
+	VMOVUPD Y1, 32(DI)
+	VMOVUPD Y2, (R9)
+	VMOVUPD Y3, 32(R9)
+	VZEROUPPER
+	RET

@@ -13,3 +13,5 @@ func ratioAsm(q, hf, d, m []float32, b float32)                   { panic("vec: 
 func updateAsm(e, f, t, s []float32, floor float32)               { panic("vec: no vector kernels") }
 func ratioJVPAsm(q, dq, hf, d, m, delta, hu []float32, b float32) { panic("vec: no vector kernels") }
 func updateJVPAsm(e, ue, f, u, t, dt, s []float32, floor float32) { panic("vec: no vector kernels") }
+
+func l1SumsAsm(dl, nl *[8]float64, a, b []float32) { panic("vec: no vector kernels") }
