@@ -50,6 +50,9 @@ type Operator struct {
 	fwd2, adj2 []float32
 	kw, kh     int
 	kern       *psf.Kernel
+	// portable: the portable Go kernels of package vec whatever the CPU
+	// (Portable), so results are the same on every machine.
+	portable bool
 }
 
 // New chooses the implementation for a kernel: separable when the kernel
@@ -99,6 +102,16 @@ func taps1(v []float64) (fwd, adj []float32, sym bool) {
 	return fwd, adj, sym
 }
 
+// Portable returns a copy of c that always takes the portable Go kernels
+// (package vec), so its results are the same on every machine, with or
+// without vector units: for simulated scenes and committed fixtures, not
+// for restoration (which is deterministic per machine on either path).
+func (c *Operator) Portable() *Operator {
+	p := *c
+	p.portable = true
+	return &p
+}
+
 // Kind names the implementation ("separable", "direct", "fft").
 func (c *Operator) Kind() string { return c.kind.String() }
 
@@ -128,9 +141,9 @@ func (c *Operator) Apply(ws *Work, dst, src []float32, w, h int) {
 		ws.tmp = grow(ws.tmp, w*h)
 		ws.ext = grow(ws.ext, max(w+2*c.rx, h))
 		for y := 0; y < h; y++ {
-			rowFwd(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.fwdX, c.rx, ws.ext, c.symX)
+			rowFwd(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.fwdX, c.rx, ws.ext, c.symX, !c.portable)
 		}
-		colFwd(dst, ws.tmp, w, h, c.fwdY, c.ry)
+		colFwd(dst, ws.tmp, w, h, c.fwdY, c.ry, !c.portable)
 	case convDirect:
 		c.directFwd(ws, dst, src, w, h)
 	case convFFT:
@@ -145,9 +158,9 @@ func (c *Operator) Adjoint(ws *Work, dst, src []float32, w, h int) {
 		ws.tmp = grow(ws.tmp, w*h)
 		ws.ext = grow(ws.ext, max(w+4*c.rx, h))
 		for y := 0; y < h; y++ {
-			rowAdj(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.adjX, c.rx, ws.ext, c.symX)
+			rowAdj(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.adjX, c.rx, ws.ext, c.symX, !c.portable)
 		}
-		colAdj(dst, ws.tmp, w, h, c.adjY, c.ry)
+		colAdj(dst, ws.tmp, w, h, c.adjY, c.ry, !c.portable)
 	case convDirect:
 		c.directAdj(ws, dst, src, w, h)
 	case convFFT:
@@ -156,10 +169,11 @@ func (c *Operator) Adjoint(ws *Work, dst, src []float32, w, h int) {
 }
 
 // corr sets dst[x] = sum_t k[t] e[x+t] (len(e) >= len(dst)+len(k)-1): the
-// vector kernel when the CPU has one, else the scalar loops below (which use
-// the symmetry of sym kernels to halve the multiplications).
-func corr(dst, e, k []float32, sym bool) {
-	if vec.Accelerated() {
+// vector kernel when fast is set and the CPU has one, else the scalar loops
+// below (which use the symmetry of sym kernels to halve the
+// multiplications).
+func corr(dst, e, k []float32, sym, fast bool) {
+	if fast && vec.Accelerated() {
 		var one [1]int
 		vec.Corr(dst, e, one[:], k, false)
 		return
@@ -221,7 +235,7 @@ func corr(dst, e, k []float32, sym bool) {
 }
 
 // rowFwd: dst = V(E(src)) along one row.
-func rowFwd(dst, src, k []float32, r int, ext []float32, sym bool) {
+func rowFwd(dst, src, k []float32, r int, ext []float32, sym, fast bool) {
 	w := len(src)
 	e := ext[:w+2*r]
 	copy(e[r:], src)
@@ -229,11 +243,11 @@ func rowFwd(dst, src, k []float32, r int, ext []float32, sym bool) {
 		e[m] = src[raster.Mirror(m-r, w)]
 		e[w+r+m] = src[raster.Mirror(w+m, w)]
 	}
-	corr(dst, e, k, sym)
+	corr(dst, e, k, sym, fast)
 }
 
 // rowAdj: dst = E^T(V^T(src)) along one row.
-func rowAdj(dst, src, k []float32, r int, ext []float32, sym bool) {
+func rowAdj(dst, src, k []float32, r int, ext []float32, sym, fast bool) {
 	w := len(src)
 	// Zero-padded source of length w+4r, correlated into z of length w+2r.
 	gp := ext[:w+4*r]
@@ -243,7 +257,7 @@ func rowAdj(dst, src, k []float32, r int, ext []float32, sym bool) {
 	}
 	copy(gp[2*r:], src)
 	// z[m] for interior m = r..w+r-1 goes straight to dst[m-r].
-	corr(dst, gp[r:], k, sym)
+	corr(dst, gp[r:], k, sym, fast)
 	// Fold the 2r extension samples back.
 	for m := 0; m < r; m++ {
 		var zl, zr float32
@@ -261,8 +275,9 @@ func rowAdj(dst, src, k []float32, r int, ext []float32, sym bool) {
 const maxRows = 32
 
 // corrRows sets dst (or adds to it, with add) to sum_j sum_c k[j*kw+c] *
-// src[row(j)+i+c] over the n source rows j (kw = len(k)/n), in order of j.
-func corrRows(dst, src []float32, n int, row func(j int) int, k []float32, add bool) {
+// src[row(j)+i+c] over the n source rows j (kw = len(k)/n), in order of j;
+// on the vector kernels when fast is set.
+func corrRows(dst, src []float32, n int, row func(j int) int, k []float32, add, fast bool) {
 	kw := len(k) / n
 	var offs [maxRows]int
 	for j0 := 0; j0 < n; j0 += maxRows {
@@ -270,24 +285,28 @@ func corrRows(dst, src []float32, n int, row func(j int) int, k []float32, add b
 		for j := range m {
 			offs[j] = row(j0 + j)
 		}
-		vec.Corr(dst, src, offs[:m], k[j0*kw:(j0+m)*kw], add || j0 > 0)
+		if fast {
+			vec.Corr(dst, src, offs[:m], k[j0*kw:(j0+m)*kw], add || j0 > 0)
+		} else {
+			vec.CorrPortable(dst, src, offs[:m], k[j0*kw:(j0+m)*kw], add || j0 > 0)
+		}
 	}
 }
 
 // colFwd: vertical pass of the forward operator, rows mirrored: each
 // output row is the tap-weighted sum of its 2r+1 mirrored source rows.
-func colFwd(dst, src []float32, w, h int, k []float32, r int) {
+func colFwd(dst, src []float32, w, h int, k []float32, r int, fast bool) {
 	for y := 0; y < h; y++ {
 		corrRows(dst[y*w:(y+1)*w], src, len(k), func(t int) int {
 			return raster.Mirror(y+t-r, h) * w
-		}, k, false)
+		}, k, false, fast)
 	}
 }
 
 // colAdj: vertical pass of the adjoint: correlate zero-padded rows (only
 // the taps that meet a source row), fold the 2r extension rows back onto
 // the rows they mirrored.
-func colAdj(dst, src []float32, w, h int, k []float32, r int) {
+func colAdj(dst, src []float32, w, h int, k []float32, r int, fast bool) {
 	clear(dst[:w*h])
 	for m := 0; m < h+2*r; m++ {
 		ty := raster.Mirror(m-r, h)
@@ -298,7 +317,7 @@ func colAdj(dst, src []float32, w, h int, k []float32, r int) {
 		}
 		corrRows(dst[ty*w:(ty+1)*w], src, t1-t0, func(j int) int {
 			return (m + t0 + j - 2*r) * w
-		}, k[t0:t1], true)
+		}, k[t0:t1], true, fast)
 	}
 }
 
@@ -318,7 +337,7 @@ func (c *Operator) directFwd(ws *Work, dst, src []float32, w, h int) {
 	for y := 0; y < h; y++ {
 		corrRows(dst[y*w:(y+1)*w], ws.ext, c.kh, func(ty int) int {
 			return raster.Mirror(y+ty-c.ry, h) * ew
-		}, c.fwd2, false)
+		}, c.fwd2, false, !c.portable)
 	}
 }
 
@@ -347,7 +366,7 @@ func (c *Operator) directAdj(ws *Work, dst, src []float32, w, h int) {
 		}
 		corrRows(zr, ws.ext, t1-t0, func(j int) int {
 			return (m + t0 + j - 2*c.ry) * gw
-		}, c.adj2[t0*c.kw:t1*c.kw], false)
+		}, c.adj2[t0*c.kw:t1*c.kw], false, !c.portable)
 	}
 	for i := range dst[:w*h] {
 		dst[i] = 0

@@ -200,3 +200,38 @@ func TestSmoothingKernelVariance(t *testing.T) {
 		}
 	}
 }
+
+// TestPortableOperator: Portable() must give exactly the bits of the
+// operator with package vec's portable path forced (the machine-independent
+// results simulated scenes rely on), on every implementation that uses vec.
+func TestPortableOperator(t *testing.T) {
+	defer vec.SetPortable(false)
+	r := rand.New(rand.NewPCG(7, 8))
+	const w, h = 37, 23
+	for name, k := range testKernels(t) {
+		c := New(k)
+		src := randPlane(r, w*h)
+		var ws Work
+		for _, adjoint := range []bool{false, true} {
+			want, got := make([]float32, w*h), make([]float32, w*h)
+			op := c.Apply
+			if adjoint {
+				op = c.Adjoint
+			}
+			vec.SetPortable(true)
+			op(&ws, want, src, w, h)
+			vec.SetPortable(false)
+			p := c.Portable()
+			if adjoint {
+				p.Adjoint(&ws, got, src, w, h)
+			} else {
+				p.Apply(&ws, got, src, w, h)
+			}
+			for i := range got {
+				if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+					t.Fatalf("%s adjoint=%v: pixel %d Portable() %g, forced portable %g", name, adjoint, i, got[i], want[i])
+				}
+			}
+		}
+	}
+}

@@ -25,6 +25,28 @@ func Accelerated() bool { return accel }
 // together are a 2-D correlation. It panics when len(k) is not a multiple
 // of len(offs) or a read would leave src (a programming error).
 func Corr(dst, src []float32, offs []int, k []float32, add bool) {
+	kw, ok := corrCheck(dst, src, offs, k, add)
+	if !ok {
+		return
+	}
+	if accel {
+		corrAsm(dst, src, offs, k, kw, add)
+		return
+	}
+	corrGo(dst, src, offs, k, kw, add)
+}
+
+// CorrPortable is Corr on the portable path whatever the CPU: for results
+// that must be the same on every machine (simulated scenes, fixtures).
+func CorrPortable(dst, src []float32, offs []int, k []float32, add bool) {
+	if kw, ok := corrCheck(dst, src, offs, k, add); ok {
+		corrGo(dst, src, offs, k, kw, add)
+	}
+}
+
+// corrCheck validates Corr's arguments and handles the empty cases; ok
+// means a kernel has work to do, with kw taps per row.
+func corrCheck(dst, src []float32, offs []int, k []float32, add bool) (kw int, ok bool) {
 	if len(offs) == 0 {
 		if len(k) != 0 {
 			panic("vec.Corr: taps without rows")
@@ -32,14 +54,14 @@ func Corr(dst, src []float32, offs []int, k []float32, add bool) {
 		if !add {
 			clear(dst)
 		}
-		return
+		return 0, false
 	}
-	kw := len(k) / len(offs)
+	kw = len(k) / len(offs)
 	if kw*len(offs) != len(k) {
 		panic("vec.Corr: len(k) is not a multiple of len(offs)")
 	}
 	if len(dst) == 0 {
-		return
+		return kw, false
 	}
 	span := len(dst) + kw - 1
 	for _, o := range offs {
@@ -47,11 +69,7 @@ func Corr(dst, src []float32, offs []int, k []float32, add bool) {
 			panic("vec.Corr: source row out of range")
 		}
 	}
-	if accel {
-		corrAsm(dst, src, offs, k, kw, add)
-		return
-	}
-	corrGo(dst, src, offs, k, kw, add)
+	return kw, true
 }
 
 // corrGo is the portable Corr. It sums each source row's kw taps in a
