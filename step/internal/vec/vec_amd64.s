@@ -11,8 +11,9 @@
 // func corrAsm(dst, src []float32, offs []int, k []float32, kw int, add bool)
 //
 // dst[i] (+)= sum_r sum_c k[r*kw+c] * src[offs[r]+i+c], one fused
-// multiply-add per term in (r, c) order, 32 then 8 lanes at a time with the
-// sums in registers, the last len(dst) mod 8 elements one by one.
+// multiply-add per term in (r, c) order, 64, 32, then 8 lanes at a time
+// with the sums in registers (8 independent accumulator chains cover the
+// FMA latency), the last len(dst) mod 8 elements one by one.
 TEXT ·corrAsm(SB), NOSPLIT, $0-105
 	MOVQ dst_base+0(FP), DI
 	MOVQ dst_len+8(FP), CX
@@ -23,6 +24,69 @@ TEXT ·corrAsm(SB), NOSPLIT, $0-105
 	MOVQ kw+96(FP), R11
 	MOVBQZX add+104(FP), R12
 	XORQ BX, BX
+
+loop64:
+	LEAQ 64(BX), AX
+	CMPQ AX, CX
+	JGT  loop32
+	VXORPS Y0, Y0, Y0
+	VXORPS Y1, Y1, Y1
+	VXORPS Y2, Y2, Y2
+	VXORPS Y3, Y3, Y3
+	VXORPS Y5, Y5, Y5
+	VXORPS Y6, Y6, Y6
+	VXORPS Y7, Y7, Y7
+	VXORPS Y8, Y8, Y8
+	MOVQ   R10, DX
+	XORQ   R13, R13
+
+row64:
+	MOVQ (R8)(R13*8), AX
+	ADDQ BX, AX
+	LEAQ (SI)(AX*4), AX
+	MOVQ R11, R14
+
+tap64:
+	VBROADCASTSS (DX), Y4
+	VFMADD231PS  (AX), Y4, Y0
+	VFMADD231PS  32(AX), Y4, Y1
+	VFMADD231PS  64(AX), Y4, Y2
+	VFMADD231PS  96(AX), Y4, Y3
+	VFMADD231PS  128(AX), Y4, Y5
+	VFMADD231PS  160(AX), Y4, Y6
+	VFMADD231PS  192(AX), Y4, Y7
+	VFMADD231PS  224(AX), Y4, Y8
+	ADDQ         $4, AX
+	ADDQ         $4, DX
+	DECQ         R14
+	JNZ          tap64
+	INCQ         R13
+	CMPQ         R13, R9
+	JLT          row64
+
+	LEAQ  (DI)(BX*4), AX
+	TESTQ R12, R12
+	JZ    store64
+	VADDPS (AX), Y0, Y0
+	VADDPS 32(AX), Y1, Y1
+	VADDPS 64(AX), Y2, Y2
+	VADDPS 96(AX), Y3, Y3
+	VADDPS 128(AX), Y5, Y5
+	VADDPS 160(AX), Y6, Y6
+	VADDPS 192(AX), Y7, Y7
+	VADDPS 224(AX), Y8, Y8
+
+store64:
+	VMOVUPS Y0, (AX)
+	VMOVUPS Y1, 32(AX)
+	VMOVUPS Y2, 64(AX)
+	VMOVUPS Y3, 96(AX)
+	VMOVUPS Y5, 128(AX)
+	VMOVUPS Y6, 160(AX)
+	VMOVUPS Y7, 192(AX)
+	VMOVUPS Y8, 224(AX)
+	ADDQ    $64, BX
+	JMP     loop64
 
 loop32:
 	LEAQ 32(BX), AX

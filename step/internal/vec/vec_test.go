@@ -38,6 +38,16 @@ func corrRef(dst, src []float32, offs []int, k []float32, add bool) (want, mag [
 	return want, mag
 }
 
+// corrLengths: 0..70, then lengths mixing the 64-, 32- and 8-lane blocks
+// (96 = 64+32, 103 = 64+32+7, 171 = 2*64+32+8+3).
+func corrLengths() []int {
+	var ns []int
+	for n := 0; n <= 70; n++ {
+		ns = append(ns, n)
+	}
+	return append(ns, 96, 103, 171)
+}
+
 func randSlice(r *rand.Rand, n int) []float32 {
 	s := make([]float32, n)
 	for i := range s {
@@ -62,8 +72,8 @@ func bothPaths(t *testing.T, fn func(t *testing.T)) {
 }
 
 // Source: definition of correlation (the sum in the doc comment of Corr),
-// evaluated in float64; lengths 0..70 cover the 32- and 8-lane blocks and
-// every tail, slices start at odd offsets (unaligned), shapes cover one row
+// evaluated in float64; lengths 0..70 and 96, 103, 171 cover the 64-, 32-
+// and 8-lane blocks in every combination and every tail, slices start at odd offsets (unaligned), shapes cover one row
 // (row pass), one tap per row (column pass) and 2-D kernels.
 func TestCorrMatchesDefinition(t *testing.T) {
 	bothPaths(t, func(t *testing.T) {
@@ -72,7 +82,7 @@ func TestCorrMatchesDefinition(t *testing.T) {
 		for _, sh := range shapes {
 			rows, kw := sh[0], sh[1]
 			k := randSlice(r, rows*kw)
-			for n := 0; n <= 70; n++ {
+			for _, n := range corrLengths() {
 				for _, add := range []bool{false, true} {
 					rowLen := n + kw - 1 + 3
 					buf := randSlice(r, rows*rowLen+5)
@@ -109,7 +119,7 @@ func TestCorrVectorMatchesPortable(t *testing.T) {
 	for _, sh := range [][2]int{{1, 13}, {13, 1}, {7, 7}} {
 		rows, kw := sh[0], sh[1]
 		k := randSlice(r, rows*kw)
-		for n := 1; n <= 70; n++ {
+		for _, n := range corrLengths()[1:] {
 			src := randSlice(r, rows*(n+kw))
 			offs := make([]int, rows)
 			for i := range offs {
