@@ -194,6 +194,9 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 	g.H.Apply(&ws.conv, ws.p, f, w, h)
 	pp, q, d, m := ws.p[:n], ws.q[:n], p.D[:n], p.Mask[:n]
 	if wantRSS {
+		// Kept scalar: iterateJVP (auto.go) sums the same residuals in
+		// this order, and both solves must stop at the same iterate;
+		// vec.ResidualSS is the vector form for both at once.
 		for i := range pp {
 			if m[i] != 0 {
 				e := float64(d[i] - pp[i] - b)

@@ -407,3 +407,45 @@ l1Done:
 	VMOVUPD Y3, 32(R9)
 	VZEROUPPER
 	RET
+
+// func rssAsm(sl *[8]float64, d, hf, m []float32, b float32)
+//
+// e = (d - hf) - b in float32, zeroed where m == 0 (adding +0 leaves a
+// non-negative sum unchanged, as skipping the element does), widened
+// exactly, squared and added in float64 to lanes 0-3 (Y0) and 4-7 (Y1).
+TEXT ·rssAsm(SB), NOSPLIT, $0-84
+	MOVQ         sl+0(FP), DI
+	MOVQ         d_base+8(FP), SI
+	MOVQ         d_len+16(FP), CX
+	MOVQ         hf_base+32(FP), DX
+	MOVQ         m_base+56(FP), R8
+	VBROADCASTSS b+80(FP), Y7
+	VXORPS       Y6, Y6, Y6
+	VMOVUPD      (DI), Y0
+	VMOVUPD      32(DI), Y1
+	XORQ         BX, BX
+
+rssLoop:
+	CMPQ         BX, CX
+	JGE          rssDone
+	VMOVUPS      (SI)(BX*4), Y2
+	VSUBPS       (DX)(BX*4), Y2, Y2
+	VSUBPS       Y7, Y2, Y2
+	VMOVUPS      (R8)(BX*4), Y3
+	VCMPPS       CMP_NEQ_UQ, Y6, Y3, Y3
+	VANDPS       Y3, Y2, Y2
+	VCVTPS2PD    X2, Y4
+	VEXTRACTF128 $1, Y2, X2
+	VCVTPS2PD    X2, Y5
+	VMULPD       Y4, Y4, Y4
+	VMULPD       Y5, Y5, Y5
+	VADDPD       Y4, Y0, Y0
+	VADDPD       Y5, Y1, Y1
+	ADDQ         $8, BX
+	JMP          rssLoop
+
+rssDone:
+	VMOVUPD Y0, (DI)
+	VMOVUPD Y1, 32(DI)
+	VZEROUPPER
+	RET
