@@ -8,6 +8,7 @@ import (
 
 	"limpid/psf"
 	"limpid/step/conv"
+	"limpid/step/internal/vec"
 	"limpid/step/noise"
 )
 
@@ -25,6 +26,34 @@ func BenchmarkRL512(b *testing.B) { benchEMS(b, 1.5, 0) }
 func BenchmarkGridEMS512FFT(b *testing.B) {
 	k, _ := psf.GaussianAniso(1.5, 0.8, 30)
 	benchKernel(b, k, DefaultSmooth)
+}
+
+// BenchmarkGridEMS512Portable is BenchmarkGridEMS512 with the vector
+// kernels (package vec) turned off: the ratio of the two is the vector
+// speed-up of the separable path.
+func BenchmarkGridEMS512Portable(b *testing.B) {
+	portable(b)
+	benchEMS(b, 1.5, DefaultSmooth)
+}
+
+// BenchmarkGridEMS512Direct uses a rotated anisotropic PSF small enough for
+// the direct 2-D kernel (9 x 7 taps), with the vector kernels.
+func BenchmarkGridEMS512Direct(b *testing.B) {
+	k, _ := psf.GaussianAniso(1.0, 0.6, 30)
+	benchKernel(b, k, DefaultSmooth)
+}
+
+// BenchmarkGridEMS512DirectPortable is BenchmarkGridEMS512Direct on the
+// portable kernels.
+func BenchmarkGridEMS512DirectPortable(b *testing.B) {
+	portable(b)
+	BenchmarkGridEMS512Direct(b)
+}
+
+// portable forces package vec's portable kernels for the rest of b.
+func portable(b *testing.B) {
+	vec.SetPortable(true)
+	b.Cleanup(func() { vec.SetPortable(false) })
 }
 
 func benchEMS(b *testing.B, sigma, eps float64) {

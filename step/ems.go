@@ -4,6 +4,7 @@ import (
 	"context"
 	"limpid/step/conv"
 	"limpid/step/internal/plane"
+	"limpid/step/internal/vec"
 	"limpid/step/noise"
 )
 
@@ -193,6 +194,9 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 	g.H.Apply(&ws.conv, ws.p, f, w, h)
 	pp, q, d, m := ws.p[:n], ws.q[:n], p.D[:n], p.Mask[:n]
 	if wantRSS {
+		// Kept scalar: iterateJVP (auto.go) sums the same residuals in
+		// this order, and both solves must stop at the same iterate;
+		// vec.ResidualSS is the vector form for both at once.
 		for i := range pp {
 			if m[i] != 0 {
 				e := float64(d[i] - pp[i] - b)
@@ -206,15 +210,8 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 	if g.S != nil {
 		e = ws.p // H f is no longer needed
 	}
-	t, s, ff := ws.t[:n], ws.s[:n], f[:n]
-	e = e[:n]
-	for i := range e {
-		if s[i] > sensitivityFloor {
-			e[i] = ff[i] * t[i] / s[i]
-		} else {
-			e[i] = ff[i]
-		}
-	}
+	ff := f[:n]
+	vec.Update(e[:n], ff, ws.t[:n], ws.s[:n], sensitivityFloor)
 	if g.S != nil {
 		g.S.Apply(&ws.conv, fn, e, w, h)
 	}
@@ -222,14 +219,6 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 }
 
 // dataRatio sets q = w d / (Hf + b) where the mask is set and the
-// prediction positive, else 0 (no data term).
-func dataRatio(q, hf, d, m []float32, b float32) {
-	for i := range q {
-		den := hf[i] + b
-		if den > 0 && m[i] != 0 {
-			q[i] = d[i] / den
-		} else {
-			q[i] = 0
-		}
-	}
-}
+// prediction positive, else 0 (no data term); vectorised (vec.Ratio, the
+// same bits as the scalar loop).
+func dataRatio(q, hf, d, m []float32, b float32) { vec.Ratio(q, hf, d, m, b) }

@@ -5,6 +5,7 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/internal/vec"
 )
 
 // convKind is the implementation a Operator uses.
@@ -49,6 +50,9 @@ type Operator struct {
 	fwd2, adj2 []float32
 	kw, kh     int
 	kern       *psf.Kernel
+	// portable: the portable Go kernels of package vec whatever the CPU
+	// (Portable), so results are the same on every machine.
+	portable bool
 }
 
 // New chooses the implementation for a kernel: separable when the kernel
@@ -98,6 +102,16 @@ func taps1(v []float64) (fwd, adj []float32, sym bool) {
 	return fwd, adj, sym
 }
 
+// Portable returns a copy of c that always takes the portable Go kernels
+// (package vec), so its results are the same on every machine, with or
+// without vector units: for simulated scenes and committed fixtures, not
+// for restoration (which is deterministic per machine on either path).
+func (c *Operator) Portable() *Operator {
+	p := *c
+	p.portable = true
+	return &p
+}
+
 // Kind names the implementation ("separable", "direct", "fft").
 func (c *Operator) Kind() string { return c.kind.String() }
 
@@ -127,9 +141,9 @@ func (c *Operator) Apply(ws *Work, dst, src []float32, w, h int) {
 		ws.tmp = grow(ws.tmp, w*h)
 		ws.ext = grow(ws.ext, max(w+2*c.rx, h))
 		for y := 0; y < h; y++ {
-			rowFwd(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.fwdX, c.rx, ws.ext, c.symX)
+			rowFwd(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.fwdX, c.rx, ws.ext, c.symX, !c.portable)
 		}
-		colFwd(dst, ws.tmp, w, h, c.fwdY, c.ry)
+		colFwd(dst, ws.tmp, w, h, c.fwdY, c.ry, !c.portable)
 	case convDirect:
 		c.directFwd(ws, dst, src, w, h)
 	case convFFT:
@@ -144,9 +158,9 @@ func (c *Operator) Adjoint(ws *Work, dst, src []float32, w, h int) {
 		ws.tmp = grow(ws.tmp, w*h)
 		ws.ext = grow(ws.ext, max(w+4*c.rx, h))
 		for y := 0; y < h; y++ {
-			rowAdj(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.adjX, c.rx, ws.ext, c.symX)
+			rowAdj(ws.tmp[y*w:(y+1)*w], src[y*w:(y+1)*w], c.adjX, c.rx, ws.ext, c.symX, !c.portable)
 		}
-		colAdj(dst, ws.tmp, w, h, c.adjY, c.ry)
+		colAdj(dst, ws.tmp, w, h, c.adjY, c.ry, !c.portable)
 	case convDirect:
 		c.directAdj(ws, dst, src, w, h)
 	case convFFT:
@@ -154,8 +168,16 @@ func (c *Operator) Adjoint(ws *Work, dst, src []float32, w, h int) {
 	}
 }
 
-// corr sets dst[x] = sum_t k[t] e[x+t] (len(e) >= len(dst)+len(k)-1).
-func corr(dst, e, k []float32, sym bool) {
+// corr sets dst[x] = sum_t k[t] e[x+t] (len(e) >= len(dst)+len(k)-1): the
+// vector kernel when fast is set and the CPU has one, else the scalar loops
+// below (which use the symmetry of sym kernels to halve the
+// multiplications).
+func corr(dst, e, k []float32, sym, fast bool) {
+	if fast && vec.Accelerated() {
+		var one [1]int
+		vec.Corr(dst, e, one[:], k, false)
+		return
+	}
 	n := len(k)
 	switch {
 	case sym && n == 3:
@@ -213,7 +235,7 @@ func corr(dst, e, k []float32, sym bool) {
 }
 
 // rowFwd: dst = V(E(src)) along one row.
-func rowFwd(dst, src, k []float32, r int, ext []float32, sym bool) {
+func rowFwd(dst, src, k []float32, r int, ext []float32, sym, fast bool) {
 	w := len(src)
 	e := ext[:w+2*r]
 	copy(e[r:], src)
@@ -221,11 +243,11 @@ func rowFwd(dst, src, k []float32, r int, ext []float32, sym bool) {
 		e[m] = src[raster.Mirror(m-r, w)]
 		e[w+r+m] = src[raster.Mirror(w+m, w)]
 	}
-	corr(dst, e, k, sym)
+	corr(dst, e, k, sym, fast)
 }
 
 // rowAdj: dst = E^T(V^T(src)) along one row.
-func rowAdj(dst, src, k []float32, r int, ext []float32, sym bool) {
+func rowAdj(dst, src, k []float32, r int, ext []float32, sym, fast bool) {
 	w := len(src)
 	// Zero-padded source of length w+4r, correlated into z of length w+2r.
 	gp := ext[:w+4*r]
@@ -235,7 +257,7 @@ func rowAdj(dst, src, k []float32, r int, ext []float32, sym bool) {
 	}
 	copy(gp[2*r:], src)
 	// z[m] for interior m = r..w+r-1 goes straight to dst[m-r].
-	corr(dst, gp[r:], k, sym)
+	corr(dst, gp[r:], k, sym, fast)
 	// Fold the 2r extension samples back.
 	for m := 0; m < r; m++ {
 		var zl, zr float32
@@ -248,43 +270,54 @@ func rowAdj(dst, src, k []float32, r int, ext []float32, sym bool) {
 	}
 }
 
-// axpy: y += a*x.
-func axpy(y []float32, a float32, x []float32) {
-	x = x[:len(y)]
-	for i := range y {
-		y[i] += a * x[i]
+// maxRows is the number of source rows one vec.Corr call sums; longer
+// kernels take several calls (the row offsets live on the stack).
+const maxRows = 32
+
+// corrRows sets dst (or adds to it, with add) to sum_j sum_c k[j*kw+c] *
+// src[row(j)+i+c] over the n source rows j (kw = len(k)/n), in order of j;
+// on the vector kernels when fast is set.
+func corrRows(dst, src []float32, n int, row func(j int) int, k []float32, add, fast bool) {
+	kw := len(k) / n
+	var offs [maxRows]int
+	for j0 := 0; j0 < n; j0 += maxRows {
+		m := min(maxRows, n-j0)
+		for j := range m {
+			offs[j] = row(j0 + j)
+		}
+		if fast {
+			vec.Corr(dst, src, offs[:m], k[j0*kw:(j0+m)*kw], add || j0 > 0)
+		} else {
+			vec.CorrPortable(dst, src, offs[:m], k[j0*kw:(j0+m)*kw], add || j0 > 0)
+		}
 	}
 }
 
-// colFwd: vertical pass of the forward operator, rows mirrored.
-func colFwd(dst, src []float32, w, h int, k []float32, r int) {
+// colFwd: vertical pass of the forward operator, rows mirrored: each
+// output row is the tap-weighted sum of its 2r+1 mirrored source rows.
+func colFwd(dst, src []float32, w, h int, k []float32, r int, fast bool) {
 	for y := 0; y < h; y++ {
-		out := dst[y*w : (y+1)*w]
-		for i := range out {
-			out[i] = 0
-		}
-		for t, kt := range k {
-			sy := raster.Mirror(y+t-r, h)
-			axpy(out, kt, src[sy*w:(sy+1)*w])
-		}
+		corrRows(dst[y*w:(y+1)*w], src, len(k), func(t int) int {
+			return raster.Mirror(y+t-r, h) * w
+		}, k, false, fast)
 	}
 }
 
-// colAdj: vertical pass of the adjoint: correlate zero-padded rows, fold.
-func colAdj(dst, src []float32, w, h int, k []float32, r int) {
-	for i := range dst[:w*h] {
-		dst[i] = 0
-	}
+// colAdj: vertical pass of the adjoint: correlate zero-padded rows (only
+// the taps that meet a source row), fold the 2r extension rows back onto
+// the rows they mirrored.
+func colAdj(dst, src []float32, w, h int, k []float32, r int, fast bool) {
+	clear(dst[:w*h])
 	for m := 0; m < h+2*r; m++ {
 		ty := raster.Mirror(m-r, h)
-		out := dst[ty*w : (ty+1)*w]
-		for t, kt := range k {
-			sy := m + t - 2*r
-			if sy < 0 || sy >= h {
-				continue
-			}
-			axpy(out, kt, src[sy*w:(sy+1)*w])
+		// Source row m+t-2r exists for t in [t0, t1).
+		t0, t1 := max(0, 2*r-m), min(len(k), h+2*r-m)
+		if t0 >= t1 {
+			continue
 		}
+		corrRows(dst[ty*w:(ty+1)*w], src, t1-t0, func(j int) int {
+			return (m + t0 + j - 2*r) * w
+		}, k[t0:t1], true, fast)
 	}
 }
 
@@ -301,17 +334,10 @@ func (c *Operator) directFwd(ws *Work, dst, src []float32, w, h int) {
 			e[w+c.rx+m] = row[raster.Mirror(w+m, w)]
 		}
 	}
-	ws.tmp = grow(ws.tmp, w)
 	for y := 0; y < h; y++ {
-		out := dst[y*w : (y+1)*w]
-		for i := range out {
-			out[i] = 0
-		}
-		for ty := 0; ty < c.kh; ty++ {
-			sy := raster.Mirror(y+ty-c.ry, h)
-			corr(ws.tmp[:w], ws.ext[sy*ew:(sy+1)*ew], c.fwd2[ty*c.kw:(ty+1)*c.kw], false)
-			axpy(out, 1, ws.tmp[:w])
-		}
+		corrRows(dst[y*w:(y+1)*w], ws.ext, c.kh, func(ty int) int {
+			return raster.Mirror(y+ty-c.ry, h) * ew
+		}, c.fwd2, false, !c.portable)
 	}
 }
 
@@ -330,20 +356,17 @@ func (c *Operator) directAdj(ws *Work, dst, src []float32, w, h int) {
 	}
 	ws.ext2 = grow(ws.ext2, zw*(h+2*c.ry))
 	z := ws.ext2
-	for i := range z {
-		z[i] = 0
-	}
-	ws.tmp = grow(ws.tmp, zw)
 	for m := 0; m < h+2*c.ry; m++ {
 		zr := z[m*zw : (m+1)*zw]
-		for ty := 0; ty < c.kh; ty++ {
-			sy := m + ty - 2*c.ry
-			if sy < 0 || sy >= h {
-				continue
-			}
-			corr(ws.tmp[:zw], ws.ext[sy*gw:(sy+1)*gw], c.adj2[ty*c.kw:(ty+1)*c.kw], false)
-			axpy(zr, 1, ws.tmp[:zw])
+		// Source row m+ty-2ry exists for ty in [t0, t1) (never empty).
+		t0, t1 := max(0, 2*c.ry-m), min(c.kh, h+2*c.ry-m)
+		if t0 >= t1 {
+			clear(zr)
+			continue
 		}
+		corrRows(zr, ws.ext, t1-t0, func(j int) int {
+			return (m + t0 + j - 2*c.ry) * gw
+		}, c.adj2[t0*c.kw:t1*c.kw], false, !c.portable)
 	}
 	for i := range dst[:w*h] {
 		dst[i] = 0

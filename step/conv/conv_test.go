@@ -7,7 +7,22 @@ import (
 
 	"limpid/psf"
 	"limpid/raster"
+	"limpid/step/internal/vec"
 )
+
+// bothPaths runs fn with the portable kernels forced and, on CPUs with the
+// vector kernels (package vec), with those: the operator-level checks must
+// hold on either path.
+func bothPaths(t *testing.T, fn func(t *testing.T)) {
+	t.Helper()
+	t.Cleanup(func() { vec.SetPortable(false) })
+	vec.SetPortable(true)
+	t.Run("portable", fn)
+	vec.SetPortable(false)
+	if vec.Accelerated() {
+		t.Run("vector", fn)
+	}
+}
 
 // naiveConv is the textbook definition: out(x,y) = sum h(dx,dy) in(m(x-dx), m(y-dy))
 // with half-sample symmetric reflection m, in float64.
@@ -74,14 +89,35 @@ func testKernels(t *testing.T) map[string]*psf.Kernel {
 		t.Fatal(err)
 	}
 	out["fft-asym11x9"] = kb
+	// Long separable kernel (37 taps: more source rows than one vec.Corr
+	// call takes, and a radius beyond the test planes' height).
+	g6, err := psf.GaussianIso(6)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["separable-gauss6"] = g6
+	// The tallest direct kernel (3 x 27 = directMaxTaps).
+	tall := make([]float64, 3*27)
+	for i := range tall {
+		tall[i] = r.Float64()
+	}
+	kt, err := psf.NewKernel(3, 27, tall)
+	if err != nil {
+		t.Fatal(err)
+	}
+	out["direct-asym3x27"] = kt
 	return out
 }
 
 // Source: definition of convolution with half-sample symmetric extension
 // (Martucci, IEEE TSP 42(5):1038, 1994), evaluated naively in float64.
-func TestConvMatchesDefinition(t *testing.T) {
+func TestConvMatchesDefinition(t *testing.T) { bothPaths(t, testConvMatchesDefinition) }
+
+func testConvMatchesDefinition(t *testing.T) {
 	// float32 accumulation over <= 99 taps of values in [0,1): relative 1e-5
-	// covers rounding (float32 epsilon 6e-8 times tap count, with margin).
+	// covers rounding (float32 epsilon 6e-8 times tap count, with margin;
+	// a fused multiply-add rounds once where mul+add rounds twice, which
+	// stays inside the same bound).
 	const tol = 1e-5
 	r := rand.New(rand.NewPCG(3, 4))
 	for name, k := range testKernels(t) {
@@ -104,7 +140,9 @@ func TestConvMatchesDefinition(t *testing.T) {
 
 // Source: definition of the adjoint, <H x, y> = <x, H^T y> (exact adjoint
 // needed by the EM identity of Shepp & Vardi 1982).
-func TestConvAdjoint(t *testing.T) {
+func TestConvAdjoint(t *testing.T) { bothPaths(t, testConvAdjoint) }
+
+func testConvAdjoint(t *testing.T) {
 	// Inner products of ~900 float32 products: relative 1e-5.
 	const tol = 1e-5
 	r := rand.New(rand.NewPCG(5, 6))
@@ -159,6 +197,41 @@ func TestSmoothingKernelVariance(t *testing.T) {
 		}
 		if math.Abs(s-1) > tol || math.Abs(v-eps*eps) > varTol {
 			t.Errorf("eps %g: sum %g variance %g", eps, s, v)
+		}
+	}
+}
+
+// TestPortableOperator: Portable() must give exactly the bits of the
+// operator with package vec's portable path forced (the machine-independent
+// results simulated scenes rely on), on every implementation that uses vec.
+func TestPortableOperator(t *testing.T) {
+	defer vec.SetPortable(false)
+	r := rand.New(rand.NewPCG(7, 8))
+	const w, h = 37, 23
+	for name, k := range testKernels(t) {
+		c := New(k)
+		src := randPlane(r, w*h)
+		var ws Work
+		for _, adjoint := range []bool{false, true} {
+			want, got := make([]float32, w*h), make([]float32, w*h)
+			op := c.Apply
+			if adjoint {
+				op = c.Adjoint
+			}
+			vec.SetPortable(true)
+			op(&ws, want, src, w, h)
+			vec.SetPortable(false)
+			p := c.Portable()
+			if adjoint {
+				p.Adjoint(&ws, got, src, w, h)
+			} else {
+				p.Apply(&ws, got, src, w, h)
+			}
+			for i := range got {
+				if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+					t.Fatalf("%s adjoint=%v: pixel %d Portable() %g, forced portable %g", name, adjoint, i, got[i], want[i])
+				}
+			}
 		}
 	}
 }

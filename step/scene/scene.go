@@ -144,11 +144,14 @@ type Sensor struct {
 }
 
 // Degrade blurs the reference with the PSF operator (half-sample symmetric
-// boundaries) and adds noise; invalid pixels are left at 0.
+// boundaries) and adds noise; invalid pixels are left at 0. The blur takes
+// the portable kernels (conv.Operator.Portable): the Poisson draws depend on
+// the blurred values' last bits, so a simulated scene (and the committed
+// fixtures made from one) is the same on every machine.
 func Degrade(ref []float32, valid []bool, w, h int, H *conv.Operator, nz Sensor, rng *rand.Rand) []float32 {
 	out := make([]float32, w*h)
 	var ws conv.Work
-	H.Apply(&ws, out, ref, w, h)
+	H.Portable().Apply(&ws, out, ref, w, h)
 	for i, v := range out {
 		if !valid[i] {
 			out[i] = 0

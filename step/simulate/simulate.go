@@ -346,6 +346,10 @@ type simulator struct {
 }
 
 func newSimulator(m raster.Meta, cfg *Config) *simulator {
+	// The portable kernels (conv.Operator.Portable): the noise draws depend
+	// on the blurred values' last bits, and a simulation with a given random
+	// stream key must give the same scene on every machine.
+	cfg.H = cfg.H.Portable()
 	s := &simulator{cfg: cfg, w: m.Width, h: m.Height, strip: cfg.Strip}
 	if s.strip <= 0 {
 		s.strip = DefaultStrip
