@@ -7,6 +7,7 @@ import (
 	"limpid/psf"
 	"limpid/step/conv"
 	"limpid/step/internal/plane"
+	"limpid/step/internal/vec"
 	"limpid/step/mix"
 	"limpid/step/noise"
 )
@@ -365,15 +366,7 @@ func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, 
 			}
 		}
 	}
-	for i := range pp {
-		den := pp[i] + b
-		if den > 0 && m[i] != 0 {
-			q[i] = d[i] / den
-			dq[i] = (delta[i] - q[i]*hu[i]) / den
-		} else {
-			q[i], dq[i] = 0, 0
-		}
-	}
+	vec.RatioJVP(q, dq, pp, d, m, delta, hu, b)
 	g.H.Adjoint(&ws.conv, ws.t, q, w, h)
 	g.H.Adjoint(&ws.conv, aw.dt, dq, w, h)
 	e, ue := fn, un
@@ -382,15 +375,7 @@ func (g *GridEMS) iterateJVP(ws *Workspace, aw *autoWork, p *Problem, f, fn, u, 
 	}
 	t, s, dt := ws.t[:n], ws.s[:n], aw.dt[:n]
 	e, ue = e[:n], ue[:n]
-	for i := range e {
-		if s[i] > sensitivityFloor {
-			e[i] = f[i] * t[i] / s[i]
-			ue[i] = (u[i]*t[i] + f[i]*dt[i]) / s[i]
-		} else {
-			e[i] = f[i]
-			ue[i] = u[i]
-		}
-	}
+	vec.UpdateJVP(e, ue, f, u, t, dt, s, sensitivityFloor)
 	if g.S != nil {
 		g.S.Apply(&ws.conv, fn, e, w, h)
 		g.S.Apply(&ws.conv, un, ue, w, h)
