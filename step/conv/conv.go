@@ -1,8 +1,6 @@
 package conv
 
 import (
-	"gonum.org/v1/gonum/dsp/fourier"
-
 	"limpid/psf"
 	"limpid/raster"
 )
@@ -362,164 +360,48 @@ func (c *Operator) directAdj(ws *Work, dst, src []float32, w, h int) {
 	}
 }
 
-// fftWork caches FFT plans, spectra and buffers for one padded size.
-type fftWork struct {
-	p, q    int // padded rows, cols
-	rowFFT  *fourier.FFT
-	colFFT  *fourier.CmplxFFT
-	spec    []complex128 // p x (q/2+1), row-major by rows
-	kfwd    []complex128
-	kadj    []complex128
-	rowIn   []float64
-	rowCoef []complex128
-	col     []complex128
-	colOut  []complex128
-	grid    []float64 // p x q
-	forConv *Operator
-	forW    int
-	forH    int
-}
-
-// goodSize returns the smallest n' >= n whose only prime factors are 2, 3, 5
-// (gonum v0.17's FFTPACK-based FFT is about 25x slower on prime sizes,
-// measured).
-func goodSize(n int) int {
-	for m := n; ; m++ {
-		v := m
-		for _, f := range []int{2, 3, 5} {
-			for v%f == 0 {
-				v /= f
-			}
-		}
-		if v == 1 {
-			return m
-		}
-	}
-}
-
-func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
-	if f := ws.fft; f != nil && f.forConv == c && f.forW == w && f.forH == h {
-		return f
-	}
-	p := goodSize(h + 4*c.ry)
-	q := goodSize(w + 4*c.rx)
-	nc := q/2 + 1
-	f := &fftWork{p: p, q: q, rowFFT: fourier.NewFFT(q), colFFT: fourier.NewCmplxFFT(p),
-		spec: make([]complex128, p*nc), kfwd: make([]complex128, p*nc), kadj: make([]complex128, p*nc),
-		rowIn: make([]float64, q), rowCoef: make([]complex128, nc), col: make([]complex128, p),
-		colOut: make([]complex128, p), grid: make([]float64, p*q), forConv: c, forW: w, forH: h}
-	// Kernel spectra: correlation with k is multiplication by conj(K).
-	for pass := 0; pass < 2; pass++ {
-		for i := range f.grid {
-			f.grid[i] = 0
-		}
-		for ty := 0; ty < c.kh; ty++ {
-			for tx := 0; tx < c.kw; tx++ {
-				v := c.kern.Data[ty*c.kw+tx] // h(tx-rx, ty-ry): adjoint taps
-				if pass == 0 {
-					v = c.kern.Data[(c.kh-1-ty)*c.kw+(c.kw-1-tx)] // reversed: forward taps
-				}
-				f.grid[ty*q+tx] = v
-			}
-		}
-		dst := f.kfwd
-		if pass == 1 {
-			dst = f.kadj
-		}
-		f.forward2D(dst)
-		for i := range dst {
-			dst[i] = complex(real(dst[i]), -imag(dst[i])) / complex(float64(p*q), 0)
-		}
-	}
-	ws.fft = f
-	return f
-}
-
-// forward2D transforms f.grid (p x q real) into dst (p x (q/2+1)).
-func (f *fftWork) forward2D(dst []complex128) {
-	nc := f.q/2 + 1
-	for y := 0; y < f.p; y++ {
-		f.rowFFT.Coefficients(f.rowCoef, f.grid[y*f.q:(y+1)*f.q])
-		copy(dst[y*nc:(y+1)*nc], f.rowCoef)
-	}
-	for x := 0; x < nc; x++ {
-		for y := 0; y < f.p; y++ {
-			f.col[y] = dst[y*nc+x]
-		}
-		f.colFFT.Coefficients(f.colOut, f.col)
-		for y := 0; y < f.p; y++ {
-			dst[y*nc+x] = f.colOut[y]
-		}
-	}
-}
-
-// inverse2D transforms src (p x (q/2+1)) back into f.grid (unnormalised).
-func (f *fftWork) inverse2D(src []complex128) {
-	nc := f.q/2 + 1
-	for x := 0; x < nc; x++ {
-		for y := 0; y < f.p; y++ {
-			f.col[y] = src[y*nc+x]
-		}
-		f.colFFT.Sequence(f.colOut, f.col)
-		for y := 0; y < f.p; y++ {
-			src[y*nc+x] = f.colOut[y]
-		}
-	}
-	for y := 0; y < f.p; y++ {
-		copy(f.rowCoef, src[y*nc:(y+1)*nc])
-		f.rowFFT.Sequence(f.grid[y*f.q:(y+1)*f.q], f.rowCoef)
-	}
-}
-
-// fftApply computes the forward or adjoint operator through the FFT on the
-// same extended/padded grids as the direct path.
+// fftApply computes the forward or adjoint operator through the float32 FFT
+// (fftconv.go) on the same extended/padded grids as the direct path.
 func (c *Operator) fftApply(ws *Work, dst, src []float32, w, h int, adjoint bool) {
 	f := c.fftSetup(ws, w, h)
-	for i := range f.grid {
-		f.grid[i] = 0
-	}
 	if !adjoint {
-		// Extended input (h+2ry) x (w+2rx) at the grid origin.
-		for m := 0; m < h+2*c.ry; m++ {
-			sy := raster.Mirror(m-c.ry, h)
-			row := f.grid[m*f.q:]
-			for n := 0; n < w+2*c.rx; n++ {
-				row[n] = float64(src[sy*w+raster.Mirror(n-c.rx, w)])
+		// Extended input (h+2ry) x (w+2rx), correlated with the forward taps.
+		ew, eh := w+2*c.rx, h+2*c.ry
+		ws.ext = grow(ws.ext, ew*eh)
+		for m := 0; m < eh; m++ {
+			row := src[raster.Mirror(m-c.ry, h)*w:][:w]
+			e := ws.ext[m*ew : (m+1)*ew]
+			copy(e[c.rx:], row)
+			for n := 0; n < c.rx; n++ {
+				e[n] = row[raster.Mirror(n-c.rx, w)]
+				e[w+c.rx+n] = row[raster.Mirror(w+n, w)]
 			}
 		}
-	} else {
-		// Zero-padded input: src at offset (2ry, 2rx).
-		for y := 0; y < h; y++ {
-			row := f.grid[(y+2*c.ry)*f.q+2*c.rx:]
-			for x := 0; x < w; x++ {
-				row[x] = float64(src[y*w+x])
-			}
-		}
-	}
-	f.forward2D(f.spec)
-	k := f.kfwd
-	if adjoint {
-		k = f.kadj
-	}
-	for i := range f.spec {
-		f.spec[i] *= k[i]
-	}
-	f.inverse2D(f.spec)
-	if !adjoint {
-		for y := 0; y < h; y++ {
-			for x := 0; x < w; x++ {
-				dst[y*w+x] = float32(f.grid[y*f.q+x])
-			}
-		}
+		f.correlate(dst[:w*h], h, w, ws.ext, eh, ew, f.kfwd, c.ry)
 		return
 	}
-	for i := range dst[:w*h] {
-		dst[i] = 0
+	// Zero-padded input (h+4ry) x (w+4rx), src at (2ry, 2rx), correlated
+	// with the adjoint taps into z (h+2ry) x (w+2rx), then folded back.
+	gw, gh := w+4*c.rx, h+4*c.ry
+	zw, zh := w+2*c.rx, h+2*c.ry
+	ws.ext = grow(ws.ext, gw*gh)
+	clear(ws.ext)
+	for y := 0; y < h; y++ {
+		copy(ws.ext[(y+2*c.ry)*gw+2*c.rx:], src[y*w:(y+1)*w])
 	}
-	for m := 0; m < h+2*c.ry; m++ {
-		ty := raster.Mirror(m-c.ry, h)
-		for n := 0; n < w+2*c.rx; n++ {
-			dst[ty*w+raster.Mirror(n-c.rx, w)] += float32(f.grid[m*f.q+n])
+	ws.ext2 = grow(ws.ext2, zw*zh)
+	z := ws.ext2
+	f.correlate(z, zh, zw, ws.ext, gh, gw, f.kadj, c.ry)
+	clear(dst[:w*h])
+	for m := 0; m < zh; m++ {
+		out := dst[raster.Mirror(m-c.ry, h)*w:][:w]
+		zr := z[m*zw : (m+1)*zw]
+		for x := 0; x < w; x++ {
+			out[x] += zr[x+c.rx]
+		}
+		for mx := 0; mx < c.rx; mx++ {
+			out[raster.Mirror(mx-c.rx, w)] += zr[mx]
+			out[raster.Mirror(w+mx, w)] += zr[w+c.rx+mx]
 		}
 	}
 }

@@ -1,0 +1,203 @@
+package conv
+
+// The FFT path of Operator: valid 2-D correlation of a real grid with the
+// kernel's forward or adjoint taps through the float32 FFT of fft32.go, on
+// the same extended (forward) and zero-padded (adjoint) grids as the direct
+// path, so Apply and Adjoint stay each other's exact transposes up to float32
+// rounding.
+//
+// Two real problems in one complex transform: the output rows are split in a
+// top and a bottom half; the top half's input rows go into the real part of
+// a complex grid and the bottom half's into the imaginary part. Correlation
+// with a real kernel is real-linear, so the real part of the result is the
+// top half's correlation and the imaginary part the bottom half's (the
+// two-for-one trick of real-data FFTs: Cooley, Lewis & Welch, J. Sound Vib.
+// 12(3):315, 1970, applied to the whole convolution instead of the
+// spectrum). A half needs its output rows plus 2 ry input rows, so the grid
+// has about h/2 + 3 ry rows instead of h + 4 ry.
+//
+// Circular correlation on a P x Q grid equals the valid correlation for the
+// output rows y < P - 2 ry and columns x < Q - 2 rx (no wrap-around), and
+// the DFT of a circular correlation with a real t is conj(T) times the DFT
+// of the input (correlation theorem, e.g. Bracewell, "The Fourier Transform
+// and Its Applications", 3rd ed., 2000, ch. 6).
+
+// fftBatch is the number of rows or columns transformed together (batch
+// width; measured: see DEVELOPERS.md "Large kernels").
+const fftBatch = 16
+
+// fftWork caches plans, kernel spectra and buffers for one tile size.
+type fftWork struct {
+	p, q       int // complex grid rows, columns
+	ho         int // output rows of the top half (adjoint: of z)
+	rows, cols *plan32
+	grid       []complex64 // p x q
+	blk, blk2  []complex64 // max(p, q) x fftBatch
+	kfwd, kadj []complex64 // conj(T) / (p q), p x q
+	forConv    *Operator
+	forW       int
+	forH       int
+}
+
+// fftSize is the smallest 2^a 3^b 5^c at least n.
+func fftSize(n int) int {
+	for m := max(n, 1); ; m++ {
+		if smooth235(m) {
+			return m
+		}
+	}
+}
+
+func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
+	if f := ws.fft; f != nil && f.forConv == c && f.forW == w && f.forH == h {
+		return f
+	}
+	// The adjoint's output z has h + 2 ry rows and w + 2 rx columns, its
+	// input 2 ry rows and 2 rx columns more: the larger of the two problems.
+	ho := (h + 2*c.ry + 1) / 2
+	p := fftSize(ho + 2*c.ry)
+	q := fftSize(w + 4*c.rx)
+	f := &fftWork{p: p, q: q, ho: ho, rows: newPlan32(q), cols: newPlan32(p),
+		grid: make([]complex64, p*q), blk: make([]complex64, max(p, q)*fftBatch),
+		blk2: make([]complex64, max(p, q)*fftBatch), kfwd: make([]complex64, p*q),
+		kadj: make([]complex64, p*q), forConv: c, forW: w, forH: h}
+	scale := 1 / float64(p*q)
+	for pass := 0; pass < 2; pass++ {
+		clear(f.grid)
+		for ty := 0; ty < c.kh; ty++ {
+			for tx := 0; tx < c.kw; tx++ {
+				v := c.kern.Data[ty*c.kw+tx] // adjoint taps: h(tx-rx, ty-ry)
+				if pass == 0 {
+					v = c.kern.Data[(c.kh-1-ty)*c.kw+(c.kw-1-tx)] // forward taps (reversed)
+				}
+				f.grid[ty*q+tx] = complex(float32(v), 0)
+			}
+		}
+		f.rowPass(c.kh, false)
+		dst := f.kfwd
+		if pass == 1 {
+			dst = f.kadj
+		}
+		for c0 := 0; c0 < q; c0 += fftBatch {
+			nb := min(fftBatch, q-c0)
+			b := f.gatherCols(c0, nb)
+			b = f.cols.transform(b, f.other(b), nb, false)
+			for r := 0; r < p; r++ {
+				for j := 0; j < nb; j++ {
+					v := b[r*nb+j]
+					dst[r*q+c0+j] = complex(float32(float64(real(v))*scale), float32(-float64(imag(v))*scale))
+				}
+			}
+		}
+	}
+	ws.fft = f
+	return f
+}
+
+// other returns the scratch block that b is not.
+func (f *fftWork) other(b []complex64) []complex64 {
+	if &b[0] == &f.blk[0] {
+		return f.blk2
+	}
+	return f.blk
+}
+
+// rowPass transforms rows [0, n) of the grid in place, nb at a time.
+func (f *fftWork) rowPass(n int, inverse bool) {
+	q := f.q
+	for r0 := 0; r0 < n; r0 += fftBatch {
+		nb := min(fftBatch, n-r0)
+		b := f.blk[:q*nb]
+		for j := 0; j < nb; j++ {
+			row := f.grid[(r0+j)*q : (r0+j+1)*q]
+			for x, v := range row {
+				b[x*nb+j] = v
+			}
+		}
+		b = f.rows.transform(b, f.blk2, nb, inverse)
+		for j := 0; j < nb; j++ {
+			row := f.grid[(r0+j)*q : (r0+j+1)*q]
+			for x := range row {
+				row[x] = b[x*nb+j]
+			}
+		}
+	}
+}
+
+// gatherCols copies columns [c0, c0+nb) of the grid into f.blk (p x nb).
+func (f *fftWork) gatherCols(c0, nb int) []complex64 {
+	b := f.blk[:f.p*nb]
+	for r := 0; r < f.p; r++ {
+		copy(b[r*nb:(r+1)*nb], f.grid[r*f.q+c0:r*f.q+c0+nb])
+	}
+	return b
+}
+
+// correlate sets out (rout x cout, row stride cout) to the valid correlation
+// of in (rin = rout + 2 ry rows, cin columns, row stride cin) with the taps
+// whose scaled conjugate spectrum is k.
+func (f *fftWork) correlate(out []float32, rout, cout int, in []float32, rin, cin int, k []complex64, ry int) {
+	p, q := f.p, f.q
+	ho := (rout + 1) / 2
+	nz := min(ho+2*ry, rin) // grid rows holding data
+	for r := 0; r < nz; r++ {
+		row := f.grid[r*q : (r+1)*q]
+		top := in[r*cin : (r+1)*cin]
+		if br := ho + r; br < rin {
+			bot := in[br*cin : (br+1)*cin]
+			for x := range top {
+				row[x] = complex(top[x], bot[x])
+			}
+		} else {
+			for x := range top {
+				row[x] = complex(top[x], 0)
+			}
+		}
+		clear(row[cin:])
+	}
+	clear(f.grid[nz*q:])
+	f.rowPass(nz, false)
+	// Columns: forward transform, multiply by the kernel spectrum, inverse,
+	// all while the block is in cache.
+	for c0 := 0; c0 < q; c0 += fftBatch {
+		nb := min(fftBatch, q-c0)
+		b := f.gatherCols(c0, nb)
+		b = f.cols.transform(b, f.other(b), nb, false)
+		for r := 0; r < p; r++ {
+			br := b[r*nb : (r+1)*nb]
+			kr := k[r*q+c0 : r*q+c0+nb]
+			for j := range br {
+				br[j] = cmul(br[j], kr[j])
+			}
+		}
+		b = f.cols.transform(b, f.other(b), nb, true)
+		for r := 0; r < p; r++ {
+			copy(f.grid[r*q+c0:r*q+c0+nb], b[r*nb:(r+1)*nb])
+		}
+	}
+	// Inverse rows: only the ho output rows, written straight to out.
+	for r0 := 0; r0 < ho; r0 += fftBatch {
+		nb := min(fftBatch, ho-r0)
+		b := f.blk[:q*nb]
+		for j := 0; j < nb; j++ {
+			row := f.grid[(r0+j)*q : (r0+j+1)*q]
+			for x, v := range row {
+				b[x*nb+j] = v
+			}
+		}
+		b = f.rows.transform(b, f.blk2, nb, true)
+		for j := 0; j < nb; j++ {
+			r := r0 + j
+			top := out[r*cout : (r+1)*cout]
+			for x := range top {
+				top[x] = real(b[x*nb+j])
+			}
+			if br := ho + r; br < rout {
+				bot := out[br*cout : (br+1)*cout]
+				for x := range bot {
+					bot[x] = imag(b[x*nb+j])
+				}
+			}
+		}
+	}
+}
