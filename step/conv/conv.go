@@ -50,16 +50,20 @@ type Operator struct {
 }
 
 // New chooses the implementation for a kernel: separable when the kernel
-// is rank one, direct for small kernels, FFT otherwise.
+// is rank one, else direct or FFT by the measured cost rule of route.go.
 func New(k *psf.Kernel) *Operator {
-	c := &Operator{rx: k.Rx(), ry: k.Ry(), kw: k.W, kh: k.H, kern: k}
-	switch {
-	case k.Separable():
-		c.kind = convSeparable
+	return newKind(k, chooseKind(k))
+}
+
+// newKind builds the operator for k with the given implementation
+// (convSeparable needs a separable k).
+func newKind(k *psf.Kernel, kind convKind) *Operator {
+	c := &Operator{kind: kind, rx: k.Rx(), ry: k.Ry(), kw: k.W, kh: k.H, kern: k}
+	switch kind {
+	case convSeparable:
 		c.fwdX, c.adjX, c.symX = taps1(k.X)
 		c.fwdY, c.adjY, c.symY = taps1(k.Y)
-	case k.W*k.H <= directMaxTaps:
-		c.kind = convDirect
+	case convDirect:
 		c.fwd2 = make([]float32, k.W*k.H)
 		c.adj2 = make([]float32, k.W*k.H)
 		n := len(k.Data)
@@ -67,8 +71,6 @@ func New(k *psf.Kernel) *Operator {
 			c.adj2[i] = float32(v)
 			c.fwd2[n-1-i] = float32(v)
 		}
-	default:
-		c.kind = convFFT
 	}
 	return c
 }
