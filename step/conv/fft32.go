@@ -109,6 +109,13 @@ func (p *plan32) transform(x, y []complex64, nb int, inverse bool) []complex64 {
 
 // stage2: radix 2, sb = s nb contiguous values per element.
 func stage2(x, y []complex64, m, sb int, tw []complex64) {
+	if useAVX && sb%4 == 0 {
+		_, _ = x[2*m*sb-1], y[2*m*sb-1] // the assembly's extent
+		for p := 0; p < m; p++ {
+			stage2AVX(&x[p*sb], m*sb*8, &y[2*p*sb], sb, &tw[p])
+		}
+		return
+	}
 	for p := 0; p < m; p++ {
 		a0 := x[p*sb : p*sb+sb]
 		a1 := x[(p+m)*sb : (p+m)*sb+sb]
@@ -138,6 +145,21 @@ func cmul(a, b complex64) complex64 {
 	return complex(ar*br-ai*bi, ar*bi+ai*br)
 }
 
+// cmulSlice sets b[i] *= k[i] (len(k) >= len(b)).
+func cmulSlice(b, k []complex64) {
+	k = k[:len(b)]
+	n := 0
+	if useAVX {
+		n = len(b) &^ 3
+		if n > 0 {
+			cmulAVX(&b[0], &k[0], n)
+		}
+	}
+	for i := n; i < len(b); i++ {
+		b[i] = cmul(b[i], k[i])
+	}
+}
+
 // mulI returns i a (inverse) or -i a (forward).
 func mulI(a complex64, inverse bool) complex64 {
 	if inverse {
@@ -146,7 +168,25 @@ func mulI(a complex64, inverse bool) complex64 {
 	return complex(imag(a), -real(a))
 }
 
+// Sign masks of stage4AVX: after swapping (re, im), negate the imaginary
+// lanes (forward: -i a) or the real lanes (inverse: +i a).
+var (
+	maskFwd = [8]uint32{0, 1 << 31, 0, 1 << 31, 0, 1 << 31, 0, 1 << 31}
+	maskInv = [8]uint32{1 << 31, 0, 1 << 31, 0, 1 << 31, 0, 1 << 31, 0}
+)
+
 func stage4(x, y []complex64, m, sb int, tw []complex64, inverse bool) {
+	if useAVX && sb%4 == 0 {
+		_, _ = x[4*m*sb-1], y[4*m*sb-1] // the assembly's extent
+		mask := &maskFwd
+		if inverse {
+			mask = &maskInv
+		}
+		for p := 0; p < m; p++ {
+			stage4AVX(&x[p*sb], m*sb*8, &y[4*p*sb], sb, &tw[3*p], mask)
+		}
+		return
+	}
 	for p := 0; p < m; p++ {
 		a0 := x[p*sb : p*sb+sb]
 		a1 := x[(p+m)*sb : (p+m)*sb+sb]

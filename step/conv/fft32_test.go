@@ -112,3 +112,38 @@ func TestFFTSize(t *testing.T) {
 		}
 	}
 }
+
+// Source: the same DFT definition as TestFFT32MatchesDFT, for the portable
+// Go butterflies (the vector kernels are skipped) against the vector ones:
+// both must agree with each other to float32 rounding.
+func TestFFT32PortableMatchesVector(t *testing.T) {
+	// Different operation order (the assembly's complex product is
+	// addsub(x wr, swap(x) wi)): a few float32 ulps per stage, relative to
+	// the output rms sqrt(n/6); 8e-6 sqrt(n) as in TestFFT32MatchesDFT.
+	const tol = 8e-6
+	if !useAVX {
+		t.Skip("no vector kernels on this machine: the portable path is what TestFFT32MatchesDFT checked")
+	}
+	r := rand.New(rand.NewPCG(15, 16))
+	for _, n := range []int{4, 8, 16, 60, 64, 640} {
+		p := newPlan32(n)
+		for _, nb := range []int{1, 4, 16} {
+			for _, inv := range []bool{false, true} {
+				x := randComplex(r, n*nb)
+				k := randComplex(r, n*nb)
+				a, b := append([]complex64(nil), x...), append([]complex64(nil), x...)
+				va := p.transform(a, make([]complex64, n*nb), nb, inv)
+				cmulSlice(va, k)
+				useAVX = false
+				gb := p.transform(b, make([]complex64, n*nb), nb, inv)
+				cmulSlice(gb, k)
+				useAVX = true
+				for i := range va {
+					if e := cmplx.Abs(complex128(va[i] - gb[i])); e > tol*math.Sqrt(float64(n)) {
+						t.Fatalf("n=%d nb=%d inverse=%v: value %d vector %v, portable %v", n, nb, inv, i, va[i], gb[i])
+					}
+				}
+			}
+		}
+	}
+}

@@ -33,7 +33,9 @@ type fftWork struct {
 	rows, cols *plan32
 	grid       []complex64 // p x q
 	blk, blk2  []complex64 // max(p, q) x fftBatch
-	kfwd, kadj []complex64 // conj(T) / (p q), p x q
+	// conj(T) / (p q) in column blocks: block c0 (fftBatch columns, fewer
+	// in the last) holds p x nb values from offset c0 p, row-major.
+	kfwd, kadj []complex64
 	forConv    *Operator
 	forW       int
 	forH       int
@@ -48,6 +50,32 @@ func fftSize(n int) int {
 	}
 }
 
+// fftCost estimates the work of one length-n transform: n times the sum of
+// its stages' per-point costs (float operations of the butterfly and
+// twiddle products plus a pass over the data; counted from stage2..stage5).
+func fftCost(n int) float64 {
+	perPoint := map[int]float64{4: 10.5, 2: 7, 3: 11.3, 5: 16.4}
+	var c float64
+	for _, st := range newPlan32(n).stages {
+		c += perPoint[st.r]
+	}
+	return float64(n) * c
+}
+
+// fftGoodSize is the 2^a 3^b 5^c length at least n (and below 5n/4) of
+// least fftCost: 640 = 4^3 2 5 rather than 625 = 5^4.
+func fftGoodSize(n int) int {
+	best, bc := fftSize(n), fftCost(fftSize(n))
+	for m := best + 1; m < n+n/4; m++ {
+		if smooth235(m) {
+			if c := fftCost(m); c < bc {
+				best, bc = m, c
+			}
+		}
+	}
+	return best
+}
+
 func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	if f := ws.fft; f != nil && f.forConv == c && f.forW == w && f.forH == h {
 		return f
@@ -55,8 +83,8 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	// The adjoint's output z has h + 2 ry rows and w + 2 rx columns, its
 	// input 2 ry rows and 2 rx columns more: the larger of the two problems.
 	ho := (h + 2*c.ry + 1) / 2
-	p := fftSize(ho + 2*c.ry)
-	q := fftSize(w + 4*c.rx)
+	p := fftGoodSize(ho + 2*c.ry)
+	q := fftGoodSize(w + 4*c.rx)
 	f := &fftWork{p: p, q: q, ho: ho, rows: newPlan32(q), cols: newPlan32(p),
 		grid: make([]complex64, p*q), blk: make([]complex64, max(p, q)*fftBatch),
 		blk2: make([]complex64, max(p, q)*fftBatch), kfwd: make([]complex64, p*q),
@@ -85,7 +113,7 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 			for r := 0; r < p; r++ {
 				for j := 0; j < nb; j++ {
 					v := b[r*nb+j]
-					dst[r*q+c0+j] = complex(float32(float64(real(v))*scale), float32(-float64(imag(v))*scale))
+					dst[c0*p+r*nb+j] = complex(float32(float64(real(v))*scale), float32(-float64(imag(v))*scale))
 				}
 			}
 		}
@@ -163,13 +191,7 @@ func (f *fftWork) correlate(out []float32, rout, cout int, in []float32, rin, ci
 		nb := min(fftBatch, q-c0)
 		b := f.gatherCols(c0, nb)
 		b = f.cols.transform(b, f.other(b), nb, false)
-		for r := 0; r < p; r++ {
-			br := b[r*nb : (r+1)*nb]
-			kr := k[r*q+c0 : r*q+c0+nb]
-			for j := range br {
-				br[j] = cmul(br[j], kr[j])
-			}
-		}
+		cmulSlice(b[:p*nb], k[c0*p:c0*p+p*nb])
 		b = f.cols.transform(b, f.other(b), nb, true)
 		for r := 0; r < p; r++ {
 			copy(f.grid[r*q+c0:r*q+c0+nb], b[r*nb:(r+1)*nb])
