@@ -222,6 +222,17 @@ func stage4(x, y []complex64, m, sb int, tw []complex64, inverse bool) {
 
 func stage3(x, y []complex64, m, sb int, tw []complex64, inverse bool) {
 	const h = 0.86602540378443864676 // sqrt(3)/2
+	if useAVX && sb%4 == 0 {
+		_, _ = x[3*m*sb-1], y[3*m*sb-1] // the assembly's extent
+		mask, c := &maskFwd, &[4]float32{0.5, h}
+		if inverse {
+			mask = &maskInv
+		}
+		for p := 0; p < m; p++ {
+			stage3AVX(&x[p*sb], m*sb*8, &y[3*p*sb], sb, &tw[2*p], mask, c)
+		}
+		return
+	}
 	for p := 0; p < m; p++ {
 		a0 := x[p*sb : p*sb+sb]
 		a1 := x[(p+m)*sb : (p+m)*sb+sb]
@@ -247,6 +258,17 @@ func stage5(x, y []complex64, m, sb int, tw []complex64, inverse bool) {
 	// w_5^k for k = 1, 2 (cos and sin in float64, rounded once).
 	c1, c2 := float32(math.Cos(2*math.Pi/5)), float32(math.Cos(4*math.Pi/5))
 	s1, s2 := float32(math.Sin(2*math.Pi/5)), float32(math.Sin(4*math.Pi/5))
+	if useAVX && sb%4 == 0 {
+		_, _ = x[5*m*sb-1], y[5*m*sb-1] // the assembly's extent
+		mask, c := &maskFwd, &[4]float32{c1, c2, s1, s2}
+		if inverse {
+			mask = &maskInv
+		}
+		for p := 0; p < m; p++ {
+			stage5AVX(&x[p*sb], m*sb*8, &y[5*p*sb], sb, &tw[4*p], mask, c)
+		}
+		return
+	}
 	for p := 0; p < m; p++ {
 		a0 := x[p*sb : p*sb+sb]
 		a1 := x[(p+m)*sb : (p+m)*sb+sb]

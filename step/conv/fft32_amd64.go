@@ -14,3 +14,9 @@ func stage2AVX(src *complex64, stride int, dst *complex64, n int, w *complex64)
 
 //go:noescape
 func cmulAVX(b, k *complex64, n int)
+
+//go:noescape
+func stage3AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32)
+
+//go:noescape
+func stage5AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32)

@@ -136,3 +136,146 @@ loopm:
 	JNZ       loopm
 	VZEROUPPER
 	RET
+
+// CMULW multiplies X in place by the complex scalar at off(AX), using Y8,
+// Y9, Y10 as scratch.
+#define CMULW(off, X) \
+	VBROADCASTSS off(AX), Y8 \
+	VBROADCASTSS off+4(AX), Y9 \
+	VPERMILPS    $0xB1, X, Y10 \
+	VMULPS       Y9, Y10, Y10 \
+	VMULPS       Y8, X, X \
+	VADDSUBPS    Y10, X, X
+
+// func stage3AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32)
+//
+// One radix-3 butterfly group (stage3): c[0] = 1/2, c[1] = sqrt(3)/2;
+// b0 = a0 + t, b1 = (a0 - t/2 + u) w[0], b2 = (a0 - t/2 - u) w[1] with
+// t = a1 + a2 and u = -+i sqrt(3)/2 (a1 - a2).
+TEXT ·stage3AVX(SB), NOSPLIT, $0-56
+	MOVQ         src+0(FP), SI
+	MOVQ         stride+8(FP), R8
+	MOVQ         dst+16(FP), DI
+	MOVQ         n+24(FP), CX
+	MOVQ         w+32(FP), AX
+	MOVQ         mask+40(FP), BX
+	MOVQ         c+48(FP), DX
+	VMOVUPS      (BX), Y15
+	VBROADCASTSS 0(DX), Y13
+	VBROADCASTSS 4(DX), Y14
+	LEAQ         (SI)(R8*1), R9
+	LEAQ         (R9)(R8*1), R10
+	MOVQ         CX, DX
+	SHLQ         $3, DX
+	LEAQ         (DI)(DX*1), R12
+	LEAQ         (R12)(DX*1), R13
+	XORQ         BX, BX
+	SHRQ         $2, CX
+
+loop3:
+	VMOVUPS   (SI)(BX*1), Y0
+	VMOVUPS   (R9)(BX*1), Y1
+	VMOVUPS   (R10)(BX*1), Y2
+	VADDPS    Y2, Y1, Y3
+	VSUBPS    Y2, Y1, Y1
+	VADDPS    Y3, Y0, Y4
+	VMOVUPS   Y4, (DI)(BX*1)
+	VMULPS    Y13, Y3, Y3
+	VSUBPS    Y3, Y0, Y0
+	VMULPS    Y14, Y1, Y1
+	VPERMILPS $0xB1, Y1, Y1
+	VXORPS    Y15, Y1, Y1
+	VADDPS    Y1, Y0, Y2
+	CMULW(0, Y2)
+	VMOVUPS   Y2, (R12)(BX*1)
+	VSUBPS    Y1, Y0, Y0
+	CMULW(8, Y0)
+	VMOVUPS   Y0, (R13)(BX*1)
+	ADDQ      $32, BX
+	DECQ      CX
+	JNZ       loop3
+	VZEROUPPER
+	RET
+
+// func stage5AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32)
+//
+// One radix-5 butterfly group (stage5): c = {cos 2pi/5, cos 4pi/5, sin 2pi/5,
+// sin 4pi/5}; with s14 = a1 + a4, d14 = a1 - a4, s23 = a2 + a3, d23 = a2 - a3:
+// r1 = a0 + c0 s14 + c1 s23, r2 = a0 + c1 s14 + c0 s23,
+// i1 = -+i (c2 d14 + c3 d23), i2 = -+i (c3 d14 - c2 d23);
+// b0 = a0 + s14 + s23, b1 = (r1 + i1) w[0], b4 = (r1 - i1) w[3],
+// b2 = (r2 + i2) w[1], b3 = (r2 - i2) w[2].
+TEXT ·stage5AVX(SB), NOSPLIT, $0-56
+	MOVQ         src+0(FP), SI
+	MOVQ         stride+8(FP), R8
+	MOVQ         dst+16(FP), DI
+	MOVQ         n+24(FP), CX
+	MOVQ         w+32(FP), AX
+	MOVQ         mask+40(FP), BX
+	MOVQ         c+48(FP), DX
+	VMOVUPS      (BX), Y15
+	VBROADCASTSS 0(DX), Y12
+	VBROADCASTSS 4(DX), Y13
+	VBROADCASTSS 8(DX), Y14
+	VBROADCASTSS 12(DX), Y11
+	LEAQ         (SI)(R8*1), R9
+	LEAQ         (R9)(R8*1), R10
+	LEAQ         (R10)(R8*1), R11
+	LEAQ         (R11)(R8*1), R15
+	MOVQ         CX, DX
+	SHLQ         $3, DX
+	LEAQ         (DI)(DX*1), R12
+	LEAQ         (R12)(DX*1), R13
+	LEAQ         (R13)(DX*1), R14
+	LEAQ         (R14)(DX*1), DX
+	XORQ         BX, BX
+	SHRQ         $2, CX
+
+loop5:
+	VMOVUPS   (SI)(BX*1), Y0
+	VMOVUPS   (R9)(BX*1), Y1
+	VMOVUPS   (R10)(BX*1), Y2
+	VMOVUPS   (R11)(BX*1), Y3
+	VMOVUPS   (R15)(BX*1), Y4
+	VADDPS    Y4, Y1, Y5
+	VSUBPS    Y4, Y1, Y1
+	VADDPS    Y3, Y2, Y6
+	VSUBPS    Y3, Y2, Y2
+	VADDPS    Y5, Y0, Y7
+	VADDPS    Y6, Y7, Y7
+	VMOVUPS   Y7, (DI)(BX*1)
+	VMULPS    Y12, Y5, Y3
+	VMULPS    Y13, Y6, Y4
+	VADDPS    Y4, Y3, Y3
+	VADDPS    Y0, Y3, Y3
+	VMULPS    Y13, Y5, Y5
+	VMULPS    Y12, Y6, Y6
+	VADDPS    Y6, Y5, Y5
+	VADDPS    Y0, Y5, Y5
+	VMULPS    Y14, Y1, Y6
+	VMULPS    Y11, Y2, Y7
+	VADDPS    Y7, Y6, Y6
+	VPERMILPS $0xB1, Y6, Y6
+	VXORPS    Y15, Y6, Y6
+	VMULPS    Y11, Y1, Y1
+	VMULPS    Y14, Y2, Y2
+	VSUBPS    Y2, Y1, Y1
+	VPERMILPS $0xB1, Y1, Y1
+	VXORPS    Y15, Y1, Y1
+	VADDPS    Y6, Y3, Y0
+	CMULW(0, Y0)
+	VMOVUPS   Y0, (R12)(BX*1)
+	VSUBPS    Y6, Y3, Y3
+	CMULW(24, Y3)
+	VMOVUPS   Y3, (DX)(BX*1)
+	VADDPS    Y1, Y5, Y0
+	CMULW(8, Y0)
+	VMOVUPS   Y0, (R13)(BX*1)
+	VSUBPS    Y1, Y5, Y5
+	CMULW(16, Y5)
+	VMOVUPS   Y5, (R14)(BX*1)
+	ADDQ      $32, BX
+	DECQ      CX
+	JNZ       loop5
+	VZEROUPPER
+	RET

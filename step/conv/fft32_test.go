@@ -48,7 +48,7 @@ func TestFFT32MatchesDFT(t *testing.T) {
 	r := rand.New(rand.NewPCG(11, 12))
 	for _, n := range fftSizes {
 		p := newPlan32(n)
-		for _, nb := range []int{1, 3} {
+		for _, nb := range []int{1, 3, 4} {
 			for _, inv := range []bool{false, true} {
 				x := randComplex(r, n*nb)
 				a := append([]complex64(nil), x...)
@@ -125,7 +125,7 @@ func TestFFT32PortableMatchesVector(t *testing.T) {
 		t.Skip("no vector kernels on this machine: the portable path is what TestFFT32MatchesDFT checked")
 	}
 	r := rand.New(rand.NewPCG(15, 16))
-	for _, n := range []int{4, 8, 16, 60, 64, 640} {
+	for _, n := range []int{3, 4, 5, 8, 9, 15, 16, 25, 60, 64, 75, 640} {
 		p := newPlan32(n)
 		for _, nb := range []int{1, 4, 16} {
 			for _, inv := range []bool{false, true} {
