@@ -85,10 +85,24 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	ho := (h + 2*c.ry + 1) / 2
 	p := fftGoodSize(ho + 2*c.ry)
 	q := fftGoodSize(w + 4*c.rx)
-	f := &fftWork{p: p, q: q, ho: ho, rows: newPlan32(q), cols: newPlan32(p),
-		grid: make([]complex64, p*q), blk: make([]complex64, max(p, q)*fftBatch),
-		blk2: make([]complex64, max(p, q)*fftBatch), kfwd: make([]complex64, p*q),
-		kadj: make([]complex64, p*q), forConv: c, forW: w, forH: h}
+	// A new tile size reuses the previous buffers (tiles at the image's
+	// edges are smaller: workers alternate between a few sizes).
+	f := ws.fft
+	if f == nil {
+		f = &fftWork{}
+	}
+	if f.rows == nil || f.rows.n != q {
+		f.rows = newPlan32(q)
+	}
+	if f.cols == nil || f.cols.n != p {
+		f.cols = newPlan32(p)
+	}
+	f.p, f.q, f.ho, f.forConv, f.forW, f.forH = p, q, ho, c, w, h
+	f.grid = growC(f.grid, p*q)
+	f.kfwd = growC(f.kfwd, p*q)
+	f.kadj = growC(f.kadj, p*q)
+	f.blk = growC(f.blk, max(p, q)*fftBatch)
+	f.blk2 = growC(f.blk2, max(p, q)*fftBatch)
 	scale := 1 / float64(p*q)
 	for pass := 0; pass < 2; pass++ {
 		clear(f.grid)
@@ -120,6 +134,13 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	}
 	ws.fft = f
 	return f
+}
+
+func growC(b []complex64, n int) []complex64 {
+	if cap(b) < n {
+		return make([]complex64, n)
+	}
+	return b[:n]
 }
 
 // other returns the scratch block that b is not.
