@@ -371,46 +371,13 @@ func (c *Operator) directAdj(ws *Work, dst, src []float32, w, h int) {
 // (fftconv.go) on the same extended/padded grids as the direct path.
 func (c *Operator) fftApply(ws *Work, dst, src []float32, w, h int, adjoint bool) {
 	f := c.fftSetup(ws, w, h)
+	io := corrIO{adjoint: adjoint, src: src[:w*h], dst: dst[:w*h], w: w, h: h, rx: c.rx, ry: c.ry}
 	if !adjoint {
-		// Extended input (h+2ry) x (w+2rx), correlated with the forward taps.
-		ew, eh := w+2*c.rx, h+2*c.ry
-		ws.ext = grow(ws.ext, ew*eh)
-		for m := 0; m < eh; m++ {
-			row := src[raster.Mirror(m-c.ry, h)*w:][:w]
-			e := ws.ext[m*ew : (m+1)*ew]
-			copy(e[c.rx:], row)
-			for n := 0; n < c.rx; n++ {
-				e[n] = row[raster.Mirror(n-c.rx, w)]
-				e[w+c.rx+n] = row[raster.Mirror(w+n, w)]
-			}
-		}
-		f.correlate(dst[:w*h], h, w, ws.ext, eh, ew, f.kfwd, c.ry)
+		f.correlate(&io, h+2*c.ry, w+2*c.rx, h, w, f.kfwd)
 		return
 	}
-	// Zero-padded input (h+4ry) x (w+4rx), src at (2ry, 2rx), correlated
-	// with the adjoint taps into z (h+2ry) x (w+2rx), then folded back.
-	gw, gh := w+4*c.rx, h+4*c.ry
-	zw, zh := w+2*c.rx, h+2*c.ry
-	ws.ext = grow(ws.ext, gw*gh)
-	clear(ws.ext)
-	for y := 0; y < h; y++ {
-		copy(ws.ext[(y+2*c.ry)*gw+2*c.rx:], src[y*w:(y+1)*w])
-	}
-	ws.ext2 = grow(ws.ext2, zw*zh)
-	z := ws.ext2
-	f.correlate(z, zh, zw, ws.ext, gh, gw, f.kadj, c.ry)
-	clear(dst[:w*h])
-	for m := 0; m < zh; m++ {
-		out := dst[raster.Mirror(m-c.ry, h)*w:][:w]
-		zr := z[m*zw : (m+1)*zw]
-		for x := 0; x < w; x++ {
-			out[x] += zr[x+c.rx]
-		}
-		for mx := 0; mx < c.rx; mx++ {
-			out[raster.Mirror(mx-c.rx, w)] += zr[mx]
-			out[raster.Mirror(w+mx, w)] += zr[w+c.rx+mx]
-		}
-	}
+	clear(io.dst)
+	f.correlate(&io, h+4*c.ry, w+4*c.rx, h+2*c.ry, w+2*c.rx, f.kadj)
 }
 
 // SmoothingKernel returns the 1-D smoothing kernel of EMS for bandwidth eps

@@ -1,5 +1,7 @@
 package conv
 
+import "limpid/raster"
+
 // The FFT path of Operator: valid 2-D correlation of a real grid with the
 // kernel's forward or adjoint taps through the float32 FFT of fft32.go, on
 // the same extended (forward) and zero-padded (adjoint) grids as the direct
@@ -36,6 +38,7 @@ type fftWork struct {
 	// conj(T) / (p q) in column blocks: block c0 (fftBatch columns, fewer
 	// in the last) holds p x nb values from offset c0 p, row-major.
 	kfwd, kadj []complex64
+	top, bot   []float32 // one input or output row each
 	forConv    *Operator
 	forW       int
 	forH       int
@@ -182,18 +185,72 @@ func (f *fftWork) gatherCols(c0, nb int) []complex64 {
 	return b
 }
 
-// correlate sets out (rout x cout, row stride cout) to the valid correlation
-// of in (rin = rout + 2 ry rows, cin columns, row stride cin) with the taps
-// whose scaled conjugate spectrum is k.
-func (f *fftWork) correlate(out []float32, rout, cout int, in []float32, rin, cin int, k []complex64, ry int) {
-	p, q := f.p, f.q
+// corrIO reads the FFT path's input rows and takes its output rows.
+// Forward: input row m of (h + 2 ry) x (w + 2 rx) is the half-sample
+// symmetric extension of src, output row y goes to dst. Adjoint: input row m
+// of (h + 4 ry) x (w + 4 rx) is src zero-padded by (2 ry, 2 rx), output row
+// m of z ((h + 2 ry) x (w + 2 rx)) is folded back onto the pixels its
+// extension samples mirrored (dst must start at zero).
+type corrIO struct {
+	adjoint      bool
+	src, dst     []float32
+	w, h, rx, ry int
+}
+
+// input writes input row m into e (its full width).
+func (io *corrIO) input(e []float32, m int) {
+	w, h, rx, ry := io.w, io.h, io.rx, io.ry
+	if !io.adjoint {
+		row := io.src[raster.Mirror(m-ry, h)*w:][:w]
+		copy(e[rx:], row)
+		for n := 0; n < rx; n++ {
+			e[n] = row[raster.Mirror(n-rx, w)]
+			e[w+rx+n] = row[raster.Mirror(w+n, w)]
+		}
+		return
+	}
+	y := m - 2*ry
+	if y < 0 || y >= h {
+		clear(e)
+		return
+	}
+	clear(e[:2*rx])
+	copy(e[2*rx:], io.src[y*w:(y+1)*w])
+	clear(e[w+2*rx:])
+}
+
+// output takes output row m (its full width).
+func (io *corrIO) output(m int, z []float32) {
+	w, h, rx, ry := io.w, io.h, io.rx, io.ry
+	if !io.adjoint {
+		copy(io.dst[m*w:(m+1)*w], z)
+		return
+	}
+	out := io.dst[raster.Mirror(m-ry, h)*w:][:w]
+	for x, v := range z[rx : rx+w] {
+		out[x] += v
+	}
+	for mx := 0; mx < rx; mx++ {
+		out[raster.Mirror(mx-rx, w)] += z[mx]
+		out[raster.Mirror(w+mx, w)] += z[w+rx+mx]
+	}
+}
+
+// correlate computes the valid correlation of the rin x cin input (rin =
+// rout + 2 ry) with the taps whose scaled conjugate spectrum is k, and hands
+// its rout x cout rows to io.output.
+func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int, k []complex64) {
+	p, q, ry := f.p, f.q, io.ry
 	ho := (rout + 1) / 2
-	nz := min(ho+2*ry, rin) // grid rows holding data
+	nz := ho + 2*ry // grid rows holding data (<= rin)
+	f.top = grow(f.top, max(cin, cout))
+	f.bot = grow(f.bot, max(cin, cout))
+	top, bot := f.top[:cin], f.bot[:cin]
 	for r := 0; r < nz; r++ {
 		row := f.grid[r*q : (r+1)*q]
-		top := in[r*cin : (r+1)*cin]
+		io.input(top, r)
 		if br := ho + r; br < rin {
-			bot := in[br*cin : (br+1)*cin]
+			io.input(bot, br)
 			for x := range top {
 				row[x] = complex(top[x], bot[x])
 			}
@@ -218,7 +275,8 @@ func (f *fftWork) correlate(out []float32, rout, cout int, in []float32, rin, ci
 			copy(f.grid[r*q+c0:r*q+c0+nb], b[r*nb:(r+1)*nb])
 		}
 	}
-	// Inverse rows: only the ho output rows, written straight to out.
+	// Inverse rows: only the ho output rows.
+	top, bot = f.top[:cout], f.bot[:cout]
 	for r0 := 0; r0 < ho; r0 += fftBatch {
 		nb := min(fftBatch, ho-r0)
 		b := f.blk[:q*nb]
@@ -231,15 +289,14 @@ func (f *fftWork) correlate(out []float32, rout, cout int, in []float32, rin, ci
 		b = f.rows.transform(b, f.blk2, nb, true)
 		for j := 0; j < nb; j++ {
 			r := r0 + j
-			top := out[r*cout : (r+1)*cout]
+			br := ho + r
 			for x := range top {
-				top[x] = real(b[x*nb+j])
+				v := b[x*nb+j]
+				top[x], bot[x] = real(v), imag(v)
 			}
-			if br := ho + r; br < rout {
-				bot := out[br*cout : (br+1)*cout]
-				for x := range bot {
-					bot[x] = imag(b[x*nb+j])
-				}
+			io.output(r, top)
+			if br < rout {
+				io.output(br, bot)
 			}
 		}
 	}
