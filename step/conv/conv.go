@@ -373,11 +373,11 @@ func (c *Operator) fftApply(ws *Work, dst, src []float32, w, h int, adjoint bool
 	f := c.fftSetup(ws, w, h)
 	io := corrIO{adjoint: adjoint, src: src[:w*h], dst: dst[:w*h], w: w, h: h, rx: c.rx, ry: c.ry}
 	if !adjoint {
-		f.correlate(&io, h+2*c.ry, w+2*c.rx, h, w, f.kfwd)
+		f.correlate(&io, h+2*c.ry, w+2*c.rx, h, w)
 		return
 	}
 	clear(io.dst)
-	f.correlate(&io, h+4*c.ry, w+4*c.rx, h+2*c.ry, w+2*c.rx, f.kadj)
+	f.correlate(&io, h+4*c.ry, w+4*c.rx, h+2*c.ry, w+2*c.rx)
 }
 
 // SmoothingKernel returns the 1-D smoothing kernel of EMS for bandwidth eps

@@ -145,18 +145,31 @@ func cmul(a, b complex64) complex64 {
 	return complex(ar*br-ai*bi, ar*bi+ai*br)
 }
 
-// cmulSlice sets b[i] *= k[i] (len(k) >= len(b)).
-func cmulSlice(b, k []complex64) {
+var (
+	signNone = [8]uint32{}
+	signAll  = [8]uint32{1 << 31, 1 << 31, 1 << 31, 1 << 31, 1 << 31, 1 << 31, 1 << 31, 1 << 31}
+)
+
+// cmulSlice sets b[i] *= k[i], or *= conj(k[i]) with conj (len(k) >= len(b)).
+func cmulSlice(b, k []complex64, conj bool) {
 	k = k[:len(b)]
 	n := 0
 	if useAVX {
 		n = len(b) &^ 3
 		if n > 0 {
-			cmulAVX(&b[0], &k[0], n)
+			neg := &signNone
+			if conj {
+				neg = &signAll
+			}
+			cmulAVX(&b[0], &k[0], n, neg)
 		}
 	}
 	for i := n; i < len(b); i++ {
-		b[i] = cmul(b[i], k[i])
+		kv := k[i]
+		if conj {
+			kv = complex(real(kv), -imag(kv))
+		}
+		b[i] = cmul(b[i], kv)
 	}
 }
 

@@ -13,7 +13,7 @@ func stage4AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, 
 func stage2AVX(src *complex64, stride int, dst *complex64, n int, w *complex64)
 
 //go:noescape
-func cmulAVX(b, k *complex64, n int)
+func cmulAVX(b, k *complex64, n int, neg *[8]uint32)
 
 //go:noescape
 func stage3AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32)

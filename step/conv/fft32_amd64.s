@@ -111,21 +111,25 @@ loop2:
 	VZEROUPPER
 	RET
 
-// func cmulAVX(b, k *complex64, n int)
+// func cmulAVX(b, k *complex64, n int, neg *[8]uint32)
 //
-// b[i] *= k[i] for i < n, n a multiple of 4 (>= 4).
-TEXT ·cmulAVX(SB), NOSPLIT, $0-24
-	MOVQ b+0(FP), DI
-	MOVQ k+8(FP), SI
-	MOVQ n+16(FP), CX
-	XORQ BX, BX
-	SHRQ $2, CX
+// b[i] *= k[i] (neg all zero) or conj(k[i]) (neg all sign bits) for i < n,
+// n a multiple of 4 (>= 4).
+TEXT ·cmulAVX(SB), NOSPLIT, $0-32
+	MOVQ    b+0(FP), DI
+	MOVQ    k+8(FP), SI
+	MOVQ    n+16(FP), CX
+	MOVQ    neg+24(FP), AX
+	VMOVUPS (AX), Y15
+	XORQ    BX, BX
+	SHRQ    $2, CX
 
 loopm:
 	VMOVUPS   (DI)(BX*1), Y0
 	VMOVUPS   (SI)(BX*1), Y1
 	VMOVSLDUP Y1, Y2
 	VMOVSHDUP Y1, Y3
+	VXORPS    Y15, Y3, Y3
 	VPERMILPS $0xB1, Y0, Y4
 	VMULPS    Y3, Y4, Y4
 	VMULPS    Y2, Y0, Y0

@@ -13,7 +13,7 @@ func stage2AVX(src *complex64, stride int, dst *complex64, n int, w *complex64) 
 	panic("conv: no vector FFT kernels")
 }
 
-func cmulAVX(b, k *complex64, n int) { panic("conv: no vector FFT kernels") }
+func cmulAVX(b, k *complex64, n int, neg *[8]uint32) { panic("conv: no vector FFT kernels") }
 
 func stage3AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32) {
 	panic("conv: no vector FFT kernels")

@@ -133,10 +133,10 @@ func TestFFT32PortableMatchesVector(t *testing.T) {
 				k := randComplex(r, n*nb)
 				a, b := append([]complex64(nil), x...), append([]complex64(nil), x...)
 				va := p.transform(a, make([]complex64, n*nb), nb, inv)
-				cmulSlice(va, k)
+				cmulSlice(va, k, inv)
 				useAVX = false
 				gb := p.transform(b, make([]complex64, n*nb), nb, inv)
-				cmulSlice(gb, k)
+				cmulSlice(gb, k, inv)
 				useAVX = true
 				for i := range va {
 					if e := cmplx.Abs(complex128(va[i] - gb[i])); e > tol*math.Sqrt(float64(n)) {

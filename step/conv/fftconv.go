@@ -37,11 +37,11 @@ type fftWork struct {
 	blk, blk2  []complex64 // max(p, q) x fftBatch
 	// conj(T) / (p q) in column blocks: block c0 (fftBatch columns, fewer
 	// in the last) holds p x nb values from offset c0 p, row-major.
-	kfwd, kadj []complex64
-	top, bot   []float32 // one input or output row each
-	forConv    *Operator
-	forW       int
-	forH       int
+	kspec    []complex64
+	top, bot []float32 // one input or output row each
+	forConv  *Operator
+	forW     int
+	forH     int
 }
 
 // fftSize is the smallest 2^a 3^b 5^c at least n.
@@ -102,36 +102,31 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	}
 	f.p, f.q, f.ho, f.forConv, f.forW, f.forH = p, q, ho, c, w, h
 	f.grid = growC(f.grid, p*q)
-	f.kfwd = growC(f.kfwd, p*q)
-	f.kadj = growC(f.kadj, p*q)
+	f.kspec = growC(f.kspec, p*q)
 	f.blk = growC(f.blk, max(p, q)*fftBatch)
 	f.blk2 = growC(f.blk2, max(p, q)*fftBatch)
+	// One spectrum serves both directions: T is the DFT of the forward
+	// taps t (reversed kernel) at the grid origin. Forward: correlation
+	// with t, conj(T). Adjoint: correlation with the adjoint taps t(kh-1-m,
+	// kw-1-n) is the circular convolution with t (multiply by T) read
+	// (kh-1, kw-1) samples further on (shift theorem; see correlate).
 	scale := 1 / float64(p*q)
-	for pass := 0; pass < 2; pass++ {
-		clear(f.grid)
-		for ty := 0; ty < c.kh; ty++ {
-			for tx := 0; tx < c.kw; tx++ {
-				v := c.kern.Data[ty*c.kw+tx] // adjoint taps: h(tx-rx, ty-ry)
-				if pass == 0 {
-					v = c.kern.Data[(c.kh-1-ty)*c.kw+(c.kw-1-tx)] // forward taps (reversed)
-				}
-				f.grid[ty*q+tx] = complex(float32(v), 0)
-			}
+	clear(f.grid)
+	for ty := 0; ty < c.kh; ty++ {
+		for tx := 0; tx < c.kw; tx++ {
+			v := c.kern.Data[(c.kh-1-ty)*c.kw+(c.kw-1-tx)] // forward taps (reversed)
+			f.grid[ty*q+tx] = complex(float32(v), 0)
 		}
-		f.rowPass(c.kh, false)
-		dst := f.kfwd
-		if pass == 1 {
-			dst = f.kadj
-		}
-		for c0 := 0; c0 < q; c0 += fftBatch {
-			nb := min(fftBatch, q-c0)
-			b := f.gatherCols(c0, nb)
-			b = f.cols.transform(b, f.other(b), nb, false)
-			for r := 0; r < p; r++ {
-				for j := 0; j < nb; j++ {
-					v := b[r*nb+j]
-					dst[c0*p+r*nb+j] = complex(float32(float64(real(v))*scale), float32(-float64(imag(v))*scale))
-				}
+	}
+	f.rowPass(c.kh, false)
+	for c0 := 0; c0 < q; c0 += fftBatch {
+		nb := min(fftBatch, q-c0)
+		b := f.gatherCols(c0, nb)
+		b = f.cols.transform(b, f.other(b), nb, false)
+		for r := 0; r < p; r++ {
+			for j := 0; j < nb; j++ {
+				v := b[r*nb+j]
+				f.kspec[c0*p+r*nb+j] = complex(float32(float64(real(v))*scale), float32(-float64(imag(v))*scale))
 			}
 		}
 	}
@@ -237,10 +232,19 @@ func (io *corrIO) output(m int, z []float32) {
 }
 
 // correlate computes the valid correlation of the rin x cin input (rin =
-// rout + 2 ry) with the taps whose scaled conjugate spectrum is k, and hands
-// its rout x cout rows to io.output.
-func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int, k []complex64) {
+// rout + 2 ry) with the forward taps t (io.adjoint false) or the adjoint
+// taps (t reversed), and hands its rout x cout rows to io.output. The
+// adjoint multiplies by conj(kspec) = T / (p q), a circular convolution
+// with t, whose sample (y + 2 ry, x + 2 rx) is the adjoint correlation's
+// sample (y, x) (no wrap-around: y + 2 ry < ho + 2 ry <= p, x + 2 rx < cin
+// <= q).
+func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int) {
 	p, q, ry := f.p, f.q, io.ry
+	k := f.kspec
+	r0ff, c0ff := 0, 0
+	if io.adjoint {
+		r0ff, c0ff = 2*ry, 2*io.rx
+	}
 	ho := (rout + 1) / 2
 	nz := ho + 2*ry // grid rows holding data (<= rin)
 	f.top = grow(f.top, max(cin, cout))
@@ -269,7 +273,7 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int, k []complex64)
 		nb := min(fftBatch, q-c0)
 		b := f.gatherCols(c0, nb)
 		b = f.cols.transform(b, f.other(b), nb, false)
-		cmulSlice(b[:p*nb], k[c0*p:c0*p+p*nb])
+		cmulSlice(b[:p*nb], k[c0*p:c0*p+p*nb], io.adjoint)
 		b = f.cols.transform(b, f.other(b), nb, true)
 		for r := 0; r < p; r++ {
 			copy(f.grid[r*q+c0:r*q+c0+nb], b[r*nb:(r+1)*nb])
@@ -281,7 +285,7 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int, k []complex64)
 		nb := min(fftBatch, ho-r0)
 		b := f.blk[:q*nb]
 		for j := 0; j < nb; j++ {
-			row := f.grid[(r0+j)*q : (r0+j+1)*q]
+			row := f.grid[(r0ff+r0+j)*q : (r0ff+r0+j+1)*q]
 			for x, v := range row {
 				b[x*nb+j] = v
 			}
@@ -291,7 +295,7 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int, k []complex64)
 			r := r0 + j
 			br := ho + r
 			for x := range top {
-				v := b[x*nb+j]
+				v := b[(x+c0ff)*nb+j]
 				top[x], bot[x] = real(v), imag(v)
 			}
 			io.output(r, top)
