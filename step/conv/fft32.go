@@ -313,3 +313,21 @@ func stage5(x, y []complex64, m, sb int, tw []complex64, inverse bool) {
 		}
 	}
 }
+
+// transposeC sets dst[c*ds + r] = src[r*ss + c] for r < rows, c < cols.
+func transposeC(dst []complex64, ds int, src []complex64, ss int, rows, cols int) {
+	if rows == 0 || cols == 0 {
+		return
+	}
+	_, _ = dst[(cols-1)*ds+rows-1], src[(rows-1)*ss+cols-1] // the extent
+	if useAVX && rows%4 == 0 && cols%4 == 0 {
+		transposeAVX(&dst[0], ds, &src[0], ss, rows, cols)
+		return
+	}
+	for r := 0; r < rows; r++ {
+		row := src[r*ss : r*ss+cols]
+		for c, v := range row {
+			dst[c*ds+r] = v
+		}
+	}
+}

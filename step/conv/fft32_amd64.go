@@ -20,3 +20,6 @@ func stage3AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, 
 
 //go:noescape
 func stage5AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32)
+
+//go:noescape
+func transposeAVX(dst *complex64, ds int, src *complex64, ss int, rows, cols int)

@@ -283,3 +283,62 @@ loop5:
 	JNZ       loop5
 	VZEROUPPER
 	RET
+
+// func transposeAVX(dst *complex64, ds int, src *complex64, ss int, rows, cols int)
+//
+// dst[c*ds + r] = src[r*ss + c] for r < rows, c < cols (both multiples of
+// 4, >= 4), strides in complex64 values, 4x4 blocks of 64-bit values at a
+// time: VUNPCKLPD/VUNPCKHPD pair rows within 128-bit lanes, VPERM2F128
+// joins the lanes.
+TEXT ·transposeAVX(SB), NOSPLIT, $0-48
+	MOVQ dst+0(FP), DI
+	MOVQ ds+8(FP), R8
+	MOVQ src+16(FP), SI
+	MOVQ ss+24(FP), R9
+	MOVQ rows+32(FP), R10
+	MOVQ cols+40(FP), R11
+	SHLQ $3, R8
+	SHLQ $3, R9
+	XORQ AX, AX
+
+trow:
+	CMPQ  AX, R10
+	JGE   tdone
+	MOVQ  AX, BX
+	IMULQ R9, BX
+	LEAQ  (SI)(BX*1), R12
+	LEAQ  (R12)(R9*1), R13
+	LEAQ  (R13)(R9*1), R14
+	LEAQ  (R14)(R9*1), R15
+	LEAQ  (DI)(AX*8), DX
+	XORQ  CX, CX
+	MOVQ  R11, BX
+
+tcol:
+	VMOVUPS    (R12)(CX*1), Y0
+	VMOVUPS    (R13)(CX*1), Y1
+	VMOVUPS    (R14)(CX*1), Y2
+	VMOVUPS    (R15)(CX*1), Y3
+	VUNPCKLPD  Y1, Y0, Y4
+	VUNPCKHPD  Y1, Y0, Y5
+	VUNPCKLPD  Y3, Y2, Y6
+	VUNPCKHPD  Y3, Y2, Y7
+	VPERM2F128 $0x20, Y6, Y4, Y0
+	VPERM2F128 $0x20, Y7, Y5, Y1
+	VPERM2F128 $0x31, Y6, Y4, Y2
+	VPERM2F128 $0x31, Y7, Y5, Y3
+	VMOVUPS    Y0, (DX)
+	VMOVUPS    Y1, (DX)(R8*1)
+	LEAQ       (DX)(R8*2), DX
+	VMOVUPS    Y2, (DX)
+	VMOVUPS    Y3, (DX)(R8*1)
+	LEAQ       (DX)(R8*2), DX
+	ADDQ       $32, CX
+	SUBQ       $4, BX
+	JNZ        tcol
+	ADDQ       $4, AX
+	JMP        trow
+
+tdone:
+	VZEROUPPER
+	RET

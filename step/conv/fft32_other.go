@@ -22,3 +22,7 @@ func stage3AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, 
 func stage5AVX(src *complex64, stride int, dst *complex64, n int, w *complex64, mask *[8]uint32, c *[4]float32) {
 	panic("conv: no vector FFT kernels")
 }
+
+func transposeAVX(dst *complex64, ds int, src *complex64, ss int, rows, cols int) {
+	panic("conv: no vector FFT kernels")
+}

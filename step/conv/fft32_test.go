@@ -147,3 +147,34 @@ func TestFFT32PortableMatchesVector(t *testing.T) {
 		}
 	}
 }
+
+// Source: definition of the transpose, dst[c][r] = src[r][c], for the
+// vector 4x4-block path and the portable loop.
+func TestTransposeC(t *testing.T) {
+	r := rand.New(rand.NewPCG(17, 18))
+	for _, sz := range [][2]int{{4, 4}, {8, 12}, {16, 640}, {3, 5}, {4, 6}} {
+		rows, cols := sz[0], sz[1]
+		ss, ds := cols+3, rows+1 // strides wider than the block
+		src := randComplex(r, rows*ss)
+		dst := make([]complex64, cols*ds)
+		transposeC(dst, ds, src, ss, rows, cols)
+		for i := 0; i < rows; i++ {
+			for j := 0; j < cols; j++ {
+				if dst[j*ds+i] != src[i*ss+j] {
+					t.Fatalf("%dx%d: dst[%d][%d] = %v, src[%d][%d] = %v", rows, cols, j, i, dst[j*ds+i], i, j, src[i*ss+j])
+				}
+			}
+		}
+	}
+}
+
+// Source: definition: fftGoodSize returns a multiple of 4 at least n whose
+// only prime factors are 2, 3 and 5, within 5n/4 + 4.
+func TestFFTGoodSize(t *testing.T) {
+	for n := 1; n < 3000; n += 7 {
+		m := fftGoodSize(n)
+		if m < n || m%4 != 0 || !smooth235(m) || m >= n+n/4+4 {
+			t.Fatalf("fftGoodSize(%d) = %d", n, m)
+		}
+	}
+}

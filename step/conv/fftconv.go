@@ -65,13 +65,14 @@ func fftCost(n int) float64 {
 	return float64(n) * c
 }
 
-// fftGoodSize is the 2^a 3^b 5^c length at least n (and below 5n/4) of
-// least fftCost: 640 = 4^3 2 5 rather than 625 = 5^4.
+// fftGoodSize is the 2^a 3^b 5^c length at least n (and below 5n/4 + 4),
+// a multiple of 4 (the vector transposes work on 4x4 blocks), of least
+// fftCost: 640 = 4^3 2 5 rather than 625 = 5^4.
 func fftGoodSize(n int) int {
-	best, bc := fftSize(n), fftCost(fftSize(n))
-	for m := best + 1; m < n+n/4; m++ {
-		if smooth235(m) {
-			if c := fftCost(m); c < bc {
+	best, bc := 0, 0.0
+	for m := max(n, 4); best == 0 || m < n+n/4+4; m++ {
+		if m%4 == 0 && smooth235(m) {
+			if c := fftCost(m); best == 0 || c < bc {
 				best, bc = m, c
 			}
 		}
@@ -155,19 +156,9 @@ func (f *fftWork) rowPass(n int, inverse bool) {
 	for r0 := 0; r0 < n; r0 += fftBatch {
 		nb := min(fftBatch, n-r0)
 		b := f.blk[:q*nb]
-		for j := 0; j < nb; j++ {
-			row := f.grid[(r0+j)*q : (r0+j+1)*q]
-			for x, v := range row {
-				b[x*nb+j] = v
-			}
-		}
+		transposeC(b, nb, f.grid[r0*q:], q, nb, q)
 		b = f.rows.transform(b, f.blk2, nb, inverse)
-		for j := 0; j < nb; j++ {
-			row := f.grid[(r0+j)*q : (r0+j+1)*q]
-			for x := range row {
-				row[x] = b[x*nb+j]
-			}
-		}
+		transposeC(f.grid[r0*q:], q, b, nb, q, nb)
 	}
 }
 
@@ -284,18 +275,16 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int) {
 	for r0 := 0; r0 < ho; r0 += fftBatch {
 		nb := min(fftBatch, ho-r0)
 		b := f.blk[:q*nb]
-		for j := 0; j < nb; j++ {
-			row := f.grid[(r0ff+r0+j)*q : (r0ff+r0+j+1)*q]
-			for x, v := range row {
-				b[x*nb+j] = v
-			}
-		}
+		g := f.grid[(r0ff+r0)*q:]
+		transposeC(b, nb, g, q, nb, q)
 		b = f.rows.transform(b, f.blk2, nb, true)
+		transposeC(g, q, b, nb, q, nb) // back into the rows it came from
 		for j := 0; j < nb; j++ {
 			r := r0 + j
 			br := ho + r
+			row := g[j*q+c0ff : j*q+c0ff+cout]
 			for x := range top {
-				v := b[(x+c0ff)*nb+j]
+				v := row[x]
 				top[x], bot[x] = real(v), imag(v)
 			}
 			io.output(r, top)
