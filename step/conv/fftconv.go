@@ -53,12 +53,14 @@ func fftSize(n int) int {
 	}
 }
 
-// fftCost estimates the work of one length-n transform: n times the sum of
-// its stages' per-point costs (float operations of the butterfly and
-// twiddle products plus a pass over the data; counted from stage2..stage5).
+// fftCost estimates the time of one length-n transform: n times the sum of
+// its stages' per-point costs, measured with the AVX butterflies
+// (BenchmarkFFT32Radix, 16 vectors per batch: 0.127 ns per point for a
+// radix-4 stage, 0.097 radix 2, 0.157 radix 3, 0.22 radix 5), plus one
+// pass over the data for the gather and scatter around the transform.
 func fftCost(n int) float64 {
-	perPoint := map[int]float64{4: 10.5, 2: 7, 3: 11.3, 5: 16.4}
-	var c float64
+	perPoint := map[int]float64{4: 0.127, 2: 0.097, 3: 0.157, 5: 0.22}
+	c := 0.1 // gather and scatter
 	for _, st := range newPlan32(n).stages {
 		c += perPoint[st.r]
 	}

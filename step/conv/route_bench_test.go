@@ -90,3 +90,27 @@ func BenchmarkConvRoutes(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkFFT32Radix times batched transforms (16 vectors) of lengths made
+// of one radix each, in ns per point and stage: the per-point costs of
+// fftCost.
+func BenchmarkFFT32Radix(b *testing.B) {
+	r := rand.New(rand.NewPCG(3, 3))
+	for _, c := range []struct{ n, radix, stages int }{{1024, 4, 5}, {512, 2, 5}, {729, 3, 6}, {625, 5, 4}} {
+		p := newPlan32(c.n)
+		if len(p.stages) != c.stages {
+			b.Fatalf("n=%d: %d stages", c.n, len(p.stages))
+		}
+		x := randComplex(r, c.n*fftBatch)
+		y := make([]complex64, len(x))
+		b.Run(fmt.Sprintf("n%d", c.n), func(b *testing.B) {
+			for i := 0; i < b.N; i++ {
+				p.transform(x, y, fftBatch, false)
+			}
+			ns := float64(b.Elapsed().Nanoseconds()) / float64(b.N)
+			// Per stage: divide by the stage count (512 = 4^4 2: subtract
+			// four radix-4 stages measured at 1024).
+			b.ReportMetric(ns/float64(c.n*fftBatch), "ns/point")
+		})
+	}
+}
