@@ -21,11 +21,11 @@ func (k convKind) String() string {
 // directMaxTaps is the largest non-separable kernel convolved directly; larger
 // ones go through the float32 FFT (fft32.go, fftconv.go). Measured on this
 // machine class (2 cores, go1.26, 584x584 tiles, Apply + Adjoint per CPU
-// second; DEVELOPERS.md "Large kernels"): the FFT path runs at 110-120
-// Mpix/s for kernels up to 31x23 taps; the vectorised direct path at 153
-// Mpix/s for 9x9 and 160 for 11x7 taps, falling as 1/taps (about 100 taps
-// break even); the portable direct loops alone run at 68 Mpix/s for 3x3 and 5
-// for 9x9, so without the vector kernels the FFT would win from 9 taps.
+// second; DEVELOPERS.md "Large kernels"): the FFT path runs at 135-154
+// Mpix/s for kernels up to 19x15 taps (110 at 31x23); the vectorised direct
+// path at 153 Mpix/s for 9x9 and 160 for 11x7 taps, falling as 1/taps (81-90
+// taps break even); the portable direct loops alone run at 68 Mpix/s for 3x3
+// and 5 for 9x9, so without the vector kernels the FFT would win from 9 taps.
 const directMaxTaps = 81
 
 // Operator is the linear operator "convolve with kernel h under half-sample
