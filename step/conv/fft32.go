@@ -139,10 +139,18 @@ func stage2(x, y []complex64, m, sb int, tw []complex64) {
 }
 
 // cmul multiplies without the special cases of Go's complex product (none
-// are needed for finite values).
+// are needed for finite values). The float32 conversions round each product
+// (the Go spec lets a compiler fuse x*y+z otherwise, as arm64's does), so
+// the portable butterflies give the same bits as the AVX ones on every
+// machine.
 func cmul(a, b complex64) complex64 {
 	ar, ai, br, bi := real(a), imag(a), real(b), imag(b)
-	return complex(ar*br-ai*bi, ar*bi+ai*br)
+	return complex(float32(ar*br)-float32(ai*bi), float32(ar*bi)+float32(ai*br))
+}
+
+// scale multiplies by a real factor, each product rounded (see cmul).
+func scale(a complex64, f float32) complex64 {
+	return complex(float32(f*real(a)), float32(f*imag(a)))
 }
 
 var (
@@ -257,9 +265,9 @@ func stage3(x, y []complex64, m, sb int, tw []complex64, inverse bool) {
 		w1, w2 := tw[2*p], tw[2*p+1]
 		for i := range b0 {
 			t := a1[i] + a2[i]
-			c := a0[i] - complex(0.5, 0)*t
+			c := a0[i] - scale(t, 0.5)
 			d := a1[i] - a2[i]
-			u := mulI(complex(h*real(d), h*imag(d)), inverse)
+			u := mulI(scale(d, h), inverse)
 			b0[i] = a0[i] + t
 			b1[i] = cmul(c+u, w1)
 			b2[i] = cmul(c-u, w2)
@@ -300,11 +308,13 @@ func stage5(x, y []complex64, m, sb int, tw []complex64, inverse bool) {
 			//       -/+ i [(a1 - a4) sin(2 pi k/5) + (a2 - a3) sin(4 pi k/5)]
 			s14, d14 := a1[i]+a4[i], a1[i]-a4[i]
 			s23, d23 := a2[i]+a3[i], a2[i]-a3[i]
-			r1 := a0[i] + complex(c1*real(s14)+c2*real(s23), c1*imag(s14)+c2*imag(s23))
-			r2 := a0[i] + complex(c2*real(s14)+c1*real(s23), c2*imag(s14)+c1*imag(s23))
-			// sin(8 pi/5) = -sin(2 pi/5), sin(6 pi/5)... k=2: sin(4pi/5), sin(8pi/5) = -s1.
-			i1 := mulI(complex(s1*real(d14)+s2*real(d23), s1*imag(d14)+s2*imag(d23)), inverse)
-			i2 := mulI(complex(s2*real(d14)-s1*real(d23), s2*imag(d14)-s1*imag(d23)), inverse)
+			// Same operations and order as stage5AVX: products rounded
+			// (see cmul), then summed left to right.
+			r1 := (scale(s14, c1) + scale(s23, c2)) + a0[i]
+			r2 := (scale(s14, c2) + scale(s23, c1)) + a0[i]
+			// k = 2: sin(8 pi/5) = -sin(2 pi/5), sin(6 pi/5) = -sin(4 pi/5).
+			i1 := mulI(scale(d14, s1)+scale(d23, s2), inverse)
+			i2 := mulI(scale(d14, s2)-scale(d23, s1), inverse)
 			b0[i] = a0[i] + s14 + s23
 			b1[i] = cmul(r1+i1, w1)
 			b4[i] = cmul(r1-i1, w4)
