@@ -23,9 +23,10 @@ func (k convKind) String() string {
 // machine class (2 cores, go1.26, 584x584 tiles, Apply + Adjoint per CPU
 // second; DEVELOPERS.md "Large kernels"): the FFT path runs at 135-154
 // Mpix/s for kernels up to 19x15 taps (110 at 31x23); the vectorised direct
-// path at 153 Mpix/s for 9x9 and 160 for 11x7 taps, falling as 1/taps (81-90
-// taps break even); the portable direct loops alone run at 68 Mpix/s for 3x3
-// and 5 for 9x9, so without the vector kernels the FFT would win from 9 taps.
+// path (merged with the vector kernels) at 166 Mpix/s for 9x9 and 118 for
+// 13x9 taps, falling as 1/taps (about 97 taps break even); the portable
+// direct loops alone run at 68 Mpix/s for 3x3 and 5 for 9x9, so without the
+// vector kernels the FFT would win from 9 taps.
 const directMaxTaps = 81
 
 // Operator is the linear operator "convolve with kernel h under half-sample
