@@ -7,7 +7,8 @@ import "math"
 // Algorithm: the Stockham autosort FFT, decimation in frequency, mixed radix
 // 4, 2, 3, 5 (Stockham, "High-speed convolution and correlation", AFIPS
 // 1966; the formulation follows Van Loan, "Computational Frameworks for the
-// Fast Fourier Transform", SIAM 1992, section 1.7). A stage of radix r on a
+// Fast Fourier Transform", SIAM 1992, the Stockham autosort framework;
+// references recalled from memory). A stage of radix r on a
 // sub-length L = r m with stride s maps
 //
 //	y[q + s (r p + k)] = w_L^(p k) sum_j x[q + s (p + j m)] w_r^(j k)

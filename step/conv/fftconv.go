@@ -13,16 +13,16 @@ import "limpid/raster"
 // a complex grid and the bottom half's into the imaginary part. Correlation
 // with a real kernel is real-linear, so the real part of the result is the
 // top half's correlation and the imaginary part the bottom half's (the
-// two-for-one trick of real-data FFTs: Cooley, Lewis & Welch, J. Sound Vib.
-// 12(3):315, 1970, applied to the whole convolution instead of the
-// spectrum). A half needs its output rows plus 2 ry input rows, so the grid
+// two-for-one trick of real-data FFTs, Cooley, Lewis & Welch, IEEE Trans.
+// Education 12(1):27, 1969 (reference recalled from memory), applied to the
+// whole convolution instead of the spectrum). A half needs its output rows plus 2 ry input rows, so the grid
 // has about h/2 + 3 ry rows instead of h + 4 ry.
 //
 // Circular correlation on a P x Q grid equals the valid correlation for the
 // output rows y < P - 2 ry and columns x < Q - 2 rx (no wrap-around), and
 // the DFT of a circular correlation with a real t is conj(T) times the DFT
 // of the input (correlation theorem, e.g. Bracewell, "The Fourier Transform
-// and Its Applications", 3rd ed., 2000, ch. 6).
+// and Its Applications"; chapter not given, recalled from memory).
 
 // fftBatch is the number of rows or columns transformed together (batch
 // width; measured: see DEVELOPERS.md "Large kernels").
@@ -31,7 +31,6 @@ const fftBatch = 16
 // fftWork caches plans, kernel spectra and buffers for one tile size.
 type fftWork struct {
 	p, q       int // complex grid rows, columns
-	ho         int // output rows of the top half (adjoint: of z)
 	rows, cols *plan32
 	grid       []complex64 // p x q
 	blk, blk2  []complex64 // max(p, q) x fftBatch
@@ -103,7 +102,7 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	if f.cols == nil || f.cols.n != p {
 		f.cols = newPlan32(p)
 	}
-	f.p, f.q, f.ho, f.forConv, f.forW, f.forH = p, q, ho, c, w, h
+	f.p, f.q, f.forConv, f.forW, f.forH = p, q, c, w, h
 	f.grid = growC(f.grid, p*q)
 	f.kspec = growC(f.kspec, p*q)
 	f.blk = growC(f.blk, max(p, q)*fftBatch)
