@@ -36,11 +36,10 @@ type fftWork struct {
 	blk, blk2  []complex64 // max(p, q) x fftBatch
 	// conj(T) / (p q) in column blocks: block c0 (fftBatch columns, fewer
 	// in the last) holds p x nb values from offset c0 p, row-major.
-	kspec    []complex64
-	top, bot []float32 // one input or output row each
-	forConv  *Operator
-	forW     int
-	forH     int
+	kspec   []complex64
+	forConv *Operator
+	forW    int
+	forH    int
 }
 
 // fftSize is the smallest 2^a 3^b 5^c at least n.
@@ -184,42 +183,104 @@ type corrIO struct {
 	w, h, rx, ry int
 }
 
-// input writes input row m into e (its full width).
-func (io *corrIO) input(e []float32, m int) {
-	w, h, rx, ry := io.w, io.h, io.rx, io.ry
+// srcRow returns the source row behind input row m and the column offset
+// of its first pixel (nil for a zero row).
+func (io *corrIO) srcRow(m int) (row []float32, off int) {
+	w, h := io.w, io.h
 	if !io.adjoint {
-		row := io.src[raster.Mirror(m-ry, h)*w:][:w]
-		copy(e[rx:], row)
-		for n := 0; n < rx; n++ {
-			e[n] = row[raster.Mirror(n-rx, w)]
-			e[w+rx+n] = row[raster.Mirror(w+n, w)]
+		return io.src[raster.Mirror(m-io.ry, h)*w:][:w], io.rx
+	}
+	y := m - 2*io.ry
+	if y < 0 || y >= h {
+		return nil, 2 * io.rx
+	}
+	return io.src[y*w : (y+1)*w], 2 * io.rx
+}
+
+// inputPair writes input row mt into the real and input row mb (when
+// hasBot) into the imaginary part of the grid row g, zeros past the input's
+// width: one pass, no intermediate rows.
+func (io *corrIO) inputPair(g []complex64, mt, mb int, hasBot bool) {
+	w, rx := io.w, io.rx
+	t, off := io.srcRow(mt)
+	var b []float32
+	if hasBot {
+		b, _ = io.srcRow(mb)
+	}
+	clear(g)
+	switch {
+	case t != nil && b != nil:
+		d := g[off : off+w]
+		for x := range d {
+			d[x] = complex(t[x], b[x])
+		}
+	case t != nil:
+		d := g[off : off+w]
+		for x := range d {
+			d[x] = complex(t[x], 0)
+		}
+	case b != nil:
+		d := g[off : off+w]
+		for x := range d {
+			d[x] = complex(0, b[x])
+		}
+	}
+	if io.adjoint {
+		return // zero padding
+	}
+	// Forward: the half-sample symmetric extension's rx columns each side.
+	for n := 0; n < rx; n++ {
+		l, r := raster.Mirror(n-rx, w), raster.Mirror(w+n, w)
+		var tl, tr, bl, br float32
+		if t != nil {
+			tl, tr = t[l], t[r]
+		}
+		if b != nil {
+			bl, br = b[l], b[r]
+		}
+		g[n] = complex(tl, bl)
+		g[w+rx+n] = complex(tr, br)
+	}
+}
+
+// output takes output row m from the real (or imaginary) parts of z, which
+// holds it from column off on.
+func (io *corrIO) output(m int, z []complex64, off int, imagPart bool) {
+	w, h, rx, ry := io.w, io.h, io.rx, io.ry
+	part := func(v complex64) float32 {
+		if imagPart {
+			return imag(v)
+		}
+		return real(v)
+	}
+	if !io.adjoint {
+		d := io.dst[m*w : (m+1)*w]
+		zz := z[off : off+w]
+		if imagPart {
+			for x := range d {
+				d[x] = imag(zz[x])
+			}
+		} else {
+			for x := range d {
+				d[x] = real(zz[x])
+			}
 		}
 		return
 	}
-	y := m - 2*ry
-	if y < 0 || y >= h {
-		clear(e)
-		return
-	}
-	clear(e[:2*rx])
-	copy(e[2*rx:], io.src[y*w:(y+1)*w])
-	clear(e[w+2*rx:])
-}
-
-// output takes output row m (its full width).
-func (io *corrIO) output(m int, z []float32) {
-	w, h, rx, ry := io.w, io.h, io.rx, io.ry
-	if !io.adjoint {
-		copy(io.dst[m*w:(m+1)*w], z)
-		return
-	}
 	out := io.dst[raster.Mirror(m-ry, h)*w:][:w]
-	for x, v := range z[rx : rx+w] {
-		out[x] += v
+	zz := z[off+rx : off+rx+w]
+	if imagPart {
+		for x := range out {
+			out[x] += imag(zz[x])
+		}
+	} else {
+		for x := range out {
+			out[x] += real(zz[x])
+		}
 	}
 	for mx := 0; mx < rx; mx++ {
-		out[raster.Mirror(mx-rx, w)] += z[mx]
-		out[raster.Mirror(w+mx, w)] += z[w+rx+mx]
+		out[raster.Mirror(mx-rx, w)] += part(z[off+mx])
+		out[raster.Mirror(w+mx, w)] += part(z[off+w+rx+mx])
 	}
 }
 
@@ -239,23 +300,8 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int) {
 	}
 	ho := (rout + 1) / 2
 	nz := ho + 2*ry // grid rows holding data (<= rin)
-	f.top = grow(f.top, max(cin, cout))
-	f.bot = grow(f.bot, max(cin, cout))
-	top, bot := f.top[:cin], f.bot[:cin]
 	for r := 0; r < nz; r++ {
-		row := f.grid[r*q : (r+1)*q]
-		io.input(top, r)
-		if br := ho + r; br < rin {
-			io.input(bot, br)
-			for x := range top {
-				row[x] = complex(top[x], bot[x])
-			}
-		} else {
-			for x := range top {
-				row[x] = complex(top[x], 0)
-			}
-		}
-		clear(row[cin:])
+		io.inputPair(f.grid[r*q:(r+1)*q], r, ho+r, ho+r < rin)
 	}
 	clear(f.grid[nz*q:])
 	f.rowPass(nz, false)
@@ -272,7 +318,6 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int) {
 		}
 	}
 	// Inverse rows: only the ho output rows.
-	top, bot = f.top[:cout], f.bot[:cout]
 	for r0 := 0; r0 < ho; r0 += fftBatch {
 		nb := min(fftBatch, ho-r0)
 		b := f.blk[:q*nb]
@@ -282,15 +327,10 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int) {
 		transposeC(g, q, b, nb, q, nb) // back into the rows it came from
 		for j := 0; j < nb; j++ {
 			r := r0 + j
-			br := ho + r
-			row := g[j*q+c0ff : j*q+c0ff+cout]
-			for x := range top {
-				v := row[x]
-				top[x], bot[x] = real(v), imag(v)
-			}
-			io.output(r, top)
-			if br < rout {
-				io.output(br, bot)
+			row := g[j*q : (j+1)*q]
+			io.output(r, row, c0ff, false)
+			if br := ho + r; br < rout {
+				io.output(br, row, c0ff, true)
 			}
 		}
 	}
