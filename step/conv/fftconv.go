@@ -32,14 +32,16 @@ const fftBatch = 16
 type fftWork struct {
 	p, q       int // complex grid rows, columns
 	rows, cols *plan32
-	grid       []complex64 // p x q
-	blk, blk2  []complex64 // max(p, q) x fftBatch
-	// conj(T) / (p q) in column blocks: block c0 (fftBatch columns, fewer
-	// in the last) holds p x nb values from offset c0 p, row-major.
-	kspec   []complex64
-	forConv *Operator
-	forW    int
-	forH    int
+	// grid is p x q in column blocks: block c0 (fftBatch columns, fewer in
+	// the last) holds its p x wb values from offset c0 p, row-major, so a
+	// column pass transforms a block in place. kspec, conj(T) / (p q), has
+	// the same layout.
+	grid, kspec []complex64
+	blk, blk2   []complex64 // max(p, q) x fftBatch
+	rowBuf      []complex64 // fftBatch x q, row-major: rows in or out
+	forConv     *Operator
+	forW        int
+	forH        int
 }
 
 // fftSize is the smallest 2^a 3^b 5^c at least n.
@@ -106,6 +108,7 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	f.kspec = growC(f.kspec, p*q)
 	f.blk = growC(f.blk, max(p, q)*fftBatch)
 	f.blk2 = growC(f.blk2, max(p, q)*fftBatch)
+	f.rowBuf = growC(f.rowBuf, fftBatch*q)
 	// One spectrum serves both directions: T is the DFT of the forward
 	// taps t (reversed kernel) at the grid origin. Forward: correlation
 	// with t, conj(T). Adjoint: correlation with the adjoint taps t(kh-1-m,
@@ -113,22 +116,24 @@ func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
 	// (kh-1, kw-1) samples further on (shift theorem; see correlate).
 	scale := 1 / float64(p*q)
 	clear(f.grid)
-	for ty := 0; ty < c.kh; ty++ {
-		for tx := 0; tx < c.kw; tx++ {
-			v := c.kern.Data[(c.kh-1-ty)*c.kw+(c.kw-1-tx)] // forward taps (reversed)
-			f.grid[ty*q+tx] = complex(float32(v), 0)
-		}
-	}
-	f.rowPass(c.kh, false)
-	for c0 := 0; c0 < q; c0 += fftBatch {
-		nb := min(fftBatch, q-c0)
-		b := f.gatherCols(c0, nb)
-		b = f.cols.transform(b, f.other(b), nb, false)
-		for r := 0; r < p; r++ {
-			for j := 0; j < nb; j++ {
-				v := b[r*nb+j]
-				f.kspec[c0*p+r*nb+j] = complex(float32(float64(real(v))*scale), float32(-float64(imag(v))*scale))
+	for r0 := 0; r0 < c.kh; r0 += fftBatch {
+		nb := min(fftBatch, c.kh-r0)
+		clear(f.rowBuf[:nb*q])
+		for j := 0; j < nb; j++ {
+			ty := r0 + j
+			for tx := 0; tx < c.kw; tx++ {
+				v := c.kern.Data[(c.kh-1-ty)*c.kw+(c.kw-1-tx)] // forward taps (reversed)
+				f.rowBuf[j*q+tx] = complex(float32(v), 0)
 			}
+		}
+		f.rowsIn(r0, nb)
+	}
+	for c0 := 0; c0 < q; c0 += fftBatch {
+		wb := min(fftBatch, q-c0)
+		blk := f.grid[c0*p : c0*p+p*wb]
+		b := f.cols.transform(blk, f.blk[:p*wb], wb, false)
+		for i, v := range b {
+			f.kspec[c0*p+i] = complex(float32(float64(real(v))*scale), float32(-float64(imag(v))*scale))
 		}
 	}
 	ws.fft = f
@@ -142,33 +147,30 @@ func growC(b []complex64, n int) []complex64 {
 	return b[:n]
 }
 
-// other returns the scratch block that b is not.
-func (f *fftWork) other(b []complex64) []complex64 {
-	if &b[0] == &f.blk[0] {
-		return f.blk2
-	}
-	return f.blk
-}
-
-// rowPass transforms rows [0, n) of the grid in place, nb at a time.
-func (f *fftWork) rowPass(n int, inverse bool) {
+// rowsIn transforms the nb rows in f.rowBuf (row-major) along x and stores
+// them as rows [r0, r0+nb) of the blocked grid.
+func (f *fftWork) rowsIn(r0, nb int) {
 	q := f.q
-	for r0 := 0; r0 < n; r0 += fftBatch {
-		nb := min(fftBatch, n-r0)
-		b := f.blk[:q*nb]
-		transposeC(b, nb, f.grid[r0*q:], q, nb, q)
-		b = f.rows.transform(b, f.blk2, nb, inverse)
-		transposeC(f.grid[r0*q:], q, b, nb, q, nb)
+	b := f.blk[:q*nb]
+	transposeC(b, nb, f.rowBuf, q, nb, q)
+	b = f.rows.transform(b, f.blk2[:q*nb], nb, false)
+	for c0 := 0; c0 < q; c0 += fftBatch {
+		wb := min(fftBatch, q-c0)
+		transposeC(f.grid[c0*f.p+r0*wb:], wb, b[c0*nb:], nb, wb, nb)
 	}
 }
 
-// gatherCols copies columns [c0, c0+nb) of the grid into f.blk (p x nb).
-func (f *fftWork) gatherCols(c0, nb int) []complex64 {
-	b := f.blk[:f.p*nb]
-	for r := 0; r < f.p; r++ {
-		copy(b[r*nb:(r+1)*nb], f.grid[r*f.q+c0:r*f.q+c0+nb])
+// rowsOut inverse-transforms rows [r0, r0+nb) of the blocked grid along x
+// into f.rowBuf (row-major).
+func (f *fftWork) rowsOut(r0, nb int) {
+	q := f.q
+	b := f.blk[:q*nb]
+	for c0 := 0; c0 < q; c0 += fftBatch {
+		wb := min(fftBatch, q-c0)
+		transposeC(b[c0*nb:], nb, f.grid[c0*f.p+r0*wb:], wb, nb, wb)
 	}
-	return b
+	b = f.rows.transform(b, f.blk2[:q*nb], nb, true)
+	transposeC(f.rowBuf, q, b, nb, q, nb)
 }
 
 // corrIO reads the FFT path's input rows and takes its output rows.
@@ -300,34 +302,37 @@ func (f *fftWork) correlate(io *corrIO, rin, cin, rout, cout int) {
 	}
 	ho := (rout + 1) / 2
 	nz := ho + 2*ry // grid rows holding data (<= rin)
-	for r := 0; r < nz; r++ {
-		io.inputPair(f.grid[r*q:(r+1)*q], r, ho+r, ho+r < rin)
+	for r0 := 0; r0 < nz; r0 += fftBatch {
+		nb := min(fftBatch, nz-r0)
+		for j := 0; j < nb; j++ {
+			r := r0 + j
+			io.inputPair(f.rowBuf[j*q:(j+1)*q], r, ho+r, ho+r < rin)
+		}
+		f.rowsIn(r0, nb)
 	}
-	clear(f.grid[nz*q:])
-	f.rowPass(nz, false)
-	// Columns: forward transform, multiply by the kernel spectrum, inverse,
-	// all while the block is in cache.
+	// Columns, one block in place: forward transform, multiply by the
+	// kernel spectrum, inverse (rows nz on are zero).
 	for c0 := 0; c0 < q; c0 += fftBatch {
-		nb := min(fftBatch, q-c0)
-		b := f.gatherCols(c0, nb)
-		b = f.cols.transform(b, f.other(b), nb, false)
-		cmulSlice(b[:p*nb], k[c0*p:c0*p+p*nb], io.adjoint)
-		b = f.cols.transform(b, f.other(b), nb, true)
-		for r := 0; r < p; r++ {
-			copy(f.grid[r*q+c0:r*q+c0+nb], b[r*nb:(r+1)*nb])
+		wb := min(fftBatch, q-c0)
+		blk := f.grid[c0*p : c0*p+p*wb]
+		clear(blk[nz*wb:])
+		b := f.cols.transform(blk, f.blk[:p*wb], wb, false)
+		cmulSlice(b, k[c0*p:c0*p+p*wb], io.adjoint)
+		o := f.blk[:p*wb]
+		if &b[0] == &o[0] {
+			o = blk
+		}
+		if b = f.cols.transform(b, o, wb, true); &b[0] != &blk[0] {
+			copy(blk, b)
 		}
 	}
 	// Inverse rows: only the ho output rows.
 	for r0 := 0; r0 < ho; r0 += fftBatch {
 		nb := min(fftBatch, ho-r0)
-		b := f.blk[:q*nb]
-		g := f.grid[(r0ff+r0)*q:]
-		transposeC(b, nb, g, q, nb, q)
-		b = f.rows.transform(b, f.blk2, nb, true)
-		transposeC(g, q, b, nb, q, nb) // back into the rows it came from
+		f.rowsOut(r0ff+r0, nb)
 		for j := 0; j < nb; j++ {
 			r := r0 + j
-			row := g[j*q : (j+1)*q]
+			row := f.rowBuf[j*q : (j+1)*q]
 			io.output(r, row, c0ff, false)
 			if br := ho + r; br < rout {
 				io.output(br, row, c0ff, true)
