@@ -142,8 +142,7 @@ func stage2(x, y []complex64, m, sb int, tw []complex64) {
 // cmul multiplies without the special cases of Go's complex product (none
 // are needed for finite values). The float32 conversions round each product
 // (the Go spec lets a compiler fuse x*y+z otherwise, as arm64's does), so
-// the portable butterflies give the same bits as the AVX ones on every
-// machine.
+// the portable butterflies give the same bits as the AVX ones.
 func cmul(a, b complex64) complex64 {
 	ar, ai, br, bi := real(a), imag(a), real(b), imag(b)
 	return complex(float32(ar*br)-float32(ai*bi), float32(ar*bi)+float32(ai*br))
