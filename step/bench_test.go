@@ -22,9 +22,32 @@ func BenchmarkGridEMS512(b *testing.B) {
 // BenchmarkRL512 is the same with S = I (Richardson-Lucy).
 func BenchmarkRL512(b *testing.B) { benchEMS(b, 1.5, 0) }
 
-// BenchmarkGridEMS512FFT uses a rotated anisotropic PSF (FFT path).
+// BenchmarkGridEMS512FFT uses a rotated anisotropic PSF (13x9 taps, FFT
+// path).
 func BenchmarkGridEMS512FFT(b *testing.B) {
 	k, _ := psf.GaussianAniso(1.5, 0.8, 30)
+	benchRoute(b, k, "fft")
+}
+
+// BenchmarkGridEMS512FFTLarge: sigma 2.5 x 1.0 turned 30 degrees (19x15
+// taps, FFT path), the kernel.
+func BenchmarkGridEMS512FFTLarge(b *testing.B) {
+	k, _ := psf.GaussianAniso(2.5, 1.0, 30)
+	benchRoute(b, k, "fft")
+}
+
+// BenchmarkGridEMS512Direct: sigma 1.0 x 0.5 turned 30 degrees (9x7 taps,
+// direct path).
+func BenchmarkGridEMS512Direct(b *testing.B) {
+	k, _ := psf.GaussianAniso(1.0, 0.5, 30)
+	benchRoute(b, k, "direct")
+}
+
+// benchRoute is benchKernel after checking the route New chooses.
+func benchRoute(b *testing.B, k *psf.Kernel, route string) {
+	if got := conv.New(k).Kind(); got != route {
+		b.Fatalf("%dx%d kernel: route %s, the benchmark measures %s", k.W, k.H, got, route)
+	}
 	benchKernel(b, k, DefaultSmooth)
 }
 

@@ -1,8 +1,6 @@
 package conv
 
 import (
-	"gonum.org/v1/gonum/dsp/fourier"
-
 	"limpid/psf"
 	"limpid/raster"
 	"limpid/step/internal/vec"
@@ -22,9 +20,14 @@ func (k convKind) String() string {
 }
 
 // directMaxTaps is the largest non-separable kernel convolved directly; larger
-// ones go through the FFT. Measured on this machine class (2 cores, gonum
-// v0.17 dsp/fourier, go1.26): direct 13x13 took 67 ms on 512x512 against 27-36 ms for the FFT; a 7x7
-// direct kernel costs about a quarter of the 13x13 one.
+// ones go through the float32 FFT (fft32.go, fftconv.go). Measured on this
+// machine class (2 cores, go1.26, 584x584 tiles, Apply + Adjoint per CPU
+// second; DEVELOPERS.md "Large kernels"): the FFT path runs at 135-154
+// Mpix/s for kernels up to 19x15 taps (110 at 31x23); the vectorised direct
+// path (merged with the vector kernels) at 166 Mpix/s for 9x9 and 118 for
+// 13x9 taps, falling as 1/taps (about 97 taps break even); the portable
+// direct loops alone run at 68 Mpix/s for 3x3 and 5 for 9x9, so without the
+// vector kernels the FFT would win from 9 taps.
 const directMaxTaps = 81
 
 // Operator is the linear operator "convolve with kernel h under half-sample
@@ -56,16 +59,20 @@ type Operator struct {
 }
 
 // New chooses the implementation for a kernel: separable when the kernel
-// is rank one, direct for small kernels, FFT otherwise.
+// is rank one, else direct or FFT by the measured cost rule of route.go.
 func New(k *psf.Kernel) *Operator {
-	c := &Operator{rx: k.Rx(), ry: k.Ry(), kw: k.W, kh: k.H, kern: k}
-	switch {
-	case k.Separable():
-		c.kind = convSeparable
+	return newKind(k, chooseKind(k))
+}
+
+// newKind builds the operator for k with the given implementation
+// (convSeparable needs a separable k).
+func newKind(k *psf.Kernel, kind convKind) *Operator {
+	c := &Operator{kind: kind, rx: k.Rx(), ry: k.Ry(), kw: k.W, kh: k.H, kern: k}
+	switch kind {
+	case convSeparable:
 		c.fwdX, c.adjX, c.symX = taps1(k.X)
 		c.fwdY, c.adjY, c.symY = taps1(k.Y)
-	case k.W*k.H <= directMaxTaps:
-		c.kind = convDirect
+	case convDirect:
 		c.fwd2 = make([]float32, k.W*k.H)
 		c.adj2 = make([]float32, k.W*k.H)
 		n := len(k.Data)
@@ -73,8 +80,6 @@ func New(k *psf.Kernel) *Operator {
 			c.adj2[i] = float32(v)
 			c.fwd2[n-1-i] = float32(v)
 		}
-	default:
-		c.kind = convFFT
 	}
 	return c
 }
@@ -112,7 +117,8 @@ func (c *Operator) Portable() *Operator {
 	return &p
 }
 
-// Kind names the implementation ("separable", "direct", "fft").
+// Kind names the implementation ("separable", "direct", "fft"); the run
+// report's "convolution" field records it.
 func (c *Operator) Kind() string { return c.kind.String() }
 
 // Radius returns the kernel radii.
@@ -385,166 +391,17 @@ func (c *Operator) directAdj(ws *Work, dst, src []float32, w, h int) {
 	}
 }
 
-// fftWork caches FFT plans, spectra and buffers for one padded size.
-type fftWork struct {
-	p, q    int // padded rows, cols
-	rowFFT  *fourier.FFT
-	colFFT  *fourier.CmplxFFT
-	spec    []complex128 // p x (q/2+1), row-major by rows
-	kfwd    []complex128
-	kadj    []complex128
-	rowIn   []float64
-	rowCoef []complex128
-	col     []complex128
-	colOut  []complex128
-	grid    []float64 // p x q
-	forConv *Operator
-	forW    int
-	forH    int
-}
-
-// goodSize returns the smallest n' >= n whose only prime factors are 2, 3, 5
-// (gonum v0.17's FFTPACK-based FFT is about 25x slower on prime sizes,
-// measured).
-func goodSize(n int) int {
-	for m := n; ; m++ {
-		v := m
-		for _, f := range []int{2, 3, 5} {
-			for v%f == 0 {
-				v /= f
-			}
-		}
-		if v == 1 {
-			return m
-		}
-	}
-}
-
-func (c *Operator) fftSetup(ws *Work, w, h int) *fftWork {
-	if f := ws.fft; f != nil && f.forConv == c && f.forW == w && f.forH == h {
-		return f
-	}
-	p := goodSize(h + 4*c.ry)
-	q := goodSize(w + 4*c.rx)
-	nc := q/2 + 1
-	f := &fftWork{p: p, q: q, rowFFT: fourier.NewFFT(q), colFFT: fourier.NewCmplxFFT(p),
-		spec: make([]complex128, p*nc), kfwd: make([]complex128, p*nc), kadj: make([]complex128, p*nc),
-		rowIn: make([]float64, q), rowCoef: make([]complex128, nc), col: make([]complex128, p),
-		colOut: make([]complex128, p), grid: make([]float64, p*q), forConv: c, forW: w, forH: h}
-	// Kernel spectra: correlation with k is multiplication by conj(K).
-	for pass := 0; pass < 2; pass++ {
-		for i := range f.grid {
-			f.grid[i] = 0
-		}
-		for ty := 0; ty < c.kh; ty++ {
-			for tx := 0; tx < c.kw; tx++ {
-				v := c.kern.Data[ty*c.kw+tx] // h(tx-rx, ty-ry): adjoint taps
-				if pass == 0 {
-					v = c.kern.Data[(c.kh-1-ty)*c.kw+(c.kw-1-tx)] // reversed: forward taps
-				}
-				f.grid[ty*q+tx] = v
-			}
-		}
-		dst := f.kfwd
-		if pass == 1 {
-			dst = f.kadj
-		}
-		f.forward2D(dst)
-		for i := range dst {
-			dst[i] = complex(real(dst[i]), -imag(dst[i])) / complex(float64(p*q), 0)
-		}
-	}
-	ws.fft = f
-	return f
-}
-
-// forward2D transforms f.grid (p x q real) into dst (p x (q/2+1)).
-func (f *fftWork) forward2D(dst []complex128) {
-	nc := f.q/2 + 1
-	for y := 0; y < f.p; y++ {
-		f.rowFFT.Coefficients(f.rowCoef, f.grid[y*f.q:(y+1)*f.q])
-		copy(dst[y*nc:(y+1)*nc], f.rowCoef)
-	}
-	for x := 0; x < nc; x++ {
-		for y := 0; y < f.p; y++ {
-			f.col[y] = dst[y*nc+x]
-		}
-		f.colFFT.Coefficients(f.colOut, f.col)
-		for y := 0; y < f.p; y++ {
-			dst[y*nc+x] = f.colOut[y]
-		}
-	}
-}
-
-// inverse2D transforms src (p x (q/2+1)) back into f.grid (unnormalised).
-func (f *fftWork) inverse2D(src []complex128) {
-	nc := f.q/2 + 1
-	for x := 0; x < nc; x++ {
-		for y := 0; y < f.p; y++ {
-			f.col[y] = src[y*nc+x]
-		}
-		f.colFFT.Sequence(f.colOut, f.col)
-		for y := 0; y < f.p; y++ {
-			src[y*nc+x] = f.colOut[y]
-		}
-	}
-	for y := 0; y < f.p; y++ {
-		copy(f.rowCoef, src[y*nc:(y+1)*nc])
-		f.rowFFT.Sequence(f.grid[y*f.q:(y+1)*f.q], f.rowCoef)
-	}
-}
-
-// fftApply computes the forward or adjoint operator through the FFT on the
-// same extended/padded grids as the direct path.
+// fftApply computes the forward or adjoint operator through the float32 FFT
+// (fftconv.go) on the same extended/padded grids as the direct path.
 func (c *Operator) fftApply(ws *Work, dst, src []float32, w, h int, adjoint bool) {
 	f := c.fftSetup(ws, w, h)
-	for i := range f.grid {
-		f.grid[i] = 0
-	}
+	io := corrIO{adjoint: adjoint, src: src[:w*h], dst: dst[:w*h], w: w, h: h, rx: c.rx, ry: c.ry}
 	if !adjoint {
-		// Extended input (h+2ry) x (w+2rx) at the grid origin.
-		for m := 0; m < h+2*c.ry; m++ {
-			sy := raster.Mirror(m-c.ry, h)
-			row := f.grid[m*f.q:]
-			for n := 0; n < w+2*c.rx; n++ {
-				row[n] = float64(src[sy*w+raster.Mirror(n-c.rx, w)])
-			}
-		}
-	} else {
-		// Zero-padded input: src at offset (2ry, 2rx).
-		for y := 0; y < h; y++ {
-			row := f.grid[(y+2*c.ry)*f.q+2*c.rx:]
-			for x := 0; x < w; x++ {
-				row[x] = float64(src[y*w+x])
-			}
-		}
-	}
-	f.forward2D(f.spec)
-	k := f.kfwd
-	if adjoint {
-		k = f.kadj
-	}
-	for i := range f.spec {
-		f.spec[i] *= k[i]
-	}
-	f.inverse2D(f.spec)
-	if !adjoint {
-		for y := 0; y < h; y++ {
-			for x := 0; x < w; x++ {
-				dst[y*w+x] = float32(f.grid[y*f.q+x])
-			}
-		}
+		f.correlate(&io, h+2*c.ry, w+2*c.rx, h, w)
 		return
 	}
-	for i := range dst[:w*h] {
-		dst[i] = 0
-	}
-	for m := 0; m < h+2*c.ry; m++ {
-		ty := raster.Mirror(m-c.ry, h)
-		for n := 0; n < w+2*c.rx; n++ {
-			dst[ty*w+raster.Mirror(n-c.rx, w)] += float32(f.grid[m*f.q+n])
-		}
-	}
+	clear(io.dst)
+	f.correlate(&io, h+4*c.ry, w+4*c.rx, h+2*c.ry, w+2*c.rx)
 }
 
 // SmoothingKernel returns the 1-D smoothing kernel of EMS for bandwidth eps

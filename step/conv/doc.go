@@ -6,6 +6,8 @@
 // 1974; the symmetric-convolution property: Martucci, IEEE TSP 42(5):1038,
 // 1994), and the one float64 Gaussian blur that statistics use.
 //
-// FFTs come from gonum v0.17 dsp/fourier (FFTPACK). Operators are immutable
-// and shared by workers; each worker owns a Work.
+// The convolution's FFT path uses a float32 mixed-radix (4, 2, 3, 5)
+// Stockham FFT of its own, with AVX butterflies on amd64 (fft32.go,
+// fft32_amd64.s); the DCT uses gonum v0.17 dsp/fourier (FFTPACK). Operators
+// are immutable and shared by workers; each worker owns a Work.
 package conv
