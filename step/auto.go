@@ -288,12 +288,8 @@ func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []floa
 		return rp.maskedRisk(ws, aw, g, f, u)
 	}
 	if rp.dctOK {
-		aw.dct.Forward(aw.F, f)
-		var t1, t2, t3 float64
-		q2 := rp.weight.Q2
-		for i, x := range aw.F[:n] {
-			t1 += q2[i] * x * x
-		}
+		var t2, t3 float64
+		t1 := aw.dct.Energy(rp.weight.Q2, f)
 		for i := 0; i < n; i++ {
 			t2 += float64(f[i]) * aw.gd[i]
 			t3 += float64(u[i]) * aw.gv[i]
@@ -336,13 +332,7 @@ func (rp *riskProblem) maskedRisk(ws *Workspace, aw *autoWork, g *GridEMS, f, u 
 		t2 += float64(wp[i]) * aw.gd[i]
 		t3 += float64(tp[i]) * float64(hu[i]) * aw.gv[i]
 	}
-	aw.dct.Forward(aw.F, wp)
-	var t1 float64
-	k := rp.weight.K
-	for i, x := range aw.F[:n] {
-		t1 += k[i] * x * x
-	}
-	return t1 - 2*t2 + 2*t3
+	return aw.dct.Energy(rp.weight.K, wp) - 2*t2 + 2*t3
 }
 
 // iterateJVP advances (f, u) to (fn, un). The f update performs the same
