@@ -122,7 +122,7 @@ func Create(path string, meta raster.Meta, opts WriteOptions) (*Writer, error) {
 		co = append(co, "INTERLEAVE=BAND")
 	}
 	w.co = co
-	ds, err := godal.Create(godal.GTiff, w.tmp, len(meta.Bands), dt, meta.Width, meta.Height, godal.CreationOption(co...), quiet)
+	ds, err := godal.Create(godal.GTiff, w.tmp, len(meta.Bands), dt, meta.Width, meta.Height, godal.CreationOption(scratchOptions(len(meta.Bands))...), quiet)
 	if err != nil {
 		scratch.Remove(w.dir)
 		return nil, fmt.Errorf("raster: creating %s: %w", path, err)
