@@ -121,7 +121,7 @@ func helpArgs(args []string) []string {
 // configFlags maps step.Config's fields to the flags that set them.
 var configFlags = map[string]string{
 	"Method": "--method", "Iterations": "--iterations", "Smooth": "--smooth", "Stop": "--stop",
-	"Choose": "--choose", "Noise": "--noise", "Tolerance": "--tolerance", "Background": "--background",
+	"Choose": "--choose", "ChoiceBudget": "--choice-pixels", "Noise": "--noise", "Tolerance": "--tolerance", "Background": "--background",
 	"Tile": "--tile", "Overlap": "--overlap", "Workers": "--workers", "Uncertainty": "--uncertainty",
 	"Particle.PerPixel": "--particles-per-pixel", "Particle.Potential": "--potential",
 	"Particle.Resampling": "--resampling", "Particle.Start": "--start",

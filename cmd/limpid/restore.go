@@ -50,6 +50,7 @@ func restoreFlags() []cli.Flag {
 		&cli.IntFlag{Name: "iterations", Value: step.DefaultIterations, Usage: "iteration cap per tile (a value given here is a hard cap)", DefaultText: fmt.Sprintf("%d with --stop change (the particle method's default stop), %d with discrepancy, %d with auto where runs whose risk still falls go on up to %d", step.DefaultIterations, step.AutoCap, step.AutoCap, step.AutoHardCap)},
 		&cli.Float64Flag{Name: "tolerance", Value: step.DefaultTolerance, Usage: "--stop change: stop a tile when the relative L1 change falls below this (0 = never)"},
 		&cli.StringFlag{Name: "choose", Value: string(step.ChooseGlobal), Usage: "with auto: global (one choice per band from windows of up to 16 tiles, 1 Mpixel per band at most; uniform look) or per-tile (every tile, 3x3 median-smoothed choice map)"},
+		&cli.IntFlag{Name: "choice-pixels", Value: step.ChoiceBudget, Usage: "with auto and --choose global: at most this many pixels per band enter the risk estimate (centred windows of the sample tiles); 0 = the sample tiles whole (slower; measured in DEVELOPERS.md)"},
 		&cli.StringFlag{Name: "noise", Value: "auto", Usage: "noise model var = a*DN + b used by auto and discrepancy: auto (fitted per band from the scene) or a=GAIN,b=READVAR"},
 		&cli.StringFlag{Name: "method", Value: "grid", Usage: "solver: grid (EMS on the pixel grid) or particle (sequential Monte Carlo EMS with per-pixel error bars; see the particle flags)"},
 		&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "random seed for the particle method and for the probe of the automatic choice (recorded); same seed, same output"},
@@ -171,6 +172,14 @@ func parseJob(c *cli.Context) (*restoreJob, error) {
 	}
 	if err := parseRegularisation(c, &cfg); err != nil {
 		return nil, err
+	}
+	switch v := c.Int("choice-pixels"); {
+	case v < 0:
+		return nil, usagef("--choice-pixels %d must be >= 0 (0: the sample tiles whole)", v)
+	case v == 0:
+		cfg.ChoiceBudget = -1
+	default:
+		cfg.ChoiceBudget = v
 	}
 	if c.Int("workers") < 0 {
 		return nil, usagef("--workers %d must be >= 0", c.Int("workers"))
