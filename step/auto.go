@@ -289,7 +289,7 @@ func (rp *riskProblem) risk(ws *Workspace, aw *autoWork, g *GridEMS, f, u []floa
 	}
 	if rp.dctOK {
 		var t2, t3 float64
-		t1 := aw.dct.Energy(rp.weight.Q2, f)
+		t1 := aw.dct.Energy(rp.weight.Q2m1, f)
 		for i := 0; i < n; i++ {
 			t2 += float64(f[i]) * aw.gd[i]
 			t3 += float64(u[i]) * aw.gv[i]
@@ -332,7 +332,7 @@ func (rp *riskProblem) maskedRisk(ws *Workspace, aw *autoWork, g *GridEMS, f, u 
 		t2 += float64(wp[i]) * aw.gd[i]
 		t3 += float64(tp[i]) * float64(hu[i]) * aw.gv[i]
 	}
-	return aw.dct.Energy(rp.weight.K, wp) - 2*t2 + 2*t3
+	return aw.dct.Energy(rp.weight.Km1, wp) - 2*t2 + 2*t3
 }
 
 // iterateJVP advances (f, u) to (fn, un). The f update performs the same

@@ -59,13 +59,6 @@ func BenchmarkGridEMS512Portable(b *testing.B) {
 	benchEMS(b, 1.5, DefaultSmooth)
 }
 
-// BenchmarkGridEMS512Direct uses a rotated anisotropic PSF small enough for
-// the direct 2-D kernel (9 x 7 taps), with the vector kernels.
-func BenchmarkGridEMS512Direct(b *testing.B) {
-	k, _ := psf.GaussianAniso(1.0, 0.6, 30)
-	benchKernel(b, k, DefaultSmooth)
-}
-
 // BenchmarkGridEMS512DirectPortable is BenchmarkGridEMS512Direct on the
 // portable kernels.
 func BenchmarkGridEMS512DirectPortable(b *testing.B) {

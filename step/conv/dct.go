@@ -45,19 +45,27 @@ func NewDCT2(w, h int) *DCT2 {
 	return d
 }
 
-// Energy returns sum wt[i] F[i]^2, F the orthonormal DCT-II of src: the
-// risk estimate's per-iteration term. For 2,3,5-smooth sizes F is computed
-// in float32 through the FFT (dct32; the sum in float64): its relative
-// error against the float64 transform is a few float32 roundings times
-// the transform's depth, far below the risk's differences between
-// iterations (TestEnergyMatchesFloat64).
-func (d *DCT2) Energy(wt []float64, src []float32) float64 {
+// Energy returns sum (1 + wm1[i]) F[i]^2, F the orthonormal DCT-II of src:
+// the risk estimate's per-iteration term, with its weights given minus one.
+// By Parseval's theorem (the transform is orthonormal) it is computed as
+// sum src^2 + sum wm1 F^2: the first sum in float64 on the pixels, the
+// second on the coefficients, where the risk's weights are near one at the
+// low frequencies that hold most of the energy (wm1 = -lambda / (h^2 +
+// lambda) there), so the coefficients' rounding enters damped. For
+// 2,3,5-smooth sizes F is computed in float32 through the FFT (dct32): on
+// smooth relief, weighting F^2 directly by the float32 coefficients moved
+// the choice between two near-equal bandwidths (DEVELOPERS.md, "The cost
+// of the choice"); TestEnergyMatchesFloat64 bounds the error.
+func (d *DCT2) Energy(wm1 []float64, src []float32) float64 {
 	n := d.w * d.h
 	var e float64
+	for _, x := range src[:n] {
+		e += float64(x) * float64(x)
+	}
 	if d.fast != nil {
 		d.fast.forward(d.coef, src[:n])
 		for i, x := range d.coef {
-			e += wt[i] * float64(x) * float64(x)
+			e += wm1[i] * float64(x) * float64(x)
 		}
 		return e
 	}
@@ -66,7 +74,7 @@ func (d *DCT2) Energy(wt []float64, src []float32) float64 {
 	}
 	d.Forward(d.coef64, src)
 	for i, x := range d.coef64 {
-		e += wt[i] * x * x
+		e += wm1[i] * x * x
 	}
 	return e
 }
@@ -201,7 +209,10 @@ func Eigenvalues(k *psf.Kernel, w, h int) ([]float64, bool) {
 // lambda) and K = 1 / (h^2 + lambda); Radius is the PSF's.
 type RiskWeights struct {
 	Q2, G, K []float64
-	Radius   int
+	// Q2m1 = Q2 - 1 and Km1 = K - 1, the forms DCT2.Energy takes: small
+	// where the coefficients are large (low frequencies, h near 1).
+	Q2m1, Km1 []float64
+	Radius    int
 }
 
 // NewRiskWeights is RiskWeights for kernel k on w x h tiles; ok is false
@@ -211,12 +222,14 @@ func NewRiskWeights(k *psf.Kernel, w, h int, lambda float64) (*RiskWeights, bool
 	if !ok {
 		return nil, false
 	}
-	rw := &RiskWeights{Q2: make([]float64, w*h), G: make([]float64, w*h), K: make([]float64, w*h), Radius: max(k.Rx(), k.Ry())}
+	n := w * h
+	rw := &RiskWeights{Q2: make([]float64, n), G: make([]float64, n), K: make([]float64, n), Q2m1: make([]float64, n), Km1: make([]float64, n), Radius: max(k.Rx(), k.Ry())}
 	for i, l := range lam {
 		den := l*l + lambda
 		rw.Q2[i] = l * l / den
 		rw.G[i] = l / den
 		rw.K[i] = 1 / den
+		rw.Q2m1[i], rw.Km1[i] = -lambda/den, (1-den)/den
 	}
 	return rw, true
 }
