@@ -13,6 +13,7 @@ import (
 	"limpid/step/conv"
 	"limpid/step/internal/level"
 	"limpid/step/noise"
+	"limpid/step/watch"
 )
 
 // chooseMaxTiles bounds the tiles a global choice and the noise fit look
@@ -50,8 +51,12 @@ func sampleTiles(p Plan) map[[2]int]bool {
 // pass runs the tile loop over the whole scene with solver and discards the
 // output (the noise and choice passes).
 func (r *runner) pass(ctx context.Context, solver Solver, what string, tiles map[[2]int]bool) error {
-	if r.cfg.Stage != nil {
-		r.cfg.Stage(what)
+	if w := r.cfg.Watch; w != nil {
+		n := len(tiles) // nil: every tile
+		if tiles == nil {
+			n = r.plan.NTiles()
+		}
+		w.Start(watch.Pass{Kind: watch.Kind(solver.Name()), What: what, Tiles: n * len(r.bands)})
 	}
 	rep := *r.rep
 	rep.Bands = append([]BandReport(nil), r.rep.Bands...)
