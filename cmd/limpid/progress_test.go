@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"fmt"
 	"math"
+	"os"
 	"regexp"
 	"strconv"
 	"strings"
@@ -245,5 +246,36 @@ func TestProgressRestoreLines(t *testing.T) {
 				t.Errorf("last line %q: want the final pass's 100 %% line", last)
 			}
 		})
+	}
+}
+
+// The tile-stream route keeps its one line at the end (a stream's length is
+// not known in advance): stdout carries the restored stream only, stderr
+// the count. Source: POSIX.1-2017 XBD 10.1 (diagnostics on standard error).
+func TestProgressStreamStdout(t *testing.T) {
+	packed := mustRun(t, nil, "tiles", "pack", "--tile", "64", "--overlap", "32", "--bands", "1", fixture("observed.tif"), "-")
+	code, stdout, stderr := limpid(t, packed, args([]string{"restore", "--input-format", "arrow", "--output-format", "arrow"}, streamArgs, []string{"-", "-"})...)
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	if strings.Contains(stdout, "limpid: ") || strings.Contains(stdout, "tiles (") {
+		t.Error("progress text on stdout")
+	}
+	if strings.TrimSpace(stderr) != "limpid: restored 16 tiles" {
+		t.Errorf("stderr %q: want the one count line", stderr)
+	}
+}
+
+// A pipe is not a terminal: the plain mode. Source: POSIX.1-2017 isatty()
+// (true only for a terminal device); golang.org/x/term IsTerminal.
+func TestProgressPipeIsPlain(t *testing.T) {
+	r, w, err := os.Pipe()
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer r.Close()
+	defer w.Close()
+	if p := newRunProgress(w, 0, 1); p.tty {
+		t.Error("a pipe taken for a terminal")
 	}
 }
