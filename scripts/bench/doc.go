@@ -21,7 +21,7 @@
 // Usage, from the repository root:
 //
 //	go run ./scripts/bench [-benchtime 10x] [-count 1] [-portable-env NAME=VALUE]
-//	    [-sizes 2048,4096] [-workers 2] [-dir DIR] [-bin PATH]
+//	    [-sizes 2048,4096] [-workers 2] [-repeat 1] [-dir DIR] [-bin PATH]
 //
 // Flags:
 //
@@ -35,6 +35,8 @@
 //	                   2048,4096; -sizes 2048 skips the 4096^2 part, about 3
 //	                   minutes less; -sizes '' skips them all)
 //	-workers W         --workers of the whole-command runs (default 2)
+//	-repeat R          run each whole-command measurement R times and keep
+//	                   the fastest (peak RSS: the largest; default 1)
 //	-dir DIR           working directory for the scenes (default: a new
 //	                   one under TMPDIR, removed at the end)
 //	-bin PATH          a built limpid binary (default: go build ./cmd/limpid)

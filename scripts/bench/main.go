@@ -56,12 +56,14 @@ func main() {
 	portableEnv := flag.String("portable-env", "", "NAME=VALUE forcing the portable path: the kernel benchmarks run again with it for the portable column")
 	sizes := flag.String("sizes", "2048,4096", "scene sizes of the whole-command rows, comma-separated (empty: none)")
 	workers := flag.Int("workers", 2, "--workers of the whole-command runs")
+	repeat := flag.Int("repeat", 1, "runs per whole-command measurement; the fastest is kept")
 	dir := flag.String("dir", "", "working directory of the whole-command runs (default: a new one under TMPDIR, removed at the end)")
 	bin := flag.String("bin", "", "a built limpid binary (default: go build ./cmd/limpid)")
 	flag.Parse()
 	log.SetFlags(0)
 	log.SetPrefix("bench: ")
 
+	loadStart := measure.Load()
 	var pat []string
 	for _, r := range kernelRows {
 		pat = append(pat, r.bench)
@@ -82,13 +84,13 @@ func main() {
 
 	var scenes []sceneResult
 	if strings.TrimSpace(*sizes) != "" {
-		if scenes, err = wholeCommand(*sizes, *workers, *dir, *bin); err != nil {
+		if scenes, err = wholeCommand(*sizes, *workers, *repeat, *dir, *bin); err != nil {
 			log.Fatal(err)
 		}
 	}
 
-	fmt.Printf("limpid benchmarks: %s, %s/%s, %d CPUs (GOMAXPROCS %d); kernel rows: go test -bench ./step -benchtime %s (best of %d)\n\n",
-		runtime.Version(), runtime.GOOS, runtime.GOARCH, runtime.NumCPU(), runtime.GOMAXPROCS(0), *benchtime, *count)
+	fmt.Printf("limpid benchmarks: %s, %s/%s, %d CPUs (GOMAXPROCS %d), load average %s at the start, %s at the end; kernel rows: go test -bench ./step -benchtime %s (best of %d)\n\n",
+		runtime.Version(), runtime.GOOS, runtime.GOARCH, runtime.NumCPU(), runtime.GOMAXPROCS(0), loadStart, measure.Load(), *benchtime, *count)
 	fmt.Println("| measurement | variant | value | unit |")
 	fmt.Println("|---|---|---|---|")
 	for _, r := range kernelRows {
@@ -120,8 +122,8 @@ func main() {
 			s.n, s.n, s.fixed.RSSMiB, s.auto.RSSMiB, max(s.fixed.RSSMiB, s.auto.RSSMiB))
 	}
 	if len(scenes) > 0 {
-		fmt.Printf("\nWhole command: limpid restore as a child process, --workers %d; fixed: %s; default: %s (peak RSS: getrusage ru_maxrss of the child).\n",
-			*workers, strings.Join(fixedArgs, " "), strings.Join(defaultArgs, " "))
+		fmt.Printf("\nWhole command (best of %d): limpid restore as a child process, --workers %d; fixed: %s; default: %s (peak RSS: getrusage ru_maxrss of the child).\n",
+			*repeat, *workers, strings.Join(fixedArgs, " "), strings.Join(defaultArgs, " "))
 	}
 }
 
@@ -182,7 +184,7 @@ type sceneResult struct {
 
 // wholeCommand times the fixed and the default command on an invented n x
 // n UInt16 band per size.
-func wholeCommand(sizes string, workers int, dir, bin string) ([]sceneResult, error) {
+func wholeCommand(sizes string, workers, repeat int, dir, bin string) ([]sceneResult, error) {
 	if dir == "" {
 		d, err := os.MkdirTemp("", "limpid-bench-")
 		if err != nil {
@@ -212,11 +214,11 @@ func wholeCommand(sizes string, workers int, dir, bin string) ([]sceneResult, er
 		r := sceneResult{n: n}
 		out1 := filepath.Join(dir, "out.tif")
 		log.Printf("%d x %d: fixed", n, n)
-		if r.fixed, err = measure.Run(bin, append(append(append([]string{"restore"}, fixedArgs...), w...), in, out1)...); err != nil {
+		if r.fixed, err = measure.Best(repeat, bin, append(append(append([]string{"restore"}, fixedArgs...), w...), in, out1)...); err != nil {
 			return nil, err
 		}
 		log.Printf("%d x %d: default", n, n)
-		if r.auto, err = measure.Run(bin, append(append(append([]string{"restore"}, defaultArgs...), w...), in, out1)...); err != nil {
+		if r.auto, err = measure.Best(repeat, bin, append(append(append([]string{"restore"}, defaultArgs...), w...), in, out1)...); err != nil {
 			return nil, err
 		}
 		os.Remove(out1)

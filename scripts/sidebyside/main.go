@@ -87,6 +87,7 @@ func run(dir, bin, python string, n, workers, repeat int, demo bool) error {
 			return err
 		}
 	}
+	loadStart := measure.Load()
 	p := func(name string) string { return filepath.Join(dir, name) }
 	in := p("observed.tif")
 	log.Printf("writing the %d x %d band", n, n)
@@ -133,8 +134,8 @@ func run(dir, bin, python string, n, workers, repeat int, demo bool) error {
 		log.Printf("scikit-image rows: n/a (%v)", rlErr)
 	}
 	fmt.Printf("Side by side, %d x %d UInt16 band (1/f-like field + blocks, blurred gaussian:sigma=1.5, noise poisson:gain=0.5,read=3), "+
-		"limpid --workers %d (whole command), scikit-image richardson_lucy 20 iterations (iterations only); best of %d; %s, %d CPUs\n\n",
-		n, n, workers, repeat, runtime.Version(), runtime.NumCPU())
+		"limpid --workers %d (whole command), scikit-image richardson_lucy 20 iterations (iterations only); best of %d; %s, %d CPUs, load average %s at the start, %s at the end\n\n",
+		n, n, workers, repeat, runtime.Version(), runtime.NumCPU(), loadStart, measure.Load())
 	fmt.Println("| run | limpid (s) | scikit-image RL, 20 it (s) | ratio | target | result |")
 	fmt.Println("|---|---|---|---|---|---|")
 	row := func(what, name, rlName string, target float64) {

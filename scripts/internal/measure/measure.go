@@ -152,3 +152,14 @@ func Scene(bin, path string, n int, psfSpec, noiseSpec string) (Result, error) {
 	}
 	return Run(bin, "simulate", "--psf", psfSpec, "--noise", noiseSpec, "--quantize", "UInt16", raw, path)
 }
+
+// Load is the 1-minute load average from /proc/loadavg (Linux proc(5)),
+// or "?" where there is none: the measurements' context on a shared
+// machine.
+func Load() string {
+	b, err := os.ReadFile("/proc/loadavg")
+	if f := strings.Fields(string(b)); err == nil && len(f) > 0 {
+		return f[0]
+	}
+	return "?"
+}
