@@ -1,6 +1,7 @@
 package step
 
 import (
+	"cmp"
 	"context"
 	"fmt"
 	"math"
@@ -51,12 +52,8 @@ func sampleTiles(p Plan) map[[2]int]bool {
 // pass runs the tile loop over the whole scene with solver and discards the
 // output (the noise and choice passes).
 func (r *runner) pass(ctx context.Context, solver Solver, what string, tiles map[[2]int]bool) error {
-	if w := r.cfg.Watch; w != nil {
-		n := len(tiles) // nil: every tile
-		if tiles == nil {
-			n = r.plan.NTiles()
-		}
-		w.Start(watch.Pass{Kind: watch.Kind(solver.Name()), What: what, Tiles: n * len(r.bands)})
+	if w := r.cfg.Watch; w != nil { // tiles nil: every tile
+		w.Start(watch.Pass{Kind: watch.Kind(solver.Name()), What: what, Tiles: len(r.bands) * cmp.Or(len(tiles), r.plan.NTiles())})
 	}
 	rep := *r.rep
 	rep.Bands = append([]BandReport(nil), r.rep.Bands...)
