@@ -12,8 +12,10 @@
 //
 //	-n N        scene width and height in pixels (default 2048)
 //	-workers W  --workers of every limpid run (default 2)
-//	-repeat R   run every measurement R times and keep the fastest (the
-//	            peak RSS is the largest over the repeats; default 1)
+//	-repeat R   rounds: every measurement runs once per round, limpid and
+//	            scikit-image alternating so both sides of a ratio see the
+//	            same load; the fastest round is kept (the peak RSS is the
+//	            largest; default 1)
 //	-demo       also time `limpid demo` (about a minute)
 //	-dir DIR    working directory (default: a new one under TMPDIR,
 //	            removed at the end unless -keep)
