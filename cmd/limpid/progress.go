@@ -298,7 +298,7 @@ func (r *runProgress) plainLine(now time.Time) string {
 	}
 	fmt.Fprintf(&b, "; run %d%%", pct)
 	if known {
-		fmt.Fprintf(&b, ", about %s left", roundLeft(left))
+		fmt.Fprintf(&b, ", %s", leftText(left))
 	}
 	return b.String()
 }
@@ -311,7 +311,7 @@ func (r *runProgress) draw(now time.Time) {
 	bar := strings.Repeat("#", fill) + strings.Repeat(".", barWidth-fill)
 	s := fmt.Sprintf("limpid: [%s] %3d%%", bar, pct)
 	if known && left > 0 {
-		s += fmt.Sprintf(" about %s left,", roundLeft(left))
+		s += fmt.Sprintf(" %s,", leftText(left))
 	}
 	// The least needed last: a narrow terminal cuts them off.
 	s += fmt.Sprintf(" %s %d/%d tiles, %s", r.label(), c.done, c.p.Tiles, now.Sub(r.start).Round(time.Second))
@@ -320,6 +320,14 @@ func (r *runProgress) draw(now time.Time) {
 	}
 	fmt.Fprint(r.w, "\r\x1b[K"+s)
 	r.drawn, r.lastDraw = true, now
+}
+
+// leftText says the time left: "about 1m15s left", "under 1s left".
+func leftText(d time.Duration) string {
+	if d < time.Second {
+		return "under 1s left"
+	}
+	return fmt.Sprintf("about %s left", roundLeft(d))
 }
 
 // roundLeft rounds an estimate of the time left to what it is worth: whole

@@ -279,3 +279,22 @@ func TestProgressPipeIsPlain(t *testing.T) {
 		t.Error("a pipe taken for a terminal")
 	}
 }
+
+// The time left is shown no finer than it is worth (the project's rounding
+// rule, roundLeft; common practice, no source); the text form of a
+// duration is Go's time.Duration.String (Source: go doc time.Duration.String).
+func TestProgressLeftText(t *testing.T) {
+	for _, c := range []struct {
+		d    time.Duration
+		want string
+	}{
+		{400 * time.Millisecond, "under 1s left"},
+		{42*time.Second + 400*time.Millisecond, "about 42s left"},
+		{time.Minute + 13*time.Second, "about 1m15s left"},
+		{12*time.Minute + 20*time.Second, "about 12m0s left"},
+	} {
+		if got := leftText(c.d); got != c.want {
+			t.Errorf("leftText(%v) = %q, want %q", c.d, got, c.want)
+		}
+	}
+}
