@@ -9,6 +9,9 @@
 #                            npm ci in testdata/node
 #   make deps-ref            python3-skimage, only to regenerate the committed
 #                            reference vectors (testdata/ref/*.py)
+#   make bench               the build's packages (go run ./scripts/bench)
+#   make sidebyside          + python3-skimage python3-gdal (already among
+#                            make test's packages)
 SHELL := /bin/bash
 GO ?= go
 # The cgo build of raster/gdal. gcc is named: without recommends nothing
@@ -37,7 +40,7 @@ define apt_missing
 	fi
 endef
 
-.PHONY: deps deps-build deps-test deps-ref demo test test-long bench build clean
+.PHONY: deps deps-build deps-test deps-ref demo test test-long bench sidebyside build clean
 
 # go test's -timeout is per package (per test binary). The slowest packages
 # (step, cmd/limpid) take about 2-4 minutes each with -race on a 2-core
@@ -94,10 +97,22 @@ test: deps-test
 test-long: deps-test
 	LIMPID_LONG=1 $(GO) test -race -count=1 -timeout $(LONG_TIMEOUT) ./...
 
+# make bench prints one table (DEVELOPERS.md, "Benchmarks"): kernel
+# throughput per core, the default/fixed cost at 2048^2 and 4096^2, peak
+# RSS; about 10 minutes on a quiet 2-core machine.
+# BENCH_FLAGS=-sizes=2048 skips the 4096^2 scene; SIDEBYSIDE=1 also runs
+# the side-by-side against scikit-image (make sidebyside).
+BENCH_FLAGS ?=
+SIDEBYSIDE_FLAGS ?=
 bench: deps-build
-	$(GO) test -run '^$$' -bench . -benchmem -benchtime 10x ./step
-	LIMPID_BENCH_SCENE=1 $(GO) test -run '^$$' -bench 'BenchmarkScene' -benchtime 1x -timeout 60m ./cmd/limpid
-	LIMPID_BENCH_STREAM=1 $(GO) test -run '^$$' -bench 'BenchmarkStreamRSS200' -benchtime 1x -cpu 1 ./cmd/limpid
+	$(GO) run ./scripts/bench $(BENCH_FLAGS)
+	@if [ -n "$(SIDEBYSIDE)" ]; then $(MAKE) --no-print-directory sidebyside; fi
+
+# The side-by-side of issue 13: limpid against scikit-image's
+# Richardson-Lucy on one 2048^2 band, ratios and targets (scripts/sidebyside).
+sidebyside: deps-build
+	$(call apt_missing,python3-skimage python3-gdal)
+	$(GO) run ./scripts/sidebyside $(SIDEBYSIDE_FLAGS)
 
 clean:
 	rm -rf bin limpid-demo

@@ -1,6 +1,7 @@
 package step
 
 import (
+	"cmp"
 	"context"
 	"fmt"
 	"math"
@@ -15,6 +16,7 @@ import (
 	"limpid/step/internal/records"
 	"limpid/step/internal/sample"
 	"limpid/step/noise"
+	"limpid/step/watch"
 )
 
 // chooseMaxTiles bounds the tiles a global choice and the noise fit look
@@ -50,8 +52,8 @@ func sampleTiles(p Plan) map[[2]int]bool {
 // pass runs the tile loop over the whole scene with solver and discards the
 // output (the noise and choice passes).
 func (r *runner) pass(ctx context.Context, solver Solver, what string, tiles map[[2]int]bool) error {
-	if r.cfg.Stage != nil {
-		r.cfg.Stage(what)
+	if w := r.cfg.Watch; w != nil { // tiles nil: every tile
+		w.Start(watch.Pass{Kind: watch.Kind(solver.Name()), What: what, Tiles: len(r.bands) * cmp.Or(len(tiles), r.plan.NTiles())})
 	}
 	rep := *r.rep
 	rep.Bands = append([]BandReport(nil), r.rep.Bands...)

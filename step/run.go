@@ -16,6 +16,7 @@ import (
 	"limpid/step/internal/records"
 	"limpid/step/noise"
 	"limpid/step/rowio"
+	"limpid/step/watch"
 )
 
 // Version is limpid's version, recorded in outputs and reports.
@@ -94,9 +95,9 @@ type Config struct {
 	Noise *noise.Model
 	// Progress, when set, is called after each strip with tiles done/total.
 	Progress func(done, total int)
-	// Stage, when set, is called when an extra pass over the scene starts
-	// (noise estimate, automatic choice) with a short description.
-	Stage func(what string)
+	// Watch, when set, sees each pass over the scene start (noise estimate,
+	// automatic choice, the final pass) and each of its tiles done.
+	Watch watch.Watcher
 	// Particle holds the particle method's parameters (particle_config.go).
 	Particle ParticleConfig
 	// Decided, when set, replays an earlier run's decisions per band
@@ -459,6 +460,9 @@ func restore(ctx context.Context, src raster.Reader, bands []int, dst raster.Wri
 	if r.finishDecided(); decideOnly {
 		return rep, nil
 	}
+	if cfg.Watch != nil {
+		cfg.Watch.Start(watch.Pass{Kind: watch.Final, What: "restoring", Tiles: len(bands) * plan.NTiles()})
+	}
 	if err := r.run(ctx); err != nil {
 		return nil, err
 	}
@@ -722,6 +726,9 @@ func (sc *scan) solve(ctx context.Context, wk *TileWork, j *rasterJob) error {
 // writes the finished rows and frees the row's strip.
 func (sc *scan) finish(j *rasterJob, failed bool) error {
 	var err error
+	if !failed && sc.cfg.Watch != nil {
+		sc.cfg.Watch.Done(1)
+	}
 	if !failed && sc.sink != nil {
 		err = sc.put(j)
 	}

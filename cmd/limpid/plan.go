@@ -84,12 +84,14 @@ func planAction(c *cli.Context, stdin io.Reader, stderr io.Writer) error {
 	om := product.Meta(meta, bands, f32)
 	nd, hasND := product.NoData(meta, bands, f32, j.cfg.HasSaturated)
 	cfg := j.cfg
-	cfg.Stage = func(what string) { fmt.Fprintf(stderr, "limpid: %s\n", what) }
+	prog := newRunProgress(stderr, expectedChoices(cfg), 0)
+	cfg.Watch = prog
 	rep, err := step.Decide(c.Context, src, bands, cfg)
+	prog.Close()
 	if err != nil {
 		return err
 	}
-	cfg.Stage = nil
+	cfg.Watch = nil
 	p := plan.New(rep, cfg, meta, bands, j.outType, plan.OutputOf(om, meta.DataType, nd, hasND))
 	valid := make([]step.ValidFunc, len(bands))
 	for i, b := range bands {

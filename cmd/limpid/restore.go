@@ -12,7 +12,6 @@ import (
 	"time"
 
 	"github.com/urfave/cli/v2"
-	"golang.org/x/term"
 
 	"limpid/psf"
 	"limpid/raster"
@@ -437,8 +436,8 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 	}
 	units.warn(stderr, inputName(j.in))
 	cfg := units.config(j.cfg)
-	cfg.Progress = progress(stderr, len(bands)*tileCount(meta, cfg))
-	cfg.Stage = func(what string) { fmt.Fprintf(stderr, "limpid: %s\n", what) }
+	prog := newRunProgress(stderr, expectedChoices(cfg), len(bands)*tileCount(meta, cfg))
+	cfg.Watch = prog
 	unc, err := createUncertainty(j, om)
 	if err != nil {
 		dst.Abort()
@@ -457,6 +456,7 @@ func runRestore(ctx context.Context, j *restoreJob, stdin io.Reader, stdout, std
 		}
 	}
 	rep, err := step.Restore(ctx, engSrc, bands, engDst, cfg)
+	prog.Close()
 	units.report(rep, j.cfg)
 	if err == nil && units.active() {
 		err = recordUnits(dst, units)
@@ -542,32 +542,6 @@ func tileCount(meta raster.Meta, cfg step.Config) int {
 		return 0
 	}
 	return p.NTiles()
-}
-
-// progress reports tiles done: a redrawn line when stderr is a terminal,
-// a plain log line about every 10 % otherwise.
-func progress(stderr io.Writer, total int) func(done, total int) {
-	tty := false
-	if f, ok := stderr.(*os.File); ok {
-		tty = term.IsTerminal(int(f.Fd()))
-	}
-	last := -1
-	start := time.Now()
-	return func(done, n int) {
-		pct := 100 * done / max(n, 1)
-		el := time.Since(start).Round(time.Second)
-		if tty {
-			fmt.Fprintf(stderr, "\rrestoring %d/%d tiles (%d%%) %s", done, n, pct, el)
-			if done == n {
-				fmt.Fprintln(stderr)
-			}
-			return
-		}
-		if pct/10 != last/10 || done == n {
-			last = pct
-			fmt.Fprintf(stderr, "limpid: restored %d/%d tiles (%d%%) in %s\n", done, n, pct, el)
-		}
-	}
 }
 
 // record writes processing metadata items to a GDAL output.

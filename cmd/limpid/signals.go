@@ -12,6 +12,8 @@ import (
 	"syscall"
 	"time"
 
+	"golang.org/x/term"
+
 	"limpid/raster/scratch"
 )
 
@@ -158,6 +160,9 @@ func main() {
 // line is printed.
 func stopNow(sig syscall.Signal) int {
 	scratch.RemoveAll()
+	if term.IsTerminal(int(os.Stderr.Fd())) {
+		fmt.Fprint(os.Stderr, "\r\x1b[K") // the progress line the run did not close
+	}
 	return reportInterrupt(os.Stderr, sig, scratch.Marker{})
 }
 
