@@ -134,3 +134,11 @@ func BenchmarkRiskIteration512(b *testing.B) {
 	}
 	b.ReportMetric(float64(n*n*iters)*float64(b.N)/b.Elapsed().Seconds()/1e6, "Mpix-iter/s")
 }
+
+// BenchmarkRiskIteration512Portable is BenchmarkRiskIteration512 on package
+// vec's portable kernels (the risk's float32 DCT keeps its vector
+// butterflies).
+func BenchmarkRiskIteration512Portable(b *testing.B) {
+	portable(b)
+	BenchmarkRiskIteration512(b)
+}

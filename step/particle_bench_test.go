@@ -67,3 +67,11 @@ func benchParticle(b *testing.B, pot Potential, ess float64, reps int) {
 	}
 	b.ReportMetric(float64(tm.Resamplings)/float64(b.N), "resamplings/op")
 }
+
+// BenchmarkParticleEMS512Portable is BenchmarkParticleEMS512 on package
+// vec's portable kernels (its convolutions; splat, reweight and mutation
+// are scalar on both).
+func BenchmarkParticleEMS512Portable(b *testing.B) {
+	portable(b)
+	BenchmarkParticleEMS512(b)
+}
