@@ -104,7 +104,7 @@ func measure(md *strings.Builder, s tunescene.Scene, interior []bool) (result, e
 	if err != nil {
 		return r, err
 	}
-	base := step.Config{PSF: k, Workers: 1, Overlap: -1}
+	base := step.Config{PSF: k, Workers: 1} // Overlap 0: the automatic halo
 	fixed := base
 	fixed.Smooth, fixed.Iterations, fixed.Tolerance = step.DefaultSmooth, step.DefaultIterations, step.DefaultTolerance
 	auto := base

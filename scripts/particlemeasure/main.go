@@ -118,7 +118,7 @@ func costAccuracy(md *strings.Builder, scenes []scene) error {
 		src := s.mem()
 		fmt.Fprintf(md, "| %s | observed | %.2f | | | |\n", s.name, assess.PSNR(s.ref, s.obs, s.valid, s.L))
 		cfg := step.Config{PSF: s.k, PSFSpec: "gaussian:sigma=1.4", Smooth: step.DefaultSmooth, Iterations: step.DefaultIterations,
-			Tolerance: step.DefaultTolerance, Tile: 512, Overlap: -1, Workers: 1, Seed: 1}
+			Tolerance: step.DefaultTolerance, Tile: 512, Workers: 1, Seed: 1} // Overlap 0: the automatic halo
 		for _, tol := range []float64{step.DefaultTolerance, 0} {
 			c := cfg
 			c.Tolerance = tol
