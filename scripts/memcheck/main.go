@@ -6,6 +6,7 @@ import (
 	"encoding/binary"
 	"flag"
 	"fmt"
+	lm "limpid/scripts/internal/measure"
 	"log"
 	"math"
 	"os"
@@ -74,18 +75,12 @@ func main() {
 	if *n < 64 {
 		log.Fatal("-n must be at least 64")
 	}
-	if *dir == "" {
-		d, err := os.MkdirTemp("", "limpid-memcheck-")
-		if err != nil {
-			log.Fatal(err)
-		}
-		*dir = d
-		if !*keep {
-			defer os.RemoveAll(d)
-		}
-	} else if err := os.MkdirAll(*dir, 0o755); err != nil {
+	d, removeDir, err := lm.WorkDir(*dir, "limpid-memcheck-", *keep)
+	if err != nil {
 		log.Fatal(err)
 	}
+	defer removeDir()
+	*dir = d
 	if *bin == "" {
 		*bin = filepath.Join(*dir, "limpid")
 		if out, err := exec.Command("go", "build", "-o", *bin, "./cmd/limpid").CombinedOutput(); err != nil {

@@ -61,23 +61,15 @@ func main() {
 	if *n < 64 {
 		log.Fatal("-n must be at least 64")
 	}
-	if *dir == "" {
-		d, err := os.MkdirTemp("", "limpid-sidebyside-")
-		if err != nil {
-			log.Fatal(err)
-		}
-		*dir = d
-		if !*keep {
-			defer os.RemoveAll(d)
-		}
-	} else if err := os.MkdirAll(*dir, 0o755); err != nil {
+	d, removeDir, err := measure.WorkDir(*dir, "limpid-sidebyside-", *keep)
+	if err != nil {
 		log.Fatal(err)
 	}
+	defer removeDir()
+	*dir = d
 	if err := run(*dir, *bin, *python, *n, *workers, *repeat, *demo); err != nil {
 		log.Print(err)
-		if !*keep && *dir != "" {
-			os.RemoveAll(*dir)
-		}
+		removeDir() // os.Exit skips the deferred call
 		os.Exit(1)
 	}
 }

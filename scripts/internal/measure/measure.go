@@ -163,3 +163,20 @@ func Load() string {
 	}
 	return "?"
 }
+
+// WorkDir returns the working directory of a measurement run: dir when
+// given (created if missing), else a new one under TMPDIR named prefix*;
+// cleanup removes a new one unless keep (and does nothing for a given dir).
+func WorkDir(dir, prefix string, keep bool) (string, func(), error) {
+	if dir != "" {
+		return dir, func() {}, os.MkdirAll(dir, 0o755)
+	}
+	d, err := os.MkdirTemp("", prefix)
+	if err != nil {
+		return "", nil, err
+	}
+	if keep {
+		return d, func() {}, nil
+	}
+	return d, func() { os.RemoveAll(d) }, nil
+}
