@@ -269,13 +269,7 @@ func TestAutoWorkersIdentical(t *testing.T) {
 func TestGlobalChoiceSumsCandidates(t *testing.T) {
 	const n = 96
 	k, _ := psf.GaussianIso(1.2)
-	rng := rand.New(rand.NewPCG(27, 28))
-	bands, _ := scene.ValleyReference(n, n)
-	valid := make([]bool, n*n)
-	for i := range valid {
-		valid[i] = true
-	}
-	obs := scene.Degrade(bands[2], valid, n, n, conv.New(k), scene.Sensor{Gain: 0.4, Read: 3}, rng)
+	_, _, obs := valleyBand(n, k, rand.NewPCG(27, 28))
 	_, rep := restorePlane(t, obs, n, Config{PSF: k, Workers: 2, Tile: 48, SmoothAuto: true, Stop: StopAuto, Iterations: 30})
 	ch := rep.Bands[0].Choice
 	if ch.TilesUsed < 2 {
@@ -382,13 +376,7 @@ func TestAutoStopPastTheCap(t *testing.T) {
 func TestChoiceBudgetBoundsPixels(t *testing.T) {
 	const n = 384
 	k, _ := psf.GaussianIso(1.2)
-	rng := rand.New(rand.NewPCG(31, 32))
-	bands, _ := scene.ValleyReference(n, n)
-	valid := make([]bool, n*n)
-	for i := range valid {
-		valid[i] = true
-	}
-	obs := scene.Degrade(bands[2], valid, n, n, conv.New(k), scene.Sensor{Gain: 0.4, Read: 3}, rng)
+	ref, valid, obs := valleyBand(n, k, rand.NewPCG(31, 32))
 	cfg := Config{PSF: k, Workers: 2, Tile: 192, SmoothAuto: true, Stop: StopAuto, Iterations: 40}
 	const budget = 4 * 128 * 128
 	var psnr [2]float64
@@ -401,7 +389,7 @@ func TestChoiceBudgetBoundsPixels(t *testing.T) {
 			t.Fatalf("budget %d: %d tiles used, want the 2 x 2 plan's 4", b, ch.TilesUsed)
 		}
 		used[i] = ch.PixelsUsed
-		psnr[i] = assess.PSNR(bands[2], out, valid, 4095)
+		psnr[i] = assess.PSNR(ref, out, valid, 4095)
 	}
 	if used[1] != budget {
 		t.Errorf("with a budget of %d pixels the risk ran on %d (want 4 windows of 128^2)", budget, used[1])
@@ -413,4 +401,16 @@ func TestChoiceBudgetBoundsPixels(t *testing.T) {
 	if psnr[0]-psnr[1] > worstLoss {
 		t.Errorf("budgeted choice %.2f dB against %.2f dB on whole tiles: lost more than %.1f dB", psnr[1], psnr[0], worstLoss)
 	}
+}
+
+// valleyBand is the invented valley's third band at n x n (every pixel
+// valid) and its observation through k with Poisson-Gaussian noise (gain
+// 0.4, read 3) drawn from src.
+func valleyBand(n int, k *psf.Kernel, src rand.Source) (ref []float32, valid []bool, obs []float32) {
+	bands, _ := scene.ValleyReference(n, n)
+	valid = make([]bool, n*n)
+	for i := range valid {
+		valid[i] = true
+	}
+	return bands[2], valid, scene.Degrade(bands[2], valid, n, n, conv.New(k), scene.Sensor{Gain: 0.4, Read: 3}, rand.New(src))
 }

@@ -12,7 +12,6 @@ import (
 	"time"
 
 	"limpid/psf"
-	"limpid/raster"
 	"limpid/scripts/internal/tunescene"
 	"limpid/step"
 	"limpid/step/assess"
@@ -59,16 +58,6 @@ func main() {
 			log.Fatal(err)
 		}
 	}
-}
-
-// restorePlane restores a one-band UInt16 scene and times it.
-func restorePlane(obs []float32, cfg step.Config) ([]float32, *step.Report, time.Duration, error) {
-	src := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "UInt16", Bands: []raster.BandInfo{{}}})
-	copy(src.Bands[0], obs)
-	dst := raster.NewMem(src.M)
-	start := time.Now()
-	rep, err := step.Restore(context.Background(), src, []int{0}, dst, cfg)
-	return dst.Bands[0], rep, time.Since(start), err
 }
 
 // oracle runs every candidate bandwidth to maxIt and returns the best PSNR
@@ -118,7 +107,7 @@ func measure(md *strings.Builder, s tunescene.Scene, interior []bool) (result, e
 	var arep *step.Report
 	for i, c := range []step.Config{fixed, auto, tile, disc} {
 		var rep *step.Report
-		if outs[i], rep, walls[i], err = restorePlane(s.Obs, c); err != nil {
+		if outs[i], rep, walls[i], err = tunescene.Restore(s.Obs, n, c); err != nil {
 			return r, err
 		}
 		if i == 1 {
@@ -128,7 +117,7 @@ func measure(md *strings.Builder, s tunescene.Scene, interior []bool) (result, e
 	ch, nm := arep.Bands[0].Choice, arep.Bands[0].Noise
 	same := base
 	same.Smooth, same.Iterations = ch.Smooth, ch.Iterations
-	_, _, st, err := restorePlane(s.Obs, same)
+	_, _, st, err := tunescene.Restore(s.Obs, n, same)
 	if err != nil {
 		return r, err
 	}

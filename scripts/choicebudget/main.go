@@ -1,7 +1,6 @@
 package main
 
 import (
-	"context"
 	"flag"
 	"fmt"
 	"log"
@@ -10,7 +9,6 @@ import (
 	"time"
 
 	"limpid/psf"
-	"limpid/raster"
 	"limpid/scripts/internal/tunescene"
 	"limpid/step"
 	"limpid/step/assess"
@@ -48,7 +46,7 @@ func main() {
 		var wall [2]time.Duration
 		for i, b := range []int{-1, *budget} {
 			cfg.ChoiceBudget = b
-			f, rep, d, err := restorePlane(s.Obs, *n, cfg)
+			f, rep, d, err := tunescene.Restore(s.Obs, *n, cfg)
 			if err != nil {
 				log.Fatal(err)
 			}
@@ -70,16 +68,6 @@ func main() {
 			log.Fatal(err)
 		}
 	}
-}
-
-// restorePlane restores a one-band UInt16 scene of n x n pixels and times it.
-func restorePlane(obs []float32, n int, cfg step.Config) ([]float32, *step.Report, time.Duration, error) {
-	src := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "UInt16", Bands: []raster.BandInfo{{}}})
-	copy(src.Bands[0], obs)
-	dst := raster.NewMem(src.M)
-	start := time.Now()
-	rep, err := step.Restore(context.Background(), src, []int{0}, dst, cfg)
-	return dst.Bands[0], rep, time.Since(start), err
 }
 
 // meanWorst returns the mean and largest of the losses and of the ratios.

@@ -1,7 +1,12 @@
 package tunescene
 
 import (
+	"context"
+	"time"
+
 	"fmt"
+	"limpid/raster"
+	"limpid/step"
 	"limpid/step/conv"
 	"limpid/step/mix"
 	scenes "limpid/step/scene"
@@ -133,4 +138,15 @@ func Ones(n int) []float32 {
 		m[i] = 1
 	}
 	return m
+}
+
+// Restore restores a one-band n x n UInt16 scene in memory with cfg and
+// times it.
+func Restore(obs []float32, n int, cfg step.Config) ([]float32, *step.Report, time.Duration, error) {
+	src := raster.NewMem(raster.Meta{Width: n, Height: n, DataType: "UInt16", Bands: []raster.BandInfo{{}}})
+	copy(src.Bands[0], obs)
+	dst := raster.NewMem(src.M)
+	start := time.Now()
+	rep, err := step.Restore(context.Background(), src, []int{0}, dst, cfg)
+	return dst.Bands[0], rep, time.Since(start), err
 }
