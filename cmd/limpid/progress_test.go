@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 	"os"
+	"os/exec"
+	"path/filepath"
 	"regexp"
 	"strconv"
 	"strings"
@@ -296,5 +298,42 @@ func TestProgressLeftText(t *testing.T) {
 		if got := leftText(c.d); got != c.want {
 			t.Errorf("leftText(%v) = %q, want %q", c.d, got, c.want)
 		}
+	}
+}
+
+// On a real terminal the run draws one line redrawn in place and leaves it
+// cleared: the test binary runs as limpid under util-linux script(1),
+// which gives it a pseudo-terminal (stderr is then a terminal:
+// golang.org/x/term IsTerminal, POSIX isatty), and every redraw starts
+// with CR and ECMA-48 EL (erase in line, CSI K; ECMA-48 5th ed. 8.3.41).
+// Skipped where script(1) is missing.
+func TestProgressTerminal(t *testing.T) {
+	scriptBin, err := exec.LookPath("script")
+	if err != nil {
+		t.Skip("script(1) not installed")
+	}
+	out := filepath.Join(t.TempDir(), "out.tif")
+	line := strings.Join([]string{os.Args[0], "restore", "--psf", "gaussian:sigma=0.7", "--tile", "64", "--bands", "1",
+		"--workers", "2", fixture("observed.tif"), out}, " ")
+	cmd := exec.Command(scriptBin, "-qec", line, "/dev/null")
+	cmd.Env = append(os.Environ(), childEnv+"=1")
+	got, err := cmd.CombinedOutput()
+	if err != nil {
+		t.Fatalf("%s under script(1): %v\n%q", line, err, got)
+	}
+	s := string(got)
+	if !strings.Contains(s, "\r\x1b[Klimpid: [") {
+		t.Fatalf("no redrawn progress bar on the terminal:\n%q", s)
+	}
+	if strings.Contains(s, "tiles (100%)") {
+		t.Errorf("the plain log lines were written on a terminal:\n%q", s)
+	}
+	// The last redraw is erased at the end: the terminal's final output
+	// is the clearing sequence (script(1) may add its own CR LF).
+	if end := strings.TrimRight(s, "\r\n"); !strings.HasSuffix(end, "\r\x1b[K") {
+		t.Errorf("the progress line is not cleared at the end: ends %q", end[max(0, len(end)-60):])
+	}
+	if _, err := os.Stat(out); err != nil {
+		t.Errorf("no output: %v", err)
 	}
 }
