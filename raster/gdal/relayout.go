@@ -57,7 +57,10 @@ func (w *Writer) relayout() (string, error) {
 // restore writes before the final copy (relayout, or the COG copy): tiled
 // like the product, ZSTD at level 1 (fast to write and to read back;
 // GTiff's COMPRESS=ZSTD and ZSTD_LEVEL, GDAL 2.3 and later:
-// https://gdal.org/drivers/raster/gtiff.html), one band after another.
+// https://gdal.org/drivers/raster/gtiff.html), one band after another. A
+// GDAL built without ZSTD warns and writes the staging file uncompressed
+// (checked with COMPRESS=BOGUS on GDAL 3.6: "value not recognised,
+// ignoring"), which works at the cost of temporary disk.
 func scratchOptions(bands int) []string {
 	co := []string{"TILED=YES", "BLOCKXSIZE=256", "BLOCKYSIZE=256", "COMPRESS=ZSTD", "ZSTD_LEVEL=1", "BIGTIFF=IF_SAFER"}
 	if bands > 1 {
