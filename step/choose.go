@@ -13,7 +13,6 @@ import (
 	"limpid/raster"
 	"limpid/step/conv"
 	"limpid/step/internal/level"
-	"limpid/step/internal/records"
 	"limpid/step/internal/sample"
 	"limpid/step/noise"
 	"limpid/step/watch"
@@ -523,7 +522,7 @@ func (c *chooser) tileMap(band int, fallback Choice) map[[2]int]TileChoice {
 		}
 		raw[[2]int{k.Col, k.Row}] = TileChoice{Col: k.Col, Row: k.Row, Smooth: runs[bi].Smooth, Iterations: max(1, runs[bi].BestK)}
 	}
-	return records.SmoothTileMap(raw, nc, nr, fallback.Smooth, fallback.Iterations)
+	return level.SmoothTileMap(raw, nc, nr, fallback.Smooth, fallback.Iterations)
 }
 
 // newGrid builds a plain GridEMS for (eps, k).

@@ -5,6 +5,7 @@ import (
 	"sort"
 
 	"limpid/raster"
+	"limpid/step/internal/records"
 )
 
 // Background samples every k-th row (at most ~2000 rows) and returns the
@@ -107,4 +108,33 @@ func (l *lowest) add(x float32, keep int) {
 		}
 	}
 	l.v = h
+}
+
+// SmoothTileMap fills every tile of an nc x nr grid with the median of the
+// raw per-tile choices in its 3 x 3 neighbourhood (bandwidth and log
+// iterations separately; the lower median of an even count), so that
+// neighbouring tiles do not jump between very different settings; a tile
+// with no chosen neighbour gets smooth and iterations.
+func SmoothTileMap(raw map[[2]int]records.TileChoice, nc, nr int, smooth float64, iterations int) map[[2]int]records.TileChoice {
+	out := map[[2]int]records.TileChoice{}
+	for row := 0; row < nr; row++ {
+		for col := 0; col < nc; col++ {
+			var es, ks []float64
+			for dy := -1; dy <= 1; dy++ {
+				for dx := -1; dx <= 1; dx++ {
+					if t, ok := raw[[2]int{col + dx, row + dy}]; ok {
+						es = append(es, t.Smooth)
+						ks = append(ks, math.Log(float64(t.Iterations)))
+					}
+				}
+			}
+			tc := records.TileChoice{Col: col, Row: row, Smooth: smooth, Iterations: iterations}
+			if len(es) > 0 {
+				tc.Smooth = LowMedian(es)
+				tc.Iterations = max(1, int(math.Round(math.Exp(LowMedian(ks)))))
+			}
+			out[[2]int{col, row}] = tc
+		}
+	}
+	return out
 }
