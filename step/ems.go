@@ -194,9 +194,8 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 	g.H.Apply(&ws.conv, ws.p, f, w, h)
 	pp, q, d, m := ws.p[:n], ws.q[:n], p.D[:n], p.Mask[:n]
 	if wantRSS {
-		// Kept scalar: iterateJVP (auto.go) sums the same residuals in
-		// this order, and both solves must stop at the same iterate;
-		// vec.ResidualSS is the vector form for both at once.
+		// The same sum in the same order as iterateJVP (auto.go): both
+		// solves must stop at the same iterate.
 		for i := range pp {
 			if m[i] != 0 {
 				e := float64(d[i] - pp[i] - b)
@@ -204,21 +203,15 @@ func (g *GridEMS) iterate(ws *Workspace, p *Problem, f, fn []float32, wantRSS bo
 			}
 		}
 	}
-	dataRatio(q, pp, d, m, b)
+	vec.Ratio(q, pp, d, m, b)
 	g.H.Adjoint(&ws.conv, ws.t, q, w, h)
 	e := fn
 	if g.S != nil {
 		e = ws.p // H f is no longer needed
 	}
-	ff := f[:n]
-	vec.Update(e[:n], ff, ws.t[:n], ws.s[:n], sensitivityFloor)
+	vec.Update(e[:n], f[:n], ws.t[:n], ws.s[:n], sensitivityFloor)
 	if g.S != nil {
 		g.S.Apply(&ws.conv, fn, e, w, h)
 	}
-	return plane.RelChange(fn[:n], ff), rss
+	return plane.RelChange(fn[:n], f[:n]), rss
 }
-
-// dataRatio sets q = w d / (Hf + b) where the mask is set and the
-// prediction positive, else 0 (no data term); vectorised (vec.Ratio, the
-// same bits as the scalar loop).
-func dataRatio(q, hf, d, m []float32, b float32) { vec.Ratio(q, hf, d, m, b) }

@@ -13,6 +13,7 @@ import (
 	"limpid/step/conv"
 	"limpid/step/draw"
 	"limpid/step/internal/option"
+	"limpid/step/internal/vec"
 	"limpid/step/mix"
 	"limpid/step/resample"
 )
@@ -615,7 +616,7 @@ func (pr *particleRun) iterate(k int) error {
 	}
 	pe.H.Apply(&ws.conv, ws.p, pw.fhat, w, h)
 	q := ws.q[:n]
-	dataRatio(q, ws.p[:n], pr.p.D[:n], pr.p.Mask[:n], pr.p.Background)
+	vec.Ratio(q, ws.p[:n], pr.p.D[:n], pr.p.Mask[:n], pr.p.Background)
 	sum, sq := pr.reweight(q)
 	pr.clock.lap(&option.OrDiscard(tm).Reweight)
 	if !(sum > 0) {

@@ -235,30 +235,3 @@ func L1Sums(a, b []float32) (diff, norm float64) {
 	}
 	return diff, norm
 }
-
-// ResidualSS returns sum over m[i] != 0 of e*e, e = float64(d[i] - hf[i] - b)
-// (the difference in float32, the square and sum in float64; len(d)
-// elements, the other slices at least as long): the residual sum of squares
-// of a prediction hf + b. Like L1Sums it keeps 8 lanes, same bits on both
-// paths.
-func ResidualSS(d, hf, m []float32, b float32) float64 {
-	n := len(d)
-	hf, m = hf[:n], m[:n]
-	var sl [l1Lanes]float64
-	i := 0
-	if accel && n >= l1Lanes {
-		i = n &^ (l1Lanes - 1)
-		rssAsm(&sl, d[:i], hf, m, b)
-	}
-	for l := 0; i < n; i, l = i+1, (l+1)%l1Lanes {
-		if m[i] != 0 {
-			e := float64(d[i] - hf[i] - b)
-			sl[l] += float64(e * e) // float64(...): no fused multiply-add
-		}
-	}
-	var s float64
-	for _, v := range sl {
-		s += v
-	}
-	return s
-}

@@ -33,9 +33,3 @@ func updateJVPAsm(e, ue, f, u, t, dt, s []float32, floor float32)
 //
 //go:noescape
 func l1SumsAsm(dl, nl *[8]float64, a, b []float32)
-
-// rssAsm adds the masked squared residuals to the lanes sl[i%8] for
-// i < len(d), a multiple of 8.
-//
-//go:noescape
-func rssAsm(sl *[8]float64, d, hf, m []float32, b float32)

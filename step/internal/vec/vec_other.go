@@ -15,5 +15,3 @@ func ratioJVPAsm(q, dq, hf, d, m, delta, hu []float32, b float32) { panic("vec: 
 func updateJVPAsm(e, ue, f, u, t, dt, s []float32, floor float32) { panic("vec: no vector kernels") }
 
 func l1SumsAsm(dl, nl *[8]float64, a, b []float32) { panic("vec: no vector kernels") }
-
-func rssAsm(sl *[8]float64, d, hf, m []float32, b float32) { panic("vec: no vector kernels") }

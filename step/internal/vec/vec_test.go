@@ -300,33 +300,3 @@ func TestL1Sums(t *testing.T) {
 		}
 	}
 }
-
-// Source: IEEE 754-2008 section 5.4.1 and Higham 2002, section 4.2, as for
-// TestL1Sums: same bits on both paths, reassociation error only against
-// the sequential masked sum (masks with zeros and NaN: m != 0 holds for NaN,
-// as in Go).
-func TestResidualSS(t *testing.T) {
-	r := rand.New(rand.NewPCG(15, 16))
-	defer SetPortable(false)
-	for _, n := range corrLengths() {
-		hf, d, _, m := elemInputs(r, n+1)
-		hf, d, m = hf[1:], d[:n], m[1:]
-		var seq float64
-		for i := range d {
-			if m[i] != 0 {
-				e := float64(d[i] - hf[i] - 0.25)
-				seq += e * e
-			}
-		}
-		tol := float64(n+1) * 0x1p-53
-		SetPortable(true)
-		p := ResidualSS(d, hf, m, 0.25)
-		if math.Abs(p-seq) > tol*seq {
-			t.Fatalf("n %d: ResidualSS %g, sequential %g", n, p, seq)
-		}
-		SetPortable(false)
-		if v := ResidualSS(d, hf, m, 0.25); math.Float64bits(v) != math.Float64bits(p) {
-			t.Fatalf("n %d: vector %g, portable %g", n, v, p)
-		}
-	}
-}
