@@ -136,6 +136,20 @@ func Prepare(p *Problem) (nValid int, flux float64) {
 	return nValid, flux
 }
 
+// record books iterate k (now f, with relative change change) in res,
+// reports it to Observe, and says whether the change stop ends the run:
+// the bookkeeping both solves share.
+func (g *GridEMS) record(res *Result, p *Problem, k int, f []float32, change float64) (stop bool) {
+	res.Iterations, res.Change = k, change
+	if p.Record {
+		res.Changes = append(res.Changes, change)
+	}
+	if g.Observe != nil {
+		g.Observe(k, f, change)
+	}
+	return g.Tolerance > 0 && change < g.Tolerance
+}
+
 // Solve implements Solver.
 func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []float32) (Result, error) {
 	if p.SE != nil && p.SENoise != nil {
@@ -168,15 +182,7 @@ func (g *GridEMS) Solve(ctx context.Context, ws *Workspace, p *Problem, dst []fl
 			break
 		}
 		f, ws.fn = ws.fn, f
-		res.Iterations = k + 1
-		res.Change = change
-		if p.Record {
-			res.Changes = append(res.Changes, change)
-		}
-		if g.Observe != nil {
-			g.Observe(k+1, f, change)
-		}
-		if g.Tolerance > 0 && change < g.Tolerance {
+		if g.record(&res, p, k+1, f, change) {
 			break
 		}
 	}

@@ -79,14 +79,7 @@ func (g *GridEMS) solveNoiseMap(ctx context.Context, ws *Workspace, p *Problem, 
 		change := plane.RelChange(fn[:n], f)
 		f, fn = fn, f
 		u, un = un, u
-		res.Iterations, res.Change = k+1, change
-		if p.Record {
-			res.Changes = append(res.Changes, change)
-		}
-		if g.Observe != nil {
-			g.Observe(k+1, f, change)
-		}
-		if g.Tolerance > 0 && change < g.Tolerance {
+		if g.record(&res, p, k+1, f, change) {
 			break
 		}
 	}
