@@ -39,7 +39,7 @@ func NewDCT2(w, h int) *DCT2 {
 		d.ty = fourier.NewQuarterWaveFFT(h)
 	}
 	d.ax, d.ay = dctScales(w), dctScales(h)
-	if w > 1 && h > 1 && smooth235(w) && smooth235(h) {
+	if w > 1 && h > 1 && Smooth235(w) && Smooth235(h) {
 		d.fast, d.coef = newDCT32(w, h), make([]float32, w*h)
 	}
 	return d

@@ -33,8 +33,9 @@ type stage32 struct {
 	tw, twi []complex64
 }
 
-// smooth235 reports whether n's only prime factors are 2, 3 and 5.
-func smooth235(n int) bool {
+// Smooth235 reports whether n's only prime factors are 2, 3 and 5: the
+// lengths the FFT here transforms (and the DCT's fast route takes).
+func Smooth235(n int) bool {
 	if n < 1 {
 		return false
 	}
@@ -48,7 +49,7 @@ func smooth235(n int) bool {
 
 // newPlan32 builds the plan for n (n must be 2^a 3^b 5^c, n >= 1).
 func newPlan32(n int) *plan32 {
-	if !smooth235(n) {
+	if !Smooth235(n) {
 		panic("conv: FFT length not 2,3,5-smooth")
 	}
 	p := &plan32{n: n}

@@ -170,7 +170,7 @@ func TestTransposeC(t *testing.T) {
 func TestFFTGoodSize(t *testing.T) {
 	for n := 1; n < 3000; n += 29 {
 		m := fftGoodSize(n)
-		if m < n || m%4 != 0 || !smooth235(m) || m >= n+n/4+4 {
+		if m < n || m%4 != 0 || !Smooth235(m) || m >= n+n/4+4 {
 			t.Fatalf("fftGoodSize(%d) = %d", n, m)
 		}
 	}

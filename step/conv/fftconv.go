@@ -47,7 +47,7 @@ type fftWork struct {
 // fftSize is the smallest 2^a 3^b 5^c at least n.
 func fftSize(n int) int {
 	for m := max(n, 1); ; m++ {
-		if smooth235(m) {
+		if Smooth235(m) {
 			return m
 		}
 	}
@@ -73,7 +73,7 @@ func fftCost(n int) float64 {
 func fftGoodSize(n int) int {
 	best, bc := 0, 0.0
 	for m := max(n, 4); best == 0 || m < n+n/4+4; m++ {
-		if m%4 == 0 && smooth235(m) {
+		if m%4 == 0 && Smooth235(m) {
 			if c := fftCost(m); best == 0 || c < bc {
 				best, bc = m, c
 			}

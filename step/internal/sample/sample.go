@@ -1,6 +1,10 @@
 package sample
 
-import "math"
+import (
+	"math"
+
+	"limpid/step/conv"
+)
 
 // Grid returns up to perAxis indices of 0..n-1 spread evenly (the centres
 // of perAxis equal strata); all of them when n <= perAxis.
@@ -41,17 +45,12 @@ func Window(a, b, side int) (int, int) {
 }
 
 // SmoothAtMost returns the largest n' <= n whose only prime factors are 2,
-// 3 and 5 (1 for n < 2). Measured with gonum v0.17: the 592^2 DCT
-// (592 = 16 x 37) took twice the 576^2 one.
+// 3 and 5 (conv.Smooth235; 1 for n < 2). Measured with gonum v0.17: the
+// 592^2 DCT (592 = 16 x 37) took twice the 576^2 one; the float32 route of
+// the risk's DCT (conv.DCT2.Energy) takes only such lengths.
 func SmoothAtMost(n int) int {
 	for m := n; m > 1; m-- {
-		v := m
-		for _, f := range []int{2, 3, 5} {
-			for v%f == 0 {
-				v /= f
-			}
-		}
-		if v == 1 {
+		if conv.Smooth235(m) {
 			return m
 		}
 	}
