@@ -59,9 +59,7 @@ func (r *runner) pass(ctx context.Context, solver Solver, what string, tiles map
 	for i := range rep.Bands {
 		rep.Bands[i].Tiles = nil
 	}
-	cfg := r.cfg
-	cfg.Progress = nil
-	sub := &runner{cfg: cfg, plan: r.plan, src: r.src, dst: discard{}, bands: r.bands, valid: r.valid, rep: &rep, solver: solver,
+	sub := &runner{cfg: r.cfg, plan: r.plan, src: r.src, dst: discard{}, bands: r.bands, valid: r.valid, rep: &rep, solver: solver,
 		need: func(col, row int) bool { return tiles == nil || tiles[[2]int{col, row}] }}
 	err := sub.run(ctx)
 	// The pass's strip buffers are garbage now; hand them back before the

@@ -93,7 +93,9 @@ type Config struct {
 	ChoiceBudget int
 	// Noise, when set, replaces the estimated per-band noise model.
 	Noise *noise.Model
-	// Progress, when set, is called after each strip with tiles done/total.
+	// Progress, when set, is called by the tile-stream route (step/stream)
+	// after each tile with the tiles done (a stream's total is not known:
+	// 0); the raster route reports through Watch.
 	Progress func(done, total int)
 	// Watch, when set, sees each pass over the scene start (noise estimate,
 	// automatic choice, the final pass) and each of its tiles done.
@@ -591,7 +593,6 @@ type scan struct {
 	band    int
 	col     int
 	cur     *rowio.Strip
-	done    int
 }
 
 func (r *runner) run(ctx context.Context) error {
@@ -791,10 +792,6 @@ func (sc *scan) writeRow(row int, st *rowio.Strip) error {
 	}
 	sc.out.Write(rowio.Job{Y0: sc.blend.Y(), Y1: end, Rows: bufs, SE: se})
 	sc.blend.Shift(n)
-	sc.done += len(sc.bands) * len(sc.plan.Cols)
-	if sc.cfg.Progress != nil {
-		sc.cfg.Progress(sc.done, len(sc.bands)*sc.plan.NTiles())
-	}
 	return nil
 }
 
