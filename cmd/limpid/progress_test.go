@@ -77,6 +77,9 @@ var runPct = regexp.MustCompile(`; run (\d+)%`)
 // Plain mode (stderr not a terminal): the engine's pass descriptions as
 // lines, sparse progress lines with the run's percentage never going back,
 // no carriage return, and the last line in the form scripts wait for.
+// Source: POSIX.1-2017 XBD 10.1 (diagnostics on standard error); the line
+// forms are the project's own contract (README "Set up and run"), no outside
+// source.
 func TestProgressPlain(t *testing.T) {
 	p, c, out := testProgress(false, 4, 16)
 	total := play(p, c, scriptedRun, nil, nil)

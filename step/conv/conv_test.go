@@ -204,6 +204,8 @@ func TestSmoothingKernelVariance(t *testing.T) {
 // TestPortableOperator: Portable() must give exactly the bits of the
 // operator with package vec's portable path forced (the machine-independent
 // results simulated scenes rely on), on every implementation that uses vec.
+// Source: project requirement (the same fixtures on every CPU), no outside
+// source.
 func TestPortableOperator(t *testing.T) {
 	defer vec.SetPortable(false)
 	r := rand.New(rand.NewPCG(7, 8))

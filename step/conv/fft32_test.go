@@ -116,7 +116,8 @@ func TestFFTSize(t *testing.T) {
 // The portable Go butterflies and the AVX ones do the same float32
 // operations in the same order (IEEE 754 rounds each one the same way), so
 // they must give the same bits: restorations and simulations do not depend
-// on the machine's vector units (project requirement).
+// on the machine's vector units (project requirement). Source: IEEE
+// 754-2008 section 5.4.1 (each arithmetic operation correctly rounded).
 func TestFFT32PortableMatchesVector(t *testing.T) {
 	if !useAVX {
 		t.Skip("no vector kernels on this machine: the portable path is what TestFFT32MatchesDFT checked")

@@ -55,6 +55,9 @@ func TestSmoothAtMost(t *testing.T) {
 	}
 }
 
+// Windows stay inside their span, centred (the offset is half the slack,
+// rounded down) and 5-smooth long. Source: project contract (the choice's
+// windows), checked against the smooth-number definition above.
 func TestWindowCentredAndBounded(t *testing.T) {
 	for _, c := range []struct{ a, b, side, wa, wb int }{
 		{0, 592, 256, 168, 424}, // budget-bound: centred 256 (the 2048^2 default)
@@ -72,6 +75,9 @@ func TestWindowCentredAndBounded(t *testing.T) {
 	}
 }
 
+// The window side is the square root of the budget's share per tile, never
+// below the floor. Source: project contract (the pixel budget), no outside
+// source.
 func TestSideFromBudget(t *testing.T) {
 	// The default budget 2^20 over a 4 x 4 grid: windows of 256.
 	if got := Side(1<<20, 16, 128); got != 256 {
@@ -85,6 +91,9 @@ func TestSideFromBudget(t *testing.T) {
 	}
 }
 
+// Sample indices are the centres of equal strata (stratified sampling:
+// Cochran, Sampling Techniques, 3rd ed., 1977, chapter 5; recalled from
+// memory), every index when there are fewer than the strata.
 func TestGridEvenStrata(t *testing.T) {
 	// Centres of 4 equal strata of 0..15: 2, 6, 10, 14 (int of 2.0, 6.0, ...).
 	got := Grid(16, 4)
