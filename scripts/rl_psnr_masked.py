@@ -13,11 +13,13 @@ iterations 1..MAXITER and the iteration) and the mean per geometry beside
 limpid's oracle and default restore.
 """
 import json
-import math
 import sys
 
 import numpy as np
-from scipy.signal import convolve
+
+# rl_psnr.py sits beside this script (sys.path[0]): its PSF, reader and
+# unrolled Richardson-Lucy are the ones used here.
+from rl_psnr import gaussian_psf, read_f32, rl_psnr_curve
 
 d, maxit = sys.argv[1], int(sys.argv[2])
 cases = json.load(open(d + "/cases.json"))
@@ -26,28 +28,12 @@ print("|---|---|---|---|---|")
 by_geom = {}
 for c in cases:
     w, h = c["width"], c["height"]
-    obs = np.fromfile(d + "/" + c["name"] + ".obs.f32", dtype="<f4").reshape(h, w).astype(np.float64) / 4095.0
-    ref = np.fromfile(d + "/" + c["name"] + ".ref.f32", dtype="<f4").reshape(h, w).astype(np.float64)
+    obs = read_f32(d + "/" + c["name"] + ".obs.f32", w, h) / 4095.0
+    ref = read_f32(d + "/" + c["name"] + ".ref.f32", w, h)
     score = np.fromfile(d + "/" + c["name"] + ".score.u8", dtype=np.uint8).reshape(h, w) == 1
-    sg = c["psf_sigma"]
-    r = max(1, math.ceil(4 * sg))
-    x = np.arange(-r, r + 1)
-    g = np.exp(-0.5 * x**2 / sg**2)
-    g /= g.sum()
-    psf = np.outer(g, g)
-    # skimage.restoration.richardson_lucy 0.19.3, unrolled to record every
-    # iteration (same arithmetic: float64, start 0.5, eps 1e-12, clip at end).
-    est = np.full(obs.shape, 0.5)
-    mirror = np.flip(psf)
-    best, best_it = -1e9, 0
-    for it in range(1, maxit + 1):
-        conv = convolve(est, psf, mode="same") + 1e-12
-        est = est * convolve(obs / conv, mirror, mode="same")
-        e = np.clip(est, -1, 1) * 4095.0
-        err = (e - ref)[score]
-        p = 10 * math.log10(4095.0**2 / np.mean(err**2))
-        if p > best:
-            best, best_it = p, it
+    curve = rl_psnr_curve(obs, ref, gaussian_psf(c["psf_sigma"]), maxit, score)
+    best_it = int(np.argmax(curve)) + 1
+    best = curve[best_it - 1]
     print("| %s | %s | %.2f (%d) | %.2f | %.2f |" % (c["name"], c["geometry"], best, best_it, c["oracle"], c["auto"]))
     by_geom.setdefault(c["geometry"], []).append((best, c["oracle"], c["auto"]))
 print()
